@@ -1,0 +1,175 @@
+"""The estimator: joint states in, pose, covariance, twist and slip flags out, batch and streaming.
+
+``run`` processes a whole recording with numpy (no Python loop per sample for the pose, and the
+covariance by the closed form in ``noise.propagate_covariance``); ``Estimator.step`` processes one
+sample at a time for the node. Both apply the same rules and formulas and are tested equal.
+
+A run starts at ``start_pose`` (default the origin, heading +x) with ``start_cov`` (default zero).
+At a chain start, gap or jump the increment is zero, the twist is reported as zero with variance
+``UNOBSERVED_VARIANCE``.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Sequence
+
+import numpy as np
+
+from .motion import body_increment, integrate, pose_increment_scalar, wrap_angle, wrap_angle_scalar
+from .noise import UNOBSERVED_VARIANCE, increment_noise, increment_noise_scalar, propagate_covariance, propagate_step
+from .settings import Settings
+from .slip import SlipMonitor, SlipResult, detect_slip
+from .wheels import JointSamples, SampleStatus, Travel, TravelTracker, count_statuses, wheel_travel
+
+__all__ = ["Trajectory", "run", "run_travel", "Estimator"]
+
+_UNOBSERVED_TWIST = np.diag([UNOBSERVED_VARIANCE, UNOBSERVED_VARIANCE])
+
+
+@dataclass
+class Trajectory:
+    """Estimator output, one entry per accepted sample (``index`` points into the input samples).
+
+    Pose (x, y in metres, yaw in rad wrapped to (-pi, pi]) and covariance (M, 3, 3) over
+    (x, y, yaw) are in the odom frame; twist (v m/s, w rad/s) and its covariance (M, 2, 2) in the
+    base frame.
+    """
+
+    index: np.ndarray
+    stamp_ns: np.ndarray
+    x_m: np.ndarray
+    y_m: np.ndarray
+    yaw_rad: np.ndarray
+    theta_rad: np.ndarray          # unwrapped heading
+    cov: np.ndarray
+    v_mps: np.ndarray
+    w_radps: np.ndarray
+    twist_cov: np.ndarray
+    status: np.ndarray             # (N,) SampleStatus of every input sample
+    travel: Travel
+    slip: SlipResult
+    counters: dict[str, int] = field(default_factory=dict)
+
+    def __len__(self) -> int:
+        return int(len(self.stamp_ns))
+
+    @property
+    def t_s(self) -> np.ndarray:
+        """Stamps in seconds (float64)."""
+        return self.stamp_ns * 1e-9
+
+    @property
+    def pose(self) -> np.ndarray:
+        """(M, 3) array of x, y, yaw."""
+        return np.column_stack([self.x_m, self.y_m, self.yaw_rad])
+
+
+def run(samples: JointSamples, settings: Settings, start_pose: Sequence[float] = (0.0, 0.0, 0.0),
+        start_cov: np.ndarray | None = None, gyro_z_radps: np.ndarray | None = None) -> Trajectory:
+    """Estimate over a whole run. ``gyro_z_radps`` (N,), if given, is the IMU z rate held at each sample."""
+    travel = wheel_travel(samples, settings)
+    gyro = None if gyro_z_radps is None else np.asarray(gyro_z_radps, dtype=np.float64)[travel.index]
+    return run_travel(travel, settings, start_pose, start_cov, gyro)
+
+
+def run_travel(travel: Travel, settings: Settings, start_pose: Sequence[float] = (0.0, 0.0, 0.0),
+               start_cov: np.ndarray | None = None, gyro_z_radps: np.ndarray | None = None) -> Trajectory:
+    """Estimate from wheel travel already computed (gyro given per accepted sample)."""
+    b = settings.wheels.track_width
+    dl, dr, dt = travel.ds_left_m, travel.ds_right_m, travel.dt_s
+    ds, dth = body_increment(dl, dr, b)
+    slip = detect_slip(travel, gyro_z_radps, settings)
+    if slip.dtheta_rad is not None:
+        dth = slip.dtheta_rad
+    scheme = settings.integration
+    x, y, theta, theta_before, _, _ = integrate(ds, dth, scheme, tuple(start_pose))
+    n = settings.noise
+    q, c_in = increment_noise(theta_before, dl, dr, b, scheme, n.model, n.k_left, n.k_right, n.alphas)
+    if slip.noise_scale is not None:
+        q = q * slip.noise_scale[:, None, None]
+        c_in = c_in * slip.noise_scale[:, None, None]
+    cov = propagate_covariance(x, y, q, start_cov, (float(start_pose[0]), float(start_pose[1])))
+    moving = ~travel.restart
+    safe_dt = np.where(moving, dt, 1.0)
+    v = np.where(moving, ds / safe_dt, 0.0)
+    w = np.where(moving, dth / safe_dt, 0.0)
+    twist_cov = np.where(moving[:, None, None], c_in / (safe_dt * safe_dt)[:, None, None], _UNOBSERVED_TWIST)
+    return Trajectory(travel.index, travel.stamp_ns, x, y, wrap_angle(theta), theta, cov, v, w, twist_cov,
+                      travel.status, travel, slip, count_statuses(travel.status))
+
+
+class Estimator:
+    """Streaming estimator for the node: one joint-state sample per ``step``; never raises on bad data."""
+
+    def __init__(self, settings: Settings, start_pose: Sequence[float] = (0.0, 0.0, 0.0),
+                 start_cov: np.ndarray | None = None) -> None:
+        self.settings = settings
+        self._tracker = TravelTracker(settings)
+        self._slip = SlipMonitor(settings)
+        self.counters: dict[str, int] = {s.name.lower(): 0 for s in SampleStatus}
+        self.last_slip = None
+        self.reset(start_pose, start_cov)
+
+    # -- state ---------------------------------------------------------------------------------
+    def reset(self, pose: Sequence[float] = (0.0, 0.0, 0.0), cov: np.ndarray | None = None) -> None:
+        """Put the pose and covariance at ``pose`` / ``cov`` (zero by default); the wheel chain goes on."""
+        self.x_m, self.y_m, self.theta_rad = (float(v) for v in pose)
+        self.cov = np.zeros((3, 3)) if cov is None else np.array(cov, dtype=np.float64).reshape(3, 3)
+        self.v_mps = 0.0
+        self.w_radps = 0.0
+        self.twist_cov = _UNOBSERVED_TWIST.copy()
+
+    def update_settings(self, settings: Settings) -> None:
+        """Use new settings from the next sample on; pose and covariance are kept, the chain restarts."""
+        self.settings = settings
+        self._tracker = TravelTracker(settings)
+        self._slip = SlipMonitor(settings)
+
+    @property
+    def yaw_rad(self) -> float:
+        """Heading wrapped to (-pi, pi]."""
+        return wrap_angle_scalar(self.theta_rad)
+
+    @property
+    def pose(self) -> tuple[float, float, float]:
+        """(x, y, yaw) in the odom frame."""
+        return self.x_m, self.y_m, self.yaw_rad
+
+    @property
+    def stamp_ns(self) -> int | None:
+        """Stamp of the last accepted sample."""
+        return self._tracker.last_stamp_ns
+
+    # -- one sample ------------------------------------------------------------------------------
+    def step(self, stamp_ns: int, names: Sequence[str], positions: Sequence[float],
+             velocities: Sequence[float], gyro_z_radps: float | None = None) -> SampleStatus:
+        """Process one joint-state sample; returns its status (skipped kinds leave the state as it was)."""
+        status, dt, dl, dr = self._tracker.step(stamp_ns, names, positions, velocities)
+        self.counters[status.name.lower()] += 1
+        if status >= 10:
+            return status
+        s = self.settings
+        b = s.wheels.track_width
+        restart = status != SampleStatus.USED
+        ds, dth = body_increment(dl, dr, b)
+        slip = self._slip.step(self._tracker, status, dt, dl, dr, gyro_z_radps)
+        self.last_slip = slip
+        if slip.dtheta_rad is not None:
+            dth = slip.dtheta_rad
+        theta = self.theta_rad
+        dx, dy = pose_increment_scalar(theta, ds, dth, s.integration)
+        n = s.noise
+        q, c_in = increment_noise_scalar(theta, dl, dr, b, s.integration, n.model, n.k_left, n.k_right, n.alphas)
+        if slip.noise_scale != 1.0:
+            q = q * slip.noise_scale
+            c_in = c_in * slip.noise_scale
+        self.cov = propagate_step(self.cov, dx, dy, q)
+        self.x_m += dx
+        self.y_m += dy
+        self.theta_rad = theta + dth
+        if restart:
+            self.v_mps, self.w_radps, self.twist_cov = 0.0, 0.0, _UNOBSERVED_TWIST.copy()
+        else:
+            self.v_mps, self.w_radps = ds / dt, dth / dt
+            self.twist_cov = c_in / (dt * dt)
+        return status

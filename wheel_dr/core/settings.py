@@ -1,0 +1,321 @@
+"""The one settings schema of wheel_dr: typed, documented, validated, shared by node, analyser and calibration.
+
+Every parameter is a field of a section dataclass; its dotted name is ``section.field`` (for
+example ``wheels.track_width``), exactly as it appears under ``ros__parameters`` in the node's
+parameters file. The field's metadata holds the description, unit and allowed range, so the node
+declares its ROS 2 parameters, the README's reference table and validation all from one place.
+"""
+from __future__ import annotations
+
+import dataclasses
+import math
+from dataclasses import dataclass, field
+from typing import Any, Iterator, Mapping
+
+from .errors import SettingsError
+
+__all__ = [
+    "ParamSpec",
+    "WheelSettings",
+    "FrameSettings",
+    "NoiseSettings",
+    "LimitSettings",
+    "SlipSettings",
+    "OutputSettings",
+    "Settings",
+    "INTEGRATION_SCHEMES",
+    "NOISE_MODELS",
+    "WHEEL_SOURCES",
+]
+
+INTEGRATION_SCHEMES = ("euler", "midpoint", "exact")
+NOISE_MODELS = ("per_wheel", "motion_model")
+WHEEL_SOURCES = ("position", "velocity", "ticks")
+
+
+def _p(default: Any, description: str, unit: str = "", lo: float | None = None,
+       hi: float | None = None, choices: tuple[str, ...] | None = None,
+       lo_open: bool = False, hi_open: bool = False, length: int | None = None) -> Any:
+    """A dataclass field carrying its parameter documentation and range."""
+    meta = dict(description=description, unit=unit, lo=lo, hi=hi, choices=choices,
+                lo_open=lo_open, hi_open=hi_open, length=length)
+    if isinstance(default, (list, tuple)):
+        value = tuple(default)
+        return field(default_factory=lambda: value, metadata=meta)
+    return field(default=default, metadata=meta)
+
+
+@dataclass(frozen=True)
+class ParamSpec:
+    """One parameter: dotted name, default, type and documentation."""
+
+    name: str
+    default: Any
+    kind: type
+    description: str
+    unit: str
+    lo: float | None
+    hi: float | None
+    choices: tuple[str, ...] | None
+    lo_open: bool
+    hi_open: bool
+    length: int | None
+
+    def range_text(self) -> str:
+        """Human-readable allowed range, for errors, the README and parameter descriptors."""
+        if self.choices:
+            return "one of " + ", ".join(self.choices)
+        if self.lo is None and self.hi is None:
+            if self.kind is tuple:
+                return "list of names" if self.length is None else f"list of {self.length} numbers"
+            return "any" if self.kind is not bool else "true or false"
+        lo = "-inf" if self.lo is None else f"{self.lo:g}"
+        hi = "inf" if self.hi is None else f"{self.hi:g}"
+        left = "(" if self.lo_open or self.lo is None else "["
+        right = ")" if self.hi_open or self.hi is None else "]"
+        text = f"{left}{lo}, {hi}{right}"
+        if self.kind is tuple:
+            text = f"{self.length or 'any number of'} values each in {text}"
+        return text
+
+    def check(self, value: Any) -> Any:
+        """Return ``value`` converted to this parameter's type, or raise SettingsError naming the fix."""
+        where = f"parameter '{self.name}'"
+        if self.kind is bool:
+            if not isinstance(value, bool):
+                raise SettingsError(f"{where} is {value!r}; it must be true or false.")
+            return value
+        if self.kind is str:
+            if not isinstance(value, str):
+                raise SettingsError(f"{where} is {value!r}; it must be a string ({self.range_text()}).")
+            if self.choices and value not in self.choices:
+                raise SettingsError(f"{where} is '{value}'; allowed: {', '.join(self.choices)}.")
+            return value
+        if self.kind is tuple:
+            if isinstance(value, (str, bytes)) or not hasattr(value, "__iter__"):
+                raise SettingsError(f"{where} is {value!r}; it must be a list ({self.range_text()}).")
+            items = tuple(value)
+            if self.length is not None and len(items) != self.length:
+                raise SettingsError(
+                    f"{where} has {len(items)} values; it needs exactly {self.length}.")
+            if self.lo is None and self.hi is None:  # a list of names
+                if not items or not all(isinstance(i, str) and i for i in items):
+                    raise SettingsError(
+                        f"{where} is {list(items)!r}; it must list one or more joint names.")
+                return items
+            return tuple(self._number(v, where) for v in items)
+        return self._number(value, where)
+
+    def _number(self, value: Any, where: str) -> Any:
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            raise SettingsError(f"{where} is {value!r}; it must be a number in {self.range_text()}.")
+        if self.kind is int:
+            if isinstance(value, float) and not value.is_integer():
+                raise SettingsError(f"{where} is {value!r}; it must be a whole number in {self.range_text()}.")
+            value = int(value)
+        else:
+            value = float(value)
+        bad = not math.isfinite(value)
+        if self.lo is not None:
+            bad |= value < self.lo or (self.lo_open and value == self.lo)
+        if self.hi is not None:
+            bad |= value > self.hi or (self.hi_open and value == self.hi)
+        if bad:
+            unit = f" {self.unit}" if self.unit else ""
+            raise SettingsError(f"{where} is {value:g}{unit}; allowed range is {self.range_text()}.")
+        return value
+
+
+@dataclass(frozen=True)
+class WheelSettings:
+    """Which joints are the wheels, how their states read, and the base geometry (metres)."""
+
+    left_joints: tuple[str, ...] = _p(
+        ("left_wheel_joint",), "Joint names of the left side; several are averaged (skid steer).")
+    right_joints: tuple[str, ...] = _p(
+        ("right_wheel_joint",), "Joint names of the right side; several are averaged (skid steer).")
+    left_radius: float = _p(0.1, "Effective rolling radius of the left wheels.", "m", 0.0, 5.0, lo_open=True)
+    right_radius: float = _p(0.1, "Effective rolling radius of the right wheels.", "m", 0.0, 5.0, lo_open=True)
+    track_width: float = _p(0.5, "Distance between the left and right wheel contact lines.", "m", 0.0, 10.0,
+                            lo_open=True)
+    source: str = _p("position", "What the joint states carry: 'position' (rad, differenced), "
+                     "'velocity' (rad/s times dt, for drivers without usable positions) or "
+                     "'ticks' (raw encoder counts in the position field).", choices=WHEEL_SOURCES)
+    wrap_angle: bool = _p(False, "Joint positions wrap at +-pi (unwrapped per step).")
+    ticks_per_revolution: float = _p(4096.0, "Encoder counts per motor revolution (4 x lines for "
+                                     "quadrature); used when source is 'ticks'.", "counts", 0.0, 1e9,
+                                     lo_open=True)
+    gear_ratio: float = _p(1.0, "Motor revolutions per wheel revolution; used when source is 'ticks'.",
+                           "", 0.0, 1e6, lo_open=True)
+    counter_bits: int = _p(0, "Width of the hardware tick counter that rolls over (16, 32, ...); "
+                           "0 means counts never roll over.", "bits", 0, 64)
+
+
+@dataclass(frozen=True)
+class FrameSettings:
+    """Frame names (REP 105)."""
+
+    odom: str = _p("odom", "Frame the pose is expressed in (REP 105 'odom').")
+    base: str = _p("base_link", "Frame rigidly attached to the base (REP 105 'base_link').")
+
+
+@dataclass(frozen=True)
+class NoiseSettings:
+    """Uncertainty model of the wheel increments."""
+
+    model: str = _p("per_wheel", "Uncertainty model: 'per_wheel' (each wheel's travel has variance "
+                    "k |ds|) or 'motion_model' (odometry motion model, alphas).", choices=NOISE_MODELS)
+    k_left: float = _p(5e-4, "Per-wheel model: variance of the left travel per metre travelled.",
+                       "m", 0.0, 1.0)
+    k_right: float = _p(5e-4, "Per-wheel model: variance of the right travel per metre travelled.",
+                        "m", 0.0, 1.0)
+    alphas: tuple[float, ...] = _p(
+        (0.05, 0.001, 0.01, 0.001),
+        "Motion model alpha1..alpha4: rotation from rotation (rad^2/rad^2), rotation from translation "
+        "(rad^2/m^2), translation from translation (m^2/m^2), translation from rotation (m^2/rad^2).",
+        "", 0.0, 10.0, length=4)
+
+
+@dataclass(frozen=True)
+class LimitSettings:
+    """Plausibility limits that decide when a sample is skipped or the increment chain restarts."""
+
+    max_gap_s: float = _p(0.5, "A gap between samples longer than this restarts the increment chain "
+                          "(the pose is kept, the increment across the gap is dropped).", "s", 0.0, 3600.0,
+                          lo_open=True)
+    max_wheel_speed_mps: float = _p(5.0, "A wheel surface speed above this is an encoder jump or glitch: "
+                                    "the increment is dropped and the chain restarts.", "m/s", 0.0, 1000.0,
+                                    lo_open=True)
+
+
+@dataclass(frozen=True)
+class SlipSettings:
+    """Slip and fault detection (see wheel_dr.core.slip)."""
+
+    enabled: bool = _p(True, "Run the slip detectors.")
+    response: str = _p("flag", "What a detected slip does: 'flag' only, 'inflate' the covariance, or "
+                       "'gyro' (take the gyro's yaw increment while slipping).",
+                       choices=("flag", "inflate", "gyro"))
+
+
+@dataclass(frozen=True)
+class OutputSettings:
+    """What the node publishes (the analyser ignores these)."""
+
+    publish_tf: bool = _p(True, "Publish the odom -> base transform on /tf.")
+    diagnostics_period_s: float = _p(1.0, "Period of the /diagnostics status.", "s", 0.05, 60.0)
+
+
+SECTIONS: dict[str, type] = {
+    "wheels": WheelSettings,
+    "frames": FrameSettings,
+    "integration": str,  # a top-level scalar, see Settings.integration
+    "noise": NoiseSettings,
+    "limits": LimitSettings,
+    "slip": SlipSettings,
+    "output": OutputSettings,
+}
+
+_INTEGRATION_SPEC = dict(
+    description="Pose integration scheme: 'euler', 'midpoint' (2nd-order Runge-Kutta) or 'exact' "
+                "(constant-curvature arc).",
+    unit="", lo=None, hi=None, choices=INTEGRATION_SCHEMES, lo_open=False, hi_open=False, length=None)
+
+
+@dataclass(frozen=True)
+class Settings:
+    """All estimator, node and analyser settings; build with ``Settings.from_flat`` to validate."""
+
+    wheels: WheelSettings = field(default_factory=WheelSettings)
+    frames: FrameSettings = field(default_factory=FrameSettings)
+    integration: str = "exact"
+    noise: NoiseSettings = field(default_factory=NoiseSettings)
+    limits: LimitSettings = field(default_factory=LimitSettings)
+    slip: SlipSettings = field(default_factory=SlipSettings)
+    output: OutputSettings = field(default_factory=OutputSettings)
+
+    # -- schema -----------------------------------------------------------------------------
+    @staticmethod
+    def specs() -> list[ParamSpec]:
+        """Every parameter's spec, in file order."""
+        out: list[ParamSpec] = []
+        for sec_name, sec in SECTIONS.items():
+            if sec is str:
+                out.append(ParamSpec(sec_name, "exact", str, **_INTEGRATION_SPEC))
+                continue
+            for f in dataclasses.fields(sec):
+                default = f.default if f.default is not dataclasses.MISSING else f.default_factory()
+                kind = tuple if isinstance(default, tuple) else type(default)
+                out.append(ParamSpec(f"{sec_name}.{f.name}", default, kind, **f.metadata))
+        return out
+
+    @staticmethod
+    def spec(name: str) -> ParamSpec:
+        """The spec of one dotted parameter name."""
+        for s in Settings.specs():
+            if s.name == name:
+                return s
+        raise SettingsError(f"parameter '{name}' is not a wheel_dr parameter; see the README's parameter "
+                            "reference for the names.")
+
+    # -- conversion ------------------------------------------------------------------------
+    @classmethod
+    def from_flat(cls, values: Mapping[str, Any], base: "Settings | None" = None,
+                  ignore_unknown: bool = False) -> "Settings":
+        """Settings from dotted names (as in a parameters file), validated; unknown names are errors.
+
+        Values not given keep those of ``base`` (default: the documented defaults).
+        """
+        flat = (base or cls()).to_flat()
+        known = set(flat)
+        for name, value in values.items():
+            if name not in known:
+                if ignore_unknown:
+                    continue
+                close = [k for k in known if k.split(".")[-1] == name.split(".")[-1]]
+                hint = f" (did you mean '{close[0]}'?)" if close else ""
+                raise SettingsError(f"parameter '{name}' is not a wheel_dr parameter{hint}; remove it or fix "
+                                    "its name.")
+            flat[name] = cls.spec(name).check(value)
+        sections: dict[str, Any] = {}
+        for sec_name, sec in SECTIONS.items():
+            if sec is str:
+                sections[sec_name] = flat[sec_name]
+            else:
+                sections[sec_name] = sec(**{f.name: flat[f"{sec_name}.{f.name}"] for f in dataclasses.fields(sec)})
+        settings = cls(**sections)
+        settings._check_consistency()
+        return settings
+
+    def to_flat(self) -> dict[str, Any]:
+        """Dotted name -> value, for writing a parameters file or declaring ROS parameters."""
+        out: dict[str, Any] = {}
+        for sec_name, sec in SECTIONS.items():
+            value = getattr(self, sec_name)
+            if sec is str:
+                out[sec_name] = value
+            else:
+                for f in dataclasses.fields(sec):
+                    out[f"{sec_name}.{f.name}"] = getattr(value, f.name)
+        return out
+
+    def replace(self, **flat_values: Any) -> "Settings":
+        """A validated copy with some dotted-name values changed (pass a dict with ``**``)."""
+        return Settings.from_flat(flat_values, base=self)
+
+    def with_values(self, values: Mapping[str, Any]) -> "Settings":
+        """A validated copy with the given dotted-name values changed."""
+        return Settings.from_flat(values, base=self)
+
+    def _check_consistency(self) -> None:
+        left, right = self.wheels.left_joints, self.wheels.right_joints
+        both = set(left) & set(right)
+        if both:
+            raise SettingsError(f"joint '{sorted(both)[0]}' is listed in both wheels.left_joints and "
+                                "wheels.right_joints; list each joint on one side only.")
+        if len(set(left)) != len(left) or len(set(right)) != len(right):
+            raise SettingsError("a joint is listed twice in wheels.left_joints or wheels.right_joints; "
+                                "list each joint once.")
+
+    def __iter__(self) -> Iterator[tuple[str, Any]]:
+        return iter(self.to_flat().items())

@@ -1,0 +1,291 @@
+"""Joint states to wheel travel per side: joint lookup by name, sources, unwrapping and sample checks.
+
+The same rules run in two forms that are tested equal: ``wheel_travel`` over whole arrays (the
+analyser) and ``TravelTracker.step`` one sample at a time (the node).
+
+Sample rules, in the order they are applied (each skipped sample is counted by kind):
+
+* malformed (names and values of different lengths): skipped;
+* stamp zero or negative: skipped;
+* a configured joint missing from the sample: skipped;
+* a needed value NaN or infinite: skipped;
+* stamp equal to or earlier than the last accepted one: skipped;
+* otherwise accepted. An accepted sample restarts the increment chain (its increment is zero,
+  the pose is kept) when it is the first, when the gap since the last accepted sample exceeds
+  ``limits.max_gap_s``, or when any wheel's surface speed over the step exceeds
+  ``limits.max_wheel_speed_mps`` (an encoder jump or glitch).
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from enum import IntEnum
+from typing import Sequence
+
+import numpy as np
+
+from .errors import InputError
+from .settings import Settings
+
+__all__ = [
+    "SampleStatus",
+    "SKIP_KINDS",
+    "RESTART_KINDS",
+    "JointSamples",
+    "Travel",
+    "wheel_travel",
+    "TravelTracker",
+    "radians_per_unit",
+    "wrap_difference",
+    "count_statuses",
+]
+
+TWO_PI = 2.0 * math.pi
+
+
+class SampleStatus(IntEnum):
+    """What happened to one joint-state sample."""
+
+    USED = 0
+    CHAIN_START = 1          # first accepted sample: increment zero
+    GAP = 2                  # accepted, gap too long: increment dropped, chain restarts
+    JUMP = 3                 # accepted, implausible wheel speed: increment dropped, chain restarts
+    MALFORMED = 10           # names and values of different lengths
+    BAD_STAMP = 11           # stamp zero or negative
+    MISSING_JOINT = 12       # a configured joint is not in the sample
+    NON_FINITE = 13          # NaN or inf in a needed value
+    STAMP_NOT_INCREASING = 14  # repeated or earlier stamp
+
+
+SKIP_KINDS = tuple(s for s in SampleStatus if s >= 10)
+RESTART_KINDS = (SampleStatus.CHAIN_START, SampleStatus.GAP, SampleStatus.JUMP)
+
+
+def count_statuses(status: np.ndarray) -> dict[str, int]:
+    """Count of every status kind (lower-case names) in an array of SampleStatus codes."""
+    counts = np.bincount(np.asarray(status, dtype=np.int64), minlength=max(SampleStatus) + 1)
+    return {s.name.lower(): int(counts[s]) for s in SampleStatus}
+
+
+def radians_per_unit(settings: Settings) -> float:
+    """Wheel angle in radians per unit of the configured source (1 for radians, 2 pi / counts per wheel rev)."""
+    w = settings.wheels
+    if w.source == "ticks":
+        return TWO_PI / (w.ticks_per_revolution * w.gear_ratio)
+    return 1.0
+
+
+def wrap_difference(d: np.ndarray | float, period: float) -> np.ndarray | float:
+    """A difference brought into [-period/2, period/2): unwraps angles (period 2 pi) or counters (2^bits)."""
+    half = 0.5 * period
+    return (np.asarray(d) + half) % period - half if isinstance(d, np.ndarray) else (d + half) % period - half
+
+
+def _wrap_period(settings: Settings) -> float:
+    w = settings.wheels
+    if w.source == "ticks" and w.counter_bits > 0:
+        return float(2 ** w.counter_bits)
+    if w.source == "position" and w.wrap_angle:
+        return TWO_PI
+    return 0.0
+
+
+@dataclass
+class JointSamples:
+    """A run of joint-state samples as arrays (the analyser's input).
+
+    ``position`` and ``velocity`` are (N, J) over ``names``; ``present`` marks which joints each
+    sample carried (absent ones may hold anything); ``malformed`` marks samples whose message was
+    inconsistent. Stamps are nanoseconds (int64).
+    """
+
+    stamp_ns: np.ndarray
+    names: tuple[str, ...]
+    position: np.ndarray
+    velocity: np.ndarray
+    present: np.ndarray | None = None
+    malformed: np.ndarray | None = None
+
+    def __len__(self) -> int:
+        return int(len(self.stamp_ns))
+
+
+@dataclass
+class Travel:
+    """Wheel travel between consecutive accepted samples (metres), one entry per accepted sample."""
+
+    index: np.ndarray      # (M,) index of each accepted sample in the input
+    stamp_ns: np.ndarray   # (M,) int64
+    dt_s: np.ndarray       # (M,) time since the previous accepted sample (0 at a chain start)
+    ds_left_m: np.ndarray  # (M,) travel of the left side (mean of its joints)
+    ds_right_m: np.ndarray
+    restart: np.ndarray    # (M,) bool: increment dropped, chain restarts here
+    status: np.ndarray     # (N,) SampleStatus code of every input sample
+    joint_travel_m: np.ndarray | None = None  # (M, J) per joint, left joints first, then right
+
+
+def _columns(names: Sequence[str], wanted: Sequence[str]) -> list[int]:
+    index = {n: i for i, n in enumerate(names)}
+    missing = [n for n in wanted if n not in index]
+    if missing:
+        raise InputError(
+            f"configured joint '{missing[0]}' is not among the joint states' names ({', '.join(names) or 'none'}); "
+            "fix wheels.left_joints / wheels.right_joints in the parameters file.")
+    return [index[n] for n in wanted]
+
+
+def wheel_travel(samples: JointSamples, settings: Settings) -> Travel:
+    """Per-side wheel travel of a whole run, vectorised (same rules as ``TravelTracker.step``)."""
+    w = settings.wheels
+    n = len(samples)
+    left_cols = _columns(samples.names, w.left_joints)
+    right_cols = _columns(samples.names, w.right_joints)
+    cols = left_cols + right_cols
+    nl = len(left_cols)
+    stamp = np.asarray(samples.stamp_ns, dtype=np.int64)
+    values = samples.velocity if w.source == "velocity" else samples.position
+    values = np.asarray(values, dtype=np.float64)[:, cols] if n else np.zeros((0, len(cols)))
+
+    status = np.zeros(n, dtype=np.int8)
+    skipped = np.zeros(n, dtype=bool)
+
+    def mark(mask: np.ndarray, kind: SampleStatus) -> None:
+        new = mask & ~skipped
+        status[new] = kind
+        skipped[new] = True
+
+    if samples.malformed is not None:
+        mark(np.asarray(samples.malformed, dtype=bool), SampleStatus.MALFORMED)
+    mark(stamp <= 0, SampleStatus.BAD_STAMP)
+    if samples.present is not None:
+        mark(~np.asarray(samples.present, dtype=bool)[:, cols].all(axis=1), SampleStatus.MISSING_JOINT)
+    mark(~np.isfinite(values).all(axis=1), SampleStatus.NON_FINITE)
+    # A candidate is accepted when its stamp exceeds every earlier candidate's stamp: the running
+    # maximum of accepted stamps equals that of all candidates, since rejected ones never exceed it.
+    cand = np.flatnonzero(~skipped)
+    cs = stamp[cand]
+    prev_max = np.maximum.accumulate(np.concatenate(([np.iinfo(np.int64).min], cs[:-1]))) if len(cs) else cs
+    increasing = cs > prev_max
+    status[cand[~increasing]] = SampleStatus.STAMP_NOT_INCREASING
+    acc = cand[increasing]
+
+    m = len(acc)
+    st = stamp[acc]
+    vals = values[acc]
+    dt = np.zeros(m)
+    if m > 1:
+        dt[1:] = (st[1:] - st[:-1]) * 1e-9
+    radius = np.array([w.left_radius] * nl + [w.right_radius] * (len(cols) - nl))
+    dphi = np.zeros_like(vals)
+    if m > 1:
+        if w.source == "velocity":
+            dphi[1:] = 0.5 * (vals[1:] + vals[:-1]) * dt[1:, None]
+        else:
+            d = vals[1:] - vals[:-1]
+            period = _wrap_period(settings)
+            if period:
+                d = wrap_difference(d, period)
+            dphi[1:] = d * radians_per_unit(settings)
+    travel = dphi * radius
+    restart = np.zeros(m, dtype=bool)
+    kind = np.full(m, SampleStatus.USED, dtype=np.int8)
+    if m:
+        kind[0] = SampleStatus.CHAIN_START
+        gap = dt > settings.limits.max_gap_s
+        gap[0] = False
+        with np.errstate(divide="ignore", invalid="ignore"):
+            jump = (np.abs(travel) > settings.limits.max_wheel_speed_mps * dt[:, None]).any(axis=1)
+        jump[0] = False
+        jump &= ~gap
+        kind[gap] = SampleStatus.GAP
+        kind[jump] = SampleStatus.JUMP
+        restart = kind != SampleStatus.USED
+        travel[restart] = 0.0
+    status[acc] = kind
+    ds_left = travel[:, :nl].sum(axis=1) / nl
+    ds_right = travel[:, nl:].sum(axis=1) / (len(cols) - nl)
+    return Travel(acc, st, dt, ds_left, ds_right, restart, status, travel)
+
+
+class TravelTracker:
+    """Streaming form of ``wheel_travel``: feed one joint-state sample at a time."""
+
+    def __init__(self, settings: Settings) -> None:
+        self.settings = settings
+        w = settings.wheels
+        self._wanted = tuple(w.left_joints) + tuple(w.right_joints)
+        self._nl = len(w.left_joints)
+        self._radius = [w.left_radius] * self._nl + [w.right_radius] * len(w.right_joints)
+        self._period = _wrap_period(settings)
+        self._scale = radians_per_unit(settings)
+        self._use_velocity = w.source == "velocity"
+        self._max_gap_s = settings.limits.max_gap_s
+        self._max_speed = settings.limits.max_wheel_speed_mps
+        self._names_key: tuple[str, ...] | None = None
+        self._cols: list[int] | None = None
+        self.last_stamp_ns: int | None = None
+        self._last: list[float] | None = None
+        self.joint_travel_m: list[float] = [0.0] * len(self._wanted)  # last step, left joints first
+
+    def restart(self) -> None:
+        """Forget the last sample: the next accepted one starts a new increment chain."""
+        self.last_stamp_ns = None
+        self._last = None
+
+    def _lookup(self, names: Sequence[str]) -> list[int] | None:
+        key = tuple(names)
+        if key != self._names_key:
+            index = {n: i for i, n in enumerate(key)}
+            self._names_key = key
+            self._cols = [index[n] for n in self._wanted] if all(n in index for n in self._wanted) else None
+        return self._cols
+
+    def step(self, stamp_ns: int, names: Sequence[str], positions: Sequence[float],
+             velocities: Sequence[float]) -> tuple[SampleStatus, float, float, float]:
+        """Classify one sample; returns (status, dt_s, ds_left_m, ds_right_m). Never raises on bad data."""
+        values = velocities if self._use_velocity else positions
+        if len(values) != len(names) or (len(positions) not in (0, len(names))) or (
+                len(velocities) not in (0, len(names))):
+            return SampleStatus.MALFORMED, 0.0, 0.0, 0.0
+        if stamp_ns <= 0:
+            return SampleStatus.BAD_STAMP, 0.0, 0.0, 0.0
+        cols = self._lookup(names)
+        if cols is None:
+            return SampleStatus.MISSING_JOINT, 0.0, 0.0, 0.0
+        try:
+            vals = [float(values[c]) for c in cols]
+        except (TypeError, ValueError):
+            return SampleStatus.NON_FINITE, 0.0, 0.0, 0.0
+        if not all(math.isfinite(v) for v in vals):
+            return SampleStatus.NON_FINITE, 0.0, 0.0, 0.0
+        last_stamp = self.last_stamp_ns
+        if last_stamp is not None and stamp_ns <= last_stamp:
+            return SampleStatus.STAMP_NOT_INCREASING, 0.0, 0.0, 0.0
+        last = self._last
+        self.last_stamp_ns = int(stamp_ns)
+        self._last = vals
+        self.joint_travel_m = [0.0] * len(vals)
+        if last is None:
+            return SampleStatus.CHAIN_START, 0.0, 0.0, 0.0
+        dt = (stamp_ns - last_stamp) * 1e-9
+        if dt > self._max_gap_s:
+            return SampleStatus.GAP, dt, 0.0, 0.0
+        travel = []
+        limit = self._max_speed * dt
+        for v, v0, r in zip(vals, last, self._radius):
+            if self._use_velocity:
+                d = 0.5 * (v + v0) * dt
+            else:
+                d = v - v0
+                if self._period:
+                    d = wrap_difference(d, self._period)
+                d = d * self._scale
+            t = d * r
+            if abs(t) > limit:
+                return SampleStatus.JUMP, dt, 0.0, 0.0
+            travel.append(t)
+        self.joint_travel_m = travel
+        nl = self._nl
+        ds_left = sum(travel[:nl]) / nl
+        ds_right = sum(travel[nl:]) / (len(travel) - nl)
+        return SampleStatus.USED, dt, ds_left, ds_right

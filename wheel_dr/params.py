@@ -1,0 +1,190 @@
+"""Reading and writing the ROS 2 parameters file that the node, the analyser and calibration share.
+
+The file is the one the node takes with ``--ros-args --params-file FILE``::
+
+    /**:                      # or the node's name, e.g. wheel_dr_node
+      ros__parameters:
+        wheels:
+          track_width: 0.412
+        integration: exact
+
+Nested keys are flattened to wheel_dr's dotted names (``wheels.track_width``).
+"""
+from __future__ import annotations
+
+import os
+import re
+import tempfile
+from pathlib import Path
+from typing import Any, Mapping
+
+import yaml
+
+from .core.errors import SettingsError
+from .core.settings import Settings
+
+__all__ = ["NODE_NAME", "load_settings", "parse_params_text", "flatten", "write_params_text",
+           "update_params_text", "atomic_write_text"]
+
+NODE_NAME = "wheel_dr_node"
+
+
+def flatten(tree: Mapping[str, Any], prefix: str = "") -> dict[str, Any]:
+    """Nested mapping -> dotted names."""
+    out: dict[str, Any] = {}
+    for key, value in tree.items():
+        name = f"{prefix}{key}"
+        if isinstance(value, Mapping):
+            out.update(flatten(value, name + "."))
+        else:
+            out[name] = value
+    return out
+
+
+def parse_params_text(text: str, source: str = "parameters file",
+                      node_name: str = NODE_NAME) -> dict[str, Any]:
+    """Dotted-name values for ``node_name`` from the text of a ROS 2 parameters file.
+
+    Sections for ``/**`` apply first, then those for the node's own name (with or without a
+    leading slash or namespace), as ROS 2 applies them.
+    """
+    try:
+        doc = yaml.safe_load(text)
+    except yaml.YAMLError as exc:
+        mark = getattr(exc, "problem_mark", None)
+        where = f" at line {mark.line + 1}" if mark is not None else ""
+        raise SettingsError(f"{source} is not valid YAML{where}; fix its syntax.") from None
+    if doc is None:
+        return {}
+    if not isinstance(doc, Mapping):
+        raise SettingsError(f"{source} must be a mapping with a node name or '/**' at the top; "
+                            "see config/wheel_dr.yaml for the layout.")
+    values: dict[str, Any] = {}
+    matched = False
+    for key in sorted(doc, key=lambda k: 0 if k == "/**" else 1):
+        name = str(key).rstrip("/").split("/")[-1]
+        if key != "/**" and name != node_name:
+            continue
+        body = doc[key]
+        if not isinstance(body, Mapping) or "ros__parameters" not in body:
+            raise SettingsError(f"{source}: section '{key}' has no 'ros__parameters' mapping; put the "
+                                "parameters under '{key}: ros__parameters:'.")
+        params = body["ros__parameters"] or {}
+        if not isinstance(params, Mapping):
+            raise SettingsError(f"{source}: '{key}.ros__parameters' must be a mapping of parameters.")
+        values.update(flatten(params))
+        matched = True
+    if not matched:
+        raise SettingsError(f"{source} has no section for '/**' or '{node_name}'; put the parameters under "
+                            "'/**: ros__parameters:'.")
+    values.pop("use_sim_time", None)
+    return values
+
+
+def load_settings(path: str | os.PathLike | None, node_name: str = NODE_NAME,
+                  base: Settings | None = None) -> Settings:
+    """Validated Settings from a parameters file (defaults when ``path`` is None)."""
+    if path is None:
+        return base or Settings()
+    p = Path(path)
+    if not p.is_file():
+        raise SettingsError(f"parameters file '{p}' does not exist; give the path of a YAML file such as "
+                            "config/wheel_dr.yaml.")
+    try:
+        text = p.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise SettingsError(f"parameters file '{p}' cannot be read ({exc.__class__.__name__}); check the "
+                            "path and its permissions.") from None
+    return Settings.from_flat(parse_params_text(text, f"parameters file '{p}'", node_name), base=base)
+
+
+def _nest(flat: Mapping[str, Any]) -> dict[str, Any]:
+    tree: dict[str, Any] = {}
+    for name, value in flat.items():
+        node = tree
+        parts = name.split(".")
+        for part in parts[:-1]:
+            node = node.setdefault(part, {})
+        node[parts[-1]] = list(value) if isinstance(value, tuple) else value
+    return tree
+
+
+def write_params_text(settings: Settings, header: str = "", node_key: str = "/**") -> str:
+    """A complete parameters file for ``settings`` (every parameter), with an optional comment header."""
+    body = yaml.safe_dump({node_key: {"ros__parameters": _nest(settings.to_flat())}}, sort_keys=False,
+                          default_flow_style=None)
+    lines = [f"# {line}".rstrip() for line in header.splitlines()] if header else []
+    return "\n".join(lines + [body])
+
+
+_SCALAR = re.compile(r"^(?P<indent>\s*)(?P<key>[A-Za-z0-9_]+):(?P<sp>\s*)(?P<value>[^#\n]*?)(?P<tail>\s*#.*)?$")
+
+
+def update_params_text(text: str, values: Mapping[str, Any], header: str = "") -> str:
+    """The parameters file ``text`` with only the given dotted names' values replaced.
+
+    Comments, order and everything else are kept; names absent from the file are appended under
+    the first ``ros__parameters`` block. ``header`` (plain text) becomes a comment block on top.
+    """
+    lines = text.splitlines()
+    stack: list[tuple[int, str]] = []
+    done: set[str] = set()
+    params_indent: int | None = None
+    for i, line in enumerate(lines):
+        if not line.strip() or line.lstrip().startswith("#"):
+            continue
+        m = _SCALAR.match(line)
+        if not m:
+            continue
+        indent = len(m.group("indent"))
+        while stack and stack[-1][0] >= indent:
+            stack.pop()
+        key = m.group("key")
+        if key == "ros__parameters":
+            params_indent = indent
+            stack = [(indent, key)]
+            continue
+        if params_indent is None or not stack or stack[0][1] != "ros__parameters":
+            continue
+        dotted = ".".join([k for _, k in stack[1:]] + [key])
+        if m.group("value").strip() == "":
+            stack.append((indent, key))
+            continue
+        if dotted in values:
+            new = yaml.safe_dump(_plain(values[dotted]), default_flow_style=True).strip()
+            new = new.removesuffix("...").strip()
+            lines[i] = f"{m.group('indent')}{key}:{m.group('sp') or ' '}{new}{m.group('tail') or ''}"
+            done.add(dotted)
+    missing = {k: v for k, v in values.items() if k not in done}
+    if missing:
+        if params_indent is None:
+            raise SettingsError("the parameters file has no 'ros__parameters' block to update; start from "
+                                "config/wheel_dr.yaml.")
+        extra = yaml.safe_dump(_nest({k: _plain(v) for k, v in missing.items()}), sort_keys=False,
+                               default_flow_style=None)
+        pad = " " * (params_indent + 2)
+        lines += [pad + ln for ln in extra.splitlines()]
+    head = [f"# {ln}".rstrip() for ln in header.splitlines()] if header else []
+    return "\n".join(head + lines) + "\n"
+
+
+def _plain(value: Any) -> Any:
+    if isinstance(value, tuple):
+        return [_plain(v) for v in value]
+    if hasattr(value, "item"):
+        return value.item()
+    return value
+
+
+def atomic_write_text(path: str | os.PathLike, text: str) -> None:
+    """Write ``text`` to a temporary file beside ``path`` and rename it into place when complete."""
+    p = Path(path)
+    p.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.", suffix=".part", dir=p.parent)
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8") as fh:
+            fh.write(text)
+        os.replace(tmp, p)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
