@@ -23,7 +23,6 @@ setup(
     description="Wheel odometry with honest covariance, slip flags and offline bag analysis for ROS 2.",
     license="Apache-2.0",
     python_requires=">=3.10",
-    tests_require=["pytest"],
     entry_points={
         "console_scripts": [
             "wheel_dr_node = wheel_dr.ros.node:main",

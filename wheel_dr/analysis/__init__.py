@@ -1,0 +1,1 @@
+"""Offline analysis on estimator output: alignment, metrics, consistency, calibration and tuning."""
