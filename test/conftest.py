@@ -63,10 +63,10 @@ def _activate_ros_workspace_in_process() -> None:
     except RosWorkspaceMissingError as exc:
         _TF_BUILD_ERROR = _TF_BUILD_ERROR or str(exc)
         env = dict(os.environ)
-    # Keep this process's start-up guard: it has already been set up by the ROS wheels' hook.
-    env.pop("_ROS_WHEELS_BOOTSTRAP_COMPLETE", None)
-    env = isolated_dds_env(env)
-    os.environ.update(env)
+    # os.environ.update() adds and overwrites but removes nothing, so this process keeps the ROS
+    # wheels' start-up guard (its loader paths are already set); children started with env=None
+    # inherit the guard and the full LD_LIBRARY_PATH, children started with ros_env re-run the hook.
+    os.environ.update(isolated_dds_env(env))
     if _TF_BUILD_ERROR is not None:
         return
     paths = workspace_paths()

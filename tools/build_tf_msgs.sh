@@ -85,7 +85,7 @@ stamp="$WS/tf_msgs.stamp"
 inputs_hash="$(
     {
         (cd "$PKG_SRC" && find . -type f -print0 | sort -z | xargs -0 sha256sum)
-        sha256sum "$REQ" "$ROOT/requirements.txt" "${BASH_SOURCE[0]}"
+        (cd "$ROOT" && sha256sum requirements-ros-build.txt requirements.txt tools/build_tf_msgs.sh)
         readlink -f "$VENV"
         "$PY" -c 'import sys; print(sys.version)'
     } | sha256sum | cut -d' ' -f1
