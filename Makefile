@@ -16,11 +16,23 @@ $(STAMP): requirements.txt setup.py
 	$(PY) -m pip install --quiet --no-deps -e .
 	touch $(STAMP)
 
+# Tests run with the local ROS workspace on the paths (tools/ros_env.sh): LD_LIBRARY_PATH has to be
+# set before Python starts for the built tf2_msgs libraries; test/conftest.py picks the DDS domain.
+ROS_ENV := WHEEL_DR_ROOT="$(CURDIR)"; export WHEEL_DR_ROOT; . tools/ros_env.sh
+
+# tf2_msgs is not on the package registry: build it from tools/tf_msgs into .ros_ws/ (no-op when built).
+tf-msgs: venv
+	bash tools/build_tf_msgs.sh
+
+# Build wheel_dr itself with colcon in a throw-away workspace and check its install tree.
+colcon-check: venv tf-msgs
+	$(ROS_ENV) && $(PY) -m pytest -q test/test_workspace_build.py -k colcon
+
 demo: venv
 	$(VENV)/bin/wheel-dr demo
 
-test: venv
-	$(PY) -m pytest -q test
+test: venv tf-msgs
+	$(ROS_ENV) && $(PY) -m pytest -q test
 
 clean:
 	rm -rf build install log .ros_ws out .pytest_cache
