@@ -240,6 +240,7 @@ def test_ros_env_sh_matches_python_helper() -> None:
                                                              "LD_LIBRARY_PATH": "/lib"}[name])
 
 
+@pytest.mark.filterwarnings("ignore:module 'sre_:DeprecationWarning")  # raised inside lark, the IDL parser
 def test_tf2_msgs_usable_in_the_test_process() -> None:
     """conftest makes the locally built TFMessage importable here, type support included."""
     from tf2_msgs.msg import TFMessage
