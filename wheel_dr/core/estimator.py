@@ -49,6 +49,9 @@ class Trajectory:
     travel: Travel
     slip: SlipResult
     counters: dict[str, int] = field(default_factory=dict)
+    # (M, 3, 3) step noise Q_k (odom frame) the covariance was propagated with; metrics use it to
+    # restart the covariance at segment starts (NEES). None when not recorded.
+    step_noise: np.ndarray | None = None
 
     def __len__(self) -> int:
         return int(len(self.stamp_ns))
@@ -95,7 +98,7 @@ def run_travel(travel: Travel, settings: Settings, start_pose: Sequence[float] =
     w = np.where(moving, dth / safe_dt, 0.0)
     twist_cov = np.where(moving[:, None, None], c_in / (safe_dt * safe_dt)[:, None, None], _UNOBSERVED_TWIST)
     return Trajectory(travel.index, travel.stamp_ns, x, y, wrap_angle(theta), theta, cov, v, w, twist_cov,
-                      travel.status, travel, slip, count_statuses(travel.status))
+                      travel.status, travel, slip, count_statuses(travel.status), step_noise=q)
 
 
 class Estimator:
