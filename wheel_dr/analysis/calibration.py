@@ -1,0 +1,725 @@
+"""Calibration against ground truth: wheel radii and track by least squares, then noise by maximum likelihood.
+
+Method (common practice for odometry calibration against an external reference; see also Antonelli,
+Chiaverini & Fusco, IEEE T-RO 21(5), 2005, and Censi et al., IEEE T-RO 29(2), 2013, from memory):
+
+1. The wheel angle increments are computed once from the joint states with the nominal settings
+   (``dphi = ds / r_nominal``: wheel travel in radians does not depend on the radius). A candidate
+   geometry (r_left, r_right, b) then re-integrates the whole drive in one vectorised pass
+   (``wheel_dr.core.motion.integrate``, the estimator's own scheme).
+2. The drive is cut into consecutive, non-overlapping segments of about ``segment_length_m`` of
+   mean wheel travel (none crosses a chain restart or a stretch without truth). For each segment
+   the relative motion (dx, dy in the frame of the segment's start pose, dyaw) of odometry is
+   compared with that of the truth, each in its own frame: the comparison does not depend on the
+   frame the truth is expressed in (a map frame offset from odom changes nothing).
+3. ``scipy.optimize.least_squares`` fits the three relative corrections on those errors, each
+   segment's error whitened by its propagated covariance (generalised least squares). Standard
+   errors are s^2 (J^T J)^-1 from the Jacobian at the solution and the residual variance s^2.
+4. The noise parameters (per_wheel: k_left, k_right; motion_model: alpha1..alpha4) are fitted by
+   maximum likelihood of the segment errors, e ~ N(0, P(theta)), where P is the covariance
+   propagated over the segment from zero at its start (``wheel_dr.core.noise.propagate_covariance``).
+   Q is linear in the noise parameters for both models, so P(theta) = sum_a theta_a P_a with basis
+   covariances P_a propagated once. Steps 3 and 4 alternate until stable; segments whose NEES is
+   beyond the chi-square(3) 99.9 % quantile (slip, truth glitches) are set aside.
+
+Independence: the relative motion over a segment depends only on the wheel increments inside it,
+so errors of non-overlapping segments are independent and their NEES values are chi-square(3)
+samples when the covariance is right (Bar-Shalom, Li & Kirubarajan 2001, sec. 5.4).
+
+Units: metres, radians, nanosecond stamps; frames REP 103 / REP 105.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Sequence
+
+import numpy as np
+from scipy import optimize, stats
+
+from ..core.errors import InputError
+from ..core.motion import body_increment, integrate, wrap_angle
+from ..core.noise import increment_noise, propagate_covariance
+from ..core.settings import Settings
+from ..core.wheels import JointSamples, wheel_travel
+from .path import PlanarPath
+
+__all__ = [
+    "CalibrationError",
+    "TruthError",
+    "ExcitationError",
+    "CalibrationRun",
+    "Segments",
+    "Excitation",
+    "SystematicFit",
+    "NoiseFit",
+    "RunFigures",
+    "CalibrationResult",
+    "GEOMETRY_NAMES",
+    "NOISE_NAMES",
+    "prepare_run",
+    "make_segments",
+    "segment_errors",
+    "segment_covariance_basis",
+    "segment_propagate",
+    "noise_vector",
+    "noise_values",
+    "geometry_of",
+    "fit_systematic",
+    "fit_noise",
+    "excitation",
+    "run_figures",
+    "calibrate",
+    "mean_nees_interval",
+]
+
+GEOMETRY_NAMES = ("wheels.left_radius", "wheels.right_radius", "wheels.track_width")
+NOISE_NAMES = {"per_wheel": ("noise.k_left", "noise.k_right"), "motion_model": ("noise.alphas",)}
+
+OUTLIER_QUANTILE = 0.999      # chi-square(3) quantile beyond which a segment is set aside
+_MIN_VARIANCE = 1e-14         # added to the diagonal of segment covariances (m^2, rad^2)
+
+
+class CalibrationError(InputError):
+    """Calibration cannot proceed with the data given; the message names what to record or drive."""
+
+
+class TruthError(CalibrationError):
+    """Ground truth is missing, too sparse or does not overlap the joint states."""
+
+
+class ExcitationError(CalibrationError):
+    """The drive does not excite the parameters enough to fit them (too short, too straight, one-sided)."""
+
+
+# ------------------------------------------------------------------------------------------------
+# data
+# ------------------------------------------------------------------------------------------------
+@dataclass
+class CalibrationRun:
+    """One recording ready for calibration, per accepted joint-state sample (M entries).
+
+    ``dphi_*_rad`` are wheel angle increments (rad, mean over each side's joints), ``restart`` marks
+    dropped increments (chain start, gap, jump). ``truth_*`` is the truth interpolated at the
+    accepted stamps (x, y m and unwrapped yaw rad in the truth's own frame), ``truth_valid`` where
+    that interpolation is trustworthy (inside the truth's span, no long truth gap).
+    """
+
+    name: str
+    stamp_ns: np.ndarray
+    dphi_left_rad: np.ndarray
+    dphi_right_rad: np.ndarray
+    restart: np.ndarray
+    truth_x_m: np.ndarray
+    truth_y_m: np.ndarray
+    truth_yaw_rad: np.ndarray
+    truth_valid: np.ndarray
+    truth_frame: str = ""
+    nominal: Settings = field(default_factory=Settings)
+
+    def __len__(self) -> int:
+        return int(len(self.stamp_ns))
+
+    def wheel_travel_m(self, left_radius_m: float, right_radius_m: float) -> tuple[np.ndarray, np.ndarray]:
+        """Left and right wheel travel (m) per step for the given radii."""
+        return left_radius_m * self.dphi_left_rad, right_radius_m * self.dphi_right_rad
+
+
+def prepare_run(samples: JointSamples, truth: PlanarPath, settings: Settings, name: str = "",
+                max_truth_gap_s: float = 0.5) -> CalibrationRun:
+    """Wheel angle increments (from ``settings``' joint rules) and truth at the accepted stamps.
+
+    Raises TruthError when the truth has fewer than two poses or does not overlap the joint states.
+    """
+    label = f" of '{name}'" if name else ""
+    travel = wheel_travel(samples, settings)
+    w = settings.wheels
+    dphi_l = np.asarray(travel.ds_left_m) / w.left_radius
+    dphi_r = np.asarray(travel.ds_right_m) / w.right_radius
+    st = np.asarray(travel.stamp_ns, dtype=np.int64)
+    if len(truth) < 2:
+        raise TruthError(f"the ground truth{label} has {len(truth)} poses; record the truth topic during the "
+                         "whole drive (give it with --truth).")
+    ts = np.asarray(truth.stamp_ns, dtype=np.int64)
+    order = np.argsort(ts, kind="stable")
+    ts = ts[order]
+    keep = np.concatenate(([True], np.diff(ts) > 0))
+    ts = ts[keep]
+    tx = np.asarray(truth.x_m, dtype=np.float64)[order][keep]
+    ty = np.asarray(truth.y_m, dtype=np.float64)[order][keep]
+    tyaw = np.unwrap(np.asarray(truth.yaw_rad, dtype=np.float64)[order][keep])
+    finite = np.isfinite(tx) & np.isfinite(ty) & np.isfinite(tyaw)
+    ts, tx, ty, tyaw = ts[finite], tx[finite], ty[finite], tyaw[finite]
+    if len(ts) < 2:
+        raise TruthError(f"the ground truth{label} has fewer than 2 usable poses; record the truth topic "
+                         "during the whole drive.")
+    if len(st) == 0:
+        raise CalibrationError(f"the recording{label} has no usable joint-state samples; check the joint names "
+                               "in the parameters file.")
+    tq = (st - ts[0]).astype(np.float64)
+    tb = (ts - ts[0]).astype(np.float64)
+    inside = (st >= ts[0]) & (st <= ts[-1])
+    hi = np.clip(np.searchsorted(ts, st, side="left"), 1, len(ts) - 1)
+    gap_s = (ts[hi] - ts[hi - 1]) * 1e-9
+    exact = ts[np.clip(np.searchsorted(ts, st), 0, len(ts) - 1)] == st
+    valid = inside & ((gap_s <= max_truth_gap_s) | exact)
+    if valid.sum() < 2:
+        raise TruthError(
+            f"the ground truth{label} does not overlap the joint states in time (truth {ts[0] * 1e-9:.1f} to "
+            f"{ts[-1] * 1e-9:.1f} s, joints {st[0] * 1e-9:.1f} to {st[-1] * 1e-9:.1f} s); record both during "
+            "the same drive with the same clock.")
+    return CalibrationRun(name, st, dphi_l, dphi_r, np.asarray(travel.restart, dtype=bool),
+                          np.interp(tq, tb, tx), np.interp(tq, tb, ty), np.interp(tq, tb, tyaw), valid,
+                          truth.frame_id, settings)
+
+
+@dataclass
+class Segments:
+    """Consecutive non-overlapping segments of one run: sample ``start[s]`` to ``end[s]`` (indices)."""
+
+    start: np.ndarray
+    end: np.ndarray
+    length_m: float
+
+    def __len__(self) -> int:
+        return int(len(self.start))
+
+
+def _motion_measure(run: CalibrationRun) -> np.ndarray:
+    w = run.nominal.wheels
+    dl, dr = run.wheel_travel_m(w.left_radius, w.right_radius)
+    return np.cumsum(0.5 * (np.abs(dl) + np.abs(dr)))
+
+
+def make_segments(run: CalibrationRun, segment_length_m: float = 2.0) -> Segments:
+    """Cut the run into segments of ``segment_length_m`` mean wheel travel (nominal radii), each with
+    truth at both ends and no chain restart inside (a partial segment at the end is dropped)."""
+    m = _motion_measure(run)
+    n = len(m)
+    rc = np.cumsum(run.restart)
+    valid = run.truth_valid
+    valid_idx = np.flatnonzero(valid)
+    starts: list[int] = []
+    ends: list[int] = []
+
+    def next_valid(k: int) -> int:
+        p = np.searchsorted(valid_idx, k)
+        return int(valid_idx[p]) if p < len(valid_idx) else n
+
+    i = next_valid(0)
+    while i < n:
+        j = int(np.searchsorted(m, m[i] + segment_length_m, side="left"))
+        if j >= n:
+            break
+        if rc[j] != rc[i]:                          # a restart inside (i, j]: start again there
+            i = next_valid(int(np.searchsorted(rc, rc[i] + 1, side="left")))
+            continue
+        if not valid[j]:
+            i = next_valid(j)
+            continue
+        starts.append(i)
+        ends.append(j)
+        i = j
+    return Segments(np.asarray(starts, dtype=np.int64), np.asarray(ends, dtype=np.int64), float(segment_length_m))
+
+
+def _relative(x, y, th, i, j) -> np.ndarray:
+    """(S, 3) motion from pose i to pose j in the frame of pose i: rotation by -th_i of the displacement."""
+    dx, dy = x[j] - x[i], y[j] - y[i]
+    c, s = np.cos(th[i]), np.sin(th[i])
+    return np.column_stack([c * dx + s * dy, -s * dx + c * dy, th[j] - th[i]])
+
+
+def _integrate_run(run: CalibrationRun, geometry: Sequence[float], scheme: str):
+    rl, rr, b = geometry
+    dl, dr = run.wheel_travel_m(rl, rr)
+    ds, dth = body_increment(dl, dr, b)
+    return integrate(ds, dth, scheme)
+
+
+def segment_errors(run: CalibrationRun, seg: Segments, geometry: Sequence[float], scheme: str) -> np.ndarray:
+    """(S, 3) odometry-minus-truth relative motion per segment (dx, dy m in the start frame, dyaw rad)."""
+    x, y, th, _, _, _ = _integrate_run(run, geometry, scheme)
+    odo = _relative(x, y, th, seg.start, seg.end)
+    tru = _relative(run.truth_x_m, run.truth_y_m, run.truth_yaw_rad, seg.start, seg.end)
+    err = odo - tru
+    err[:, 2] = wrap_angle(err[:, 2])
+    return err
+
+
+def _noise_basis_params(model: str) -> list[dict]:
+    if model == "per_wheel":
+        return [dict(k_left=1.0, k_right=0.0, alphas=(0, 0, 0, 0)), dict(k_left=0.0, k_right=1.0, alphas=(0, 0, 0, 0))]
+    return [dict(k_left=0.0, k_right=0.0, alphas=tuple(float(a == b) for b in range(4))) for a in range(4)]
+
+
+def segment_covariance_basis(run: CalibrationRun, seg: Segments, geometry: Sequence[float], scheme: str,
+                             model: str) -> np.ndarray:
+    """(S, A, 3, 3) covariance of each segment's relative motion per unit of each noise parameter.
+
+    The covariance is propagated from zero at the segment start with the core's closed form and
+    rotated into the start pose's frame; for the true parameters theta the segment covariance is
+    sum_a theta_a basis[:, a] (Q is linear in k_left, k_right and in alpha1..alpha4).
+    """
+    rl, rr, b = geometry
+    dl, dr = run.wheel_travel_m(rl, rr)
+    x, y, th, th_before, _, _ = _integrate_run(run, geometry, scheme)
+    params = _noise_basis_params(model)
+    qs = [increment_noise(th_before, dl, dr, b, scheme, model, p["k_left"], p["k_right"], p["alphas"])[0]
+          for p in params]
+    c, sn = np.cos(th[seg.start]), np.sin(th[seg.start])
+    rot = np.zeros((len(seg), 3, 3))
+    rot[:, 0, 0] = rot[:, 1, 1] = c
+    rot[:, 0, 1], rot[:, 1, 0] = sn, -sn
+    rot[:, 2, 2] = 1.0
+    out = np.zeros((len(seg), len(params), 3, 3))
+    for a, q in enumerate(qs):
+        p = segment_propagate(x, y, q, seg.start, seg.end)
+        out[:, a] = rot @ p @ np.swapaxes(rot, 1, 2)
+    return out
+
+
+def segment_propagate(x_m: np.ndarray, y_m: np.ndarray, q: np.ndarray, start: np.ndarray,
+                      end: np.ndarray) -> np.ndarray:
+    """(S, 3, 3) covariance at pose ``end[s]`` propagated from zero at pose ``start[s]`` (odom frame).
+
+    The same closed form as ``wheel_dr.core.noise.propagate_covariance`` (the product of the step
+    Jacobians from step k to pose j is I + (a_j - a_k) e3^T with a = (-y, x, 0)), expanded into
+    cumulative sums over the whole run so that every segment costs a difference of two sums:
+    P = sum_{k in (i, j]} Q_k + (a_j - a_k) q_k^T + q_k (a_j - a_k)^T + s_k (a_j - a_k)(a_j - a_k)^T
+    with q_k = Q_k e3 and s_k = Q_k[2, 2]. Positions are taken about their mean to limit round-off.
+    """
+    x = np.asarray(x_m, dtype=np.float64)
+    y = np.asarray(y_m, dtype=np.float64)
+    a = np.zeros((len(x), 3))
+    a[:, 0] = -(y - y.mean())
+    a[:, 1] = x - x.mean()
+    qc = q[:, :, 2]
+    ss = q[:, 2, 2]
+
+    def csum(v: np.ndarray) -> np.ndarray:
+        return np.concatenate((np.zeros((1,) + v.shape[1:]), np.cumsum(v, axis=0)))
+
+    def seg_sum(v: np.ndarray) -> np.ndarray:
+        c = csum(v)
+        return c[end + 1] - c[start + 1]          # steps start+1 .. end
+
+    s_q = seg_sum(q)
+    s_qc = seg_sum(qc)
+    s_s = seg_sum(ss)
+    s_sa = seg_sum(ss[:, None] * a)
+    s_aq = seg_sum(a[:, :, None] * qc[:, None, :])
+    s_saa = seg_sum(ss[:, None, None] * a[:, :, None] * a[:, None, :])
+    aj = a[end]
+    p = (s_q + aj[:, :, None] * s_qc[:, None, :] - s_aq + s_qc[:, :, None] * aj[:, None, :]
+         - np.swapaxes(s_aq, 1, 2) + s_s[:, None, None] * aj[:, :, None] * aj[:, None, :]
+         - aj[:, :, None] * s_sa[:, None, :] - s_sa[:, :, None] * aj[:, None, :] + s_saa)
+    return 0.5 * (p + np.swapaxes(p, 1, 2))
+
+
+def noise_vector(settings: Settings, model: str | None = None) -> np.ndarray:
+    """The noise parameters of ``model`` (default the settings' own) as a vector."""
+    n = settings.noise
+    model = model or n.model
+    return np.array([n.k_left, n.k_right]) if model == "per_wheel" else np.array(n.alphas, dtype=np.float64)
+
+
+def noise_values(model: str, theta: np.ndarray) -> dict[str, object]:
+    """Dotted-name values of a noise parameter vector."""
+    if model == "per_wheel":
+        return {"noise.k_left": float(theta[0]), "noise.k_right": float(theta[1])}
+    return {"noise.alphas": tuple(float(v) for v in theta)}
+
+
+def geometry_of(settings: Settings) -> np.ndarray:
+    """(left radius m, right radius m, track m) of the settings."""
+    w = settings.wheels
+    return np.array([w.left_radius, w.right_radius, w.track_width])
+
+
+def _combine(basis: np.ndarray, theta: np.ndarray, extra: np.ndarray | None = None) -> np.ndarray:
+    cov = np.einsum("sa,sakl->skl", np.broadcast_to(theta, basis.shape[:2]), basis)
+    if extra is not None:
+        cov = cov + extra
+    scale = np.maximum(np.trace(cov, axis1=1, axis2=2) / 3.0, 0.0)
+    return cov + (_MIN_VARIANCE + 1e-12 * scale)[:, None, None] * np.eye(3)
+
+
+def _nees(err: np.ndarray, cov: np.ndarray) -> np.ndarray:
+    return np.einsum("si,si->s", err, np.linalg.solve(cov, err[:, :, None])[:, :, 0])
+
+
+def mean_nees_interval(n: int, dof: int = 3, prob: float = 0.95) -> tuple[float, float]:
+    """Two-sided interval of the mean of n chi-square(dof) NEES values (Bar-Shalom et al. 2001, sec. 5.4;
+    quantiles from scipy.stats.chi2)."""
+    a = 0.5 * (1.0 - prob)
+    return float(stats.chi2.ppf(a, dof * n) / n), float(stats.chi2.ppf(1.0 - a, dof * n) / n)
+
+
+# ------------------------------------------------------------------------------------------------
+# systematic fit
+# ------------------------------------------------------------------------------------------------
+@dataclass
+class SystematicFit:
+    """Fitted geometry (left radius m, right radius m, track m), standard errors, Jacobian figures."""
+
+    geometry: np.ndarray
+    std_error: np.ndarray
+    residual_variance: float
+    condition: float            # condition number of the column-normalised whitened Jacobian
+    singular_values: np.ndarray  # of the Jacobian in relative units (per unit relative change)
+    n_residuals: int
+    cost: float
+    success: bool
+
+    @property
+    def relative_std_error(self) -> np.ndarray:
+        """Standard errors over the values (dimensionless)."""
+        return self.std_error / self.geometry
+
+
+def _whiteners(covs: Sequence[np.ndarray]) -> list[np.ndarray]:
+    out = []
+    for c in covs:
+        chol = np.linalg.cholesky(c)
+        out.append(np.linalg.inv(chol))
+    return out
+
+
+def fit_systematic(runs: Sequence[CalibrationRun], segs: Sequence[Segments], start_geometry: Sequence[float],
+                   scheme: str, covs: Sequence[np.ndarray], masks: Sequence[np.ndarray] | None = None) -> SystematicFit:
+    """Least squares of (r_left, r_right, b) on whitened segment errors (``covs`` (S, 3, 3) per run,
+    held fixed), parametrised as relative corrections to ``start_geometry``."""
+    g0 = np.asarray(start_geometry, dtype=np.float64)
+    masks = list(masks) if masks is not None else [np.ones(len(s), dtype=bool) for s in segs]
+    whites = []
+    for c, mk in zip(covs, masks):
+        sel = c[mk]
+        whites.append(np.stack(_whiteners(sel)) if len(sel) else np.zeros((0, 3, 3)))
+    kept = [Segments(s.start[mk], s.end[mk], s.length_m) for s, mk in zip(segs, masks)]
+
+    def residuals(u: np.ndarray) -> np.ndarray:
+        g = g0 * (1.0 + u)
+        parts = []
+        for run, sg, wt in zip(runs, kept, whites):
+            if len(sg) == 0:
+                continue
+            e = segment_errors(run, sg, g, scheme)
+            parts.append(np.einsum("skl,sl->sk", wt, e).ravel())
+        return np.concatenate(parts)
+
+    res = optimize.least_squares(residuals, np.zeros(3), method="trf", diff_step=1e-7, x_scale=1e-3,
+                                 xtol=1e-12, ftol=1e-12, gtol=1e-12, max_nfev=200)
+    jac = res.jac
+    m = len(res.fun)
+    dof = max(m - 3, 1)
+    s2 = float(2.0 * res.cost / dof)
+    sv = np.linalg.svd(jac, compute_uv=False)
+    norms = np.linalg.norm(jac, axis=0)
+    svn = np.linalg.svd(jac / np.where(norms > 0, norms, 1.0), compute_uv=False)
+    cond = float(svn[0] / svn[-1]) if svn[-1] > 0 else math.inf
+    try:
+        cov_u = s2 * np.linalg.inv(jac.T @ jac)
+        se_u = np.sqrt(np.maximum(np.diag(cov_u), 0.0))
+    except np.linalg.LinAlgError:
+        se_u = np.full(3, math.inf)
+    g = g0 * (1.0 + res.x)
+    return SystematicFit(g, np.abs(g0) * se_u, s2, cond, sv, m, float(res.cost), bool(res.success))
+
+
+# ------------------------------------------------------------------------------------------------
+# noise fit
+# ------------------------------------------------------------------------------------------------
+@dataclass
+class NoiseFit:
+    """Maximum-likelihood noise parameters of ``model`` with standard errors (from the Fisher information)."""
+
+    model: str
+    theta: np.ndarray
+    std_error: np.ndarray
+    nees_mean: float
+    n_segments: int
+    success: bool
+
+
+def fit_noise(errs: np.ndarray, basis: np.ndarray, model: str, start: np.ndarray | None = None,
+              extra_cov: np.ndarray | None = None) -> NoiseFit:
+    """Maximise the Gaussian likelihood of segment errors ``errs`` (S, 3) with covariance
+    sum_a theta_a basis[:, a] (+ ``extra_cov``): minimise sum_s log det P_s + e_s^T P_s^-1 e_s over
+    theta >= 0 (optimised in log theta, analytic gradient)."""
+    s, a = basis.shape[:2]
+    if s == 0:
+        raise ExcitationError("no segment is left to fit the noise on; drive longer with ground truth recorded.")
+    # a common scale first: for P = c P0 the likelihood is maximal at c = mean(e^T P0^-1 e) / 3
+    th0 = np.ones(a) if start is None else np.maximum(np.asarray(start, dtype=np.float64), 0.0)
+    if not np.any(th0 > 0):
+        th0 = np.ones(a)
+    th0 = np.where(th0 > 0, th0, th0[th0 > 0].min() * 1e-2)
+    c = float(np.mean(_nees(errs, _combine(basis, th0, extra_cov)))) / 3.0
+    th0 = th0 * max(c, 1e-30)
+    lo = np.log(np.maximum(th0 * 1e-8, 1e-30))
+    hi = np.log(np.maximum(th0 * 1e8, 1e-20))
+    hi = np.minimum(hi, math.log(10.0))
+    u0 = np.clip(np.log(th0), lo, hi)
+
+    def nll(u: np.ndarray):
+        th = np.exp(u)
+        cov = _combine(basis, th, extra_cov)
+        inv = np.linalg.inv(cov)
+        sign, logdet = np.linalg.slogdet(cov)
+        w = np.einsum("skl,sl->sk", inv, errs)
+        val = float(np.sum(logdet) + np.einsum("si,si->", errs, w))
+        # d/dtheta_a = sum tr(P^-1 B_a) - w^T B_a w
+        g_th = np.einsum("skl,salk->a", inv, basis) - np.einsum("sk,sakl,sl->a", w, basis, w)
+        return val, g_th * th
+
+    res = optimize.minimize(nll, u0, jac=True, method="L-BFGS-B", bounds=list(zip(lo, hi)),
+                            options=dict(maxiter=500, ftol=1e-14, gtol=1e-10))
+    th = np.exp(res.x)
+    cov = _combine(basis, th, extra_cov)
+    inv = np.linalg.inv(cov)
+    ib = np.einsum("skl,salm->sakm", inv, basis)
+    fisher = 0.5 * np.einsum("sakm,sbmk->ab", ib, ib)
+    try:
+        se = np.sqrt(np.maximum(np.diag(np.linalg.inv(fisher)), 0.0))
+    except np.linalg.LinAlgError:
+        se = np.full(a, math.inf)
+    return NoiseFit(model, th, se, float(np.mean(_nees(errs, cov))), s, bool(res.success))
+
+
+# ------------------------------------------------------------------------------------------------
+# excitation
+# ------------------------------------------------------------------------------------------------
+@dataclass
+class Excitation:
+    """What the drive contains (nominal geometry) and whether it suffices; ``advice`` says what to drive."""
+
+    travel_m: float
+    straight_m: float
+    left_turn_rad: float
+    right_turn_rad: float
+    n_segments: int
+    condition: float
+    ok: bool
+    problems: list[str]
+    advice: list[str]
+
+    def message(self) -> str:
+        """One sentence: what is wrong and what to drive."""
+        return (f"the drive does not excite the wheel radii and track enough ({'; '.join(self.problems)}); "
+                f"{'; '.join(self.advice)}, then calibrate again.")
+
+
+WINDOW_M = 0.25           # windows of mean wheel travel over which turns and straight runs are counted
+STRAIGHT_RAD_PER_M = 0.05  # a window turning less than this per metre of travel counts as straight
+
+
+def excitation(runs: Sequence[CalibrationRun], segs: Sequence[Segments], condition: float = math.nan,
+               min_travel_m: float = 30.0, min_segments: int = 15, min_straight_m: float = 10.0,
+               min_turn_rad: float = 2.0 * math.pi, max_condition: float = 200.0) -> Excitation:
+    """Turns each way, straight distance and segment count of the drive, against these minima
+    (common practice: straight runs fix the mean radius and the radius ratio, turns both ways fix
+    the track and separate it from the radius ratio; the numbers are this project's choice)."""
+    travel = straight = left = right = 0.0
+    for run in runs:
+        w = run.nominal.wheels
+        dl, dr = run.wheel_travel_m(w.left_radius, w.right_radius)
+        ok = ~run.restart
+        m = np.cumsum(np.where(ok, 0.5 * (np.abs(dl) + np.abs(dr)), 0.0))
+        th = np.cumsum(np.where(ok, (dr - dl) / w.track_width, 0.0))
+        fwd = np.cumsum(np.where(ok, 0.5 * (dr + dl), 0.0))
+        if len(m) == 0:
+            continue
+        travel += float(m[-1])
+        edges = np.searchsorted(m, np.arange(0.0, m[-1] + WINDOW_M, WINDOW_M))
+        edges = np.unique(np.clip(edges, 0, len(m) - 1))
+        dth = np.diff(th[edges])
+        dfw = np.abs(np.diff(fwd[edges]))
+        left += float(dth[dth > 0].sum())
+        right += float(-dth[dth < 0].sum())
+        straight += float(dfw[np.abs(dth) < STRAIGHT_RAD_PER_M * np.maximum(dfw, 1e-9)].sum())
+    n_seg = int(sum(len(s) for s in segs))
+    problems: list[str] = []
+    advice: list[str] = []
+    short = travel < min_travel_m or n_seg < min_segments
+    if short:
+        problems.append(f"only {travel:.1f} m of wheel travel in {n_seg} usable segments with truth")
+        advice.append(f"drive at least {min_travel_m:.0f} m with ground truth recorded")
+    if straight < min_straight_m:
+        problems.append(f"only {straight:.1f} m of straight driving")
+        advice.append(f"add straight runs of a few metres, {min_straight_m:.0f} m in total")
+    for side, amount in (("left", left), ("right", right)):
+        if amount < min_turn_rad:
+            problems.append(f"only {math.degrees(amount):.0f} deg of {side} turns")
+            advice.append(f"turn {side} (on the spot and on arcs) at least {math.degrees(min_turn_rad):.0f} deg "
+                          "in total")
+    ill = not (condition <= max_condition)
+    if ill and math.isfinite(condition):
+        problems.append(f"the radii and the track cannot be told apart (condition number {condition:.0f})")
+    elif ill and not math.isnan(condition):
+        problems.append("the radii and the track cannot be told apart")
+    if ill and not math.isnan(condition) and not advice:
+        advice.append("mix straight runs, arcs of different radii and turns on the spot both ways")
+    ok = not short and not (ill and not math.isnan(condition))
+    return Excitation(travel, straight, left, right, n_seg, condition, ok, problems, advice)
+
+
+# ------------------------------------------------------------------------------------------------
+# figures and the whole calibration
+# ------------------------------------------------------------------------------------------------
+@dataclass
+class RunFigures:
+    """Before/after figures of one run: ATE (m, whole run started on the truth, aligned by Umeyama SE(2)),
+    drift % (sum of segment translation errors over the segments' true path length) and NEES."""
+
+    name: str
+    ate_m: float
+    drift_pct: float
+    nees_mean: float
+    nees_lo: float
+    nees_hi: float
+    n_segments: int
+
+    @property
+    def nees_inside(self) -> bool:
+        """Mean NEES inside its chi-square 95 % interval."""
+        return self.nees_lo <= self.nees_mean <= self.nees_hi
+
+
+def _aligned_rmse(src: np.ndarray, dst: np.ndarray) -> float:
+    """RMS of dst - (R src + t) after the least-squares rotation and translation (Umeyama 1991, no scale)."""
+    mu_s, mu_d = src.mean(axis=0), dst.mean(axis=0)
+    sigma = (dst - mu_d).T @ (src - mu_s) / len(src)
+    u, _, vt = np.linalg.svd(sigma)
+    d = np.diag([1.0, float(np.sign(np.linalg.det(u) * np.linalg.det(vt)) or 1.0)])
+    rot = u @ d @ vt
+    res = dst - (src @ rot.T + (mu_d - rot @ mu_s))
+    return float(np.sqrt(np.mean(np.sum(res * res, axis=1))))
+
+
+def run_figures(run: CalibrationRun, settings: Settings, segment_length_m: float = 2.0,
+                seg: Segments | None = None) -> RunFigures:
+    """ATE, drift % and mean segment NEES of ``run`` under ``settings`` (geometry, scheme, noise)."""
+    seg = seg if seg is not None else make_segments(run, segment_length_m)
+    g = geometry_of(settings)
+    scheme = settings.integration
+    x, y, th, _, _, _ = _integrate_run(run, g, scheme)
+    v = run.truth_valid
+    ate = _aligned_rmse(np.column_stack([x[v], y[v]]), np.column_stack([run.truth_x_m[v], run.truth_y_m[v]])) \
+        if v.sum() >= 2 else math.nan
+    if len(seg) == 0:
+        return RunFigures(run.name, ate, math.nan, math.nan, math.nan, math.nan, 0)
+    err = segment_errors(run, seg, g, scheme)
+    step = np.hypot(np.diff(run.truth_x_m), np.diff(run.truth_y_m))
+    cum = np.concatenate(([0.0], np.cumsum(np.where(np.isfinite(step), step, 0.0))))
+    length = float(np.sum(cum[seg.end] - cum[seg.start]))
+    drift = 100.0 * float(np.sum(np.hypot(err[:, 0], err[:, 1]))) / length if length > 0 else math.nan
+    basis = segment_covariance_basis(run, seg, g, scheme, settings.noise.model)
+    nees = _nees(err, _combine(basis, noise_vector(settings)))
+    lo, hi = mean_nees_interval(len(seg))
+    return RunFigures(run.name, ate, drift, float(np.mean(nees)), lo, hi, len(seg))
+
+
+@dataclass
+class CalibrationResult:
+    """Everything ``calibrate`` found: tuned settings, the changed values and how well they are known."""
+
+    before: Settings
+    after: Settings
+    values: dict[str, object]
+    systematic: SystematicFit | None
+    noise: NoiseFit | None
+    excitation: Excitation
+    n_segments: int
+    n_outliers: int
+    notes: list[str]
+    figures_before: list[RunFigures]
+    figures_after: list[RunFigures]
+    holdout_before: list[RunFigures] = field(default_factory=list)
+    holdout_after: list[RunFigures] = field(default_factory=list)
+    segment_length_m: float = 2.0
+
+
+def calibrate(runs: Sequence[CalibrationRun], settings: Settings, *, segment_length_m: float = 2.0,
+              noise_segment_m: float = 0.2, fit_geometry: bool = True, fit_noise_params: bool = True,
+              noise_model: str | None = None, holdout: Sequence[CalibrationRun] = (), iterations: int = 4,
+              reject_outliers: bool = True) -> CalibrationResult:
+    """Fit the geometry (least squares) then the noise (maximum likelihood) jointly over ``runs``.
+
+    The geometry is fitted on segments of ``segment_length_m``, the noise on shorter segments of
+    ``noise_segment_m`` (more independent samples: the noise fit's precision grows with their
+    number); figures (ATE, drift, NEES) use ``segment_length_m``. Raises ExcitationError when the
+    drive cannot determine the geometry (the message says what to drive) and
+    TruthError/CalibrationError for unusable input.
+    """
+    if not runs:
+        raise CalibrationError("no recording to calibrate on; give at least one bag.")
+    model = noise_model or settings.noise.model
+    scheme = settings.integration
+    segs = [make_segments(r, segment_length_m) for r in runs]
+    nsegs = [make_segments(r, noise_segment_m) for r in runs]
+    notes: list[str] = []
+    frames = sorted({r.truth_frame for r in runs if r.truth_frame})
+    odom = settings.frames.odom
+    if any(f != odom for f in frames):
+        notes.append(f"truth is in frame {', '.join(repr(f) for f in frames)}, not '{odom}': only segment-relative "
+                     "motion is compared, which does not depend on that frame's offset.")
+    pre = excitation(runs, segs)
+    if not pre.ok or sum(len(s) for s in segs) < 3:
+        raise ExcitationError(pre.message())
+
+    geometry = geometry_of(settings)
+    theta = noise_vector(settings, model)
+    if not np.any(theta > 0):
+        theta = np.ones_like(theta)
+    masks = [np.ones(len(s), dtype=bool) for s in segs]
+    nmasks = [np.ones(len(s), dtype=bool) for s in nsegs]
+    gate = float(stats.chi2.ppf(OUTLIER_QUANTILE, 3))
+    sysfit: SystematicFit | None = None
+    nfit: NoiseFit | None = None
+    for it in range(max(1, iterations)):
+        if fit_geometry:
+            covs = [_combine(segment_covariance_basis(r, s, geometry, scheme, model), theta)
+                    for r, s in zip(runs, segs)]
+            sysfit = fit_systematic(runs, segs, geometry, scheme, covs, masks)
+            geometry = sysfit.geometry
+        nbases = [segment_covariance_basis(r, s, geometry, scheme, model) for r, s in zip(runs, nsegs)]
+        nerrs = [segment_errors(r, s, geometry, scheme) for r, s in zip(runs, nsegs)]
+        if fit_noise_params:
+            e_all = np.concatenate([e[m] for e, m in zip(nerrs, nmasks)])
+            b_all = np.concatenate([b[m] for b, m in zip(nbases, nmasks)])
+            nfit = fit_noise(e_all, b_all, model, start=theta)
+            theta = nfit.theta
+        if not reject_outliers:
+            if it > 0:
+                break
+            continue
+        new_n = [_nees(e, _combine(b, theta)) <= gate for e, b in zip(nerrs, nbases)]
+        gerrs = [segment_errors(r, s, geometry, scheme) for r, s in zip(runs, segs)]
+        gbases = [segment_covariance_basis(r, s, geometry, scheme, model) for r, s in zip(runs, segs)]
+        new_g = [_nees(e, _combine(b, theta)) <= gate for e, b in zip(gerrs, gbases)]
+        changed = any(np.any(x != y) for x, y in zip(new_n + new_g, nmasks + masks))
+        nmasks, masks = new_n, new_g
+        if not changed and it > 0:
+            break
+    n_out = int(sum((~m).sum() for m in masks))
+    exc = excitation(runs, segs, sysfit.condition if sysfit is not None else math.nan)
+    if fit_geometry and not exc.ok:
+        raise ExcitationError(exc.message())
+    if n_out:
+        notes.append(f"{n_out} of {sum(len(s) for s in segs)} segments were set aside as outliers (NEES beyond the "
+                     "chi-square 99.9 % quantile: slip or truth glitches).")
+    values: dict[str, object] = {}
+    if fit_geometry:
+        values.update({k: float(v) for k, v in zip(GEOMETRY_NAMES, geometry)})
+    if fit_noise_params:
+        if model != settings.noise.model:
+            values["noise.model"] = model
+        values.update(noise_values(model, theta))
+    after = settings.with_values(values)
+    fb = [run_figures(r, settings, segment_length_m, s) for r, s in zip(runs, segs)]
+    fa = [run_figures(r, after, segment_length_m, s) for r, s in zip(runs, segs)]
+    hb = [run_figures(r, settings, segment_length_m) for r in holdout]
+    ha = [run_figures(r, after, segment_length_m) for r in holdout]
+    return CalibrationResult(settings, after, values, sysfit, nfit, exc, int(sum(len(s) for s in segs)), n_out,
+                             notes, fb, fa, hb, ha, segment_length_m)
