@@ -18,7 +18,7 @@ import numpy as np
 from .motion import body_increment, integrate, pose_increment_scalar, wrap_angle, wrap_angle_scalar
 from .noise import UNOBSERVED_VARIANCE, increment_noise, increment_noise_scalar, propagate_covariance, propagate_step
 from .settings import Settings
-from .slip import SlipMonitor, SlipResult, detect_slip
+from .slip import SlipMonitor, SlipResult, SlipStep, detect_slip
 from .wheels import JointSamples, SampleStatus, Travel, TravelTracker, count_statuses, wheel_travel
 
 __all__ = ["Trajectory", "run", "run_travel", "Estimator"]
@@ -110,7 +110,7 @@ class Estimator:
         self._tracker = TravelTracker(settings)
         self._slip = SlipMonitor(settings)
         self.counters: dict[str, int] = {s.name.lower(): 0 for s in SampleStatus}
-        self.last_slip = None
+        self.last_slip = SlipStep()  # slip outcome of the last accepted sample (none yet: all clear)
         self.reset(start_pose, start_cov)
 
     # -- state ---------------------------------------------------------------------------------

@@ -196,6 +196,43 @@ class SlipSettings:
     response: str = _p("flag", "What a detected slip does: 'flag' only, 'inflate' the covariance, or "
                        "'gyro' (take the gyro's yaw increment while slipping).",
                        choices=("flag", "inflate", "gyro"))
+    window_s: float = _p(0.1, "Sliding window over which wheel speeds and heading changes are compared "
+                         "(smooths encoder and timing noise).", "s", 0.0, 5.0, lo_open=True)
+    set_delay_s: float = _p(0.02, "Debounce: a detector's score must stay above 1 this long before its flag "
+                            "sets.", "s", 0.0, 10.0)
+    clear_delay_s: float = _p(0.1, "A detector's score must stay below slip.clear_fraction this long before "
+                              "its flag clears.", "s", 0.0, 10.0)
+    clear_fraction: float = _p(0.5, "Hysteresis: fraction of the threshold below which a detector counts as "
+                               "clear (between it and 1 the flag keeps its state).", "", 0.0, 1.0,
+                               lo_open=True, hi_open=True)
+    gyro_gate: float = _p(10.83, "Chi-square gate (1 degree of freedom) on the gyro-versus-wheels heading "
+                          "difference; 10.83 is the 99.9 % quantile.", "", 0.0, 1e6, lo_open=True)
+    gyro_noise_radps: float = _p(0.01, "Standard deviation of one gyro z-rate reading (white noise).", "rad/s",
+                                 0.0, 10.0, lo_open=True)
+    gyro_rate_tolerance_radps: float = _p(0.05, "Extra standard deviation of the gyro-wheel yaw-rate "
+                                          "difference for timing and mounting effects (common practice).",
+                                          "rad/s", 0.0, 10.0)
+    gyro_scale_tolerance: float = _p(0.05, "Extra standard deviation of the heading difference as a fraction "
+                                     "of the wheels' heading change (gyro scale, track width error).", "",
+                                     0.0, 1.0)
+    gyro_bias_radps: float = _p(0.0, "Gyro z bias assumed until the base has stood still long enough to "
+                                "estimate it.", "rad/s", -1.0, 1.0)
+    gyro_bias_samples: int = _p(500, "The gyro bias is the mean z rate over this many most recent "
+                                "standing-still samples.", "samples", 1, 10000000)
+    still_speed_mps: float = _p(0.005, "Both wheel speeds below this count as standing still (gyro bias "
+                                "estimation).", "m/s", 0.0, 1.0)
+    traction_mu: float = _p(0.5, "Friction coefficient for the traction check: a wheel accelerating faster "
+                            "than mu g is slipping or glitching (rubber on dry indoor floors about 0.5 to "
+                            "0.9, common practice).", "", 0.0, 5.0, lo_open=True)
+    same_side_ratio: float = _p(0.25, "Wheels of one side whose speeds spread by more than this fraction of "
+                                "the side's mean speed disagree (slip ratio, common practice).", "", 0.0, 10.0,
+                                lo_open=True)
+    same_side_min_speed_mps: float = _p(0.1, "Side speeds below this count as this speed in the same-side "
+                                        "ratio (keeps slow motion from firing).", "m/s", 0.0, 10.0,
+                                        lo_open=True)
+    inflate_factor: float = _p(100.0, "Factor on the step noise (and twist covariance) of flagged samples "
+                               "for the 'inflate' response, and in 'gyro' for samples without a gyro "
+                               "reading.", "", 1.0, 1e9)
 
 
 @dataclass(frozen=True)

@@ -1,39 +1,107 @@
-"""Slip and encoder-fault detection on wheel increments (placeholder: no detector yet, never flags).
+"""Slip and wheel-fault detection on wheel increments: three detectors, debounce, hysteresis, responses.
 
-Interface used by the estimator (batch and streaming forms must agree):
+Interface used by the estimator (the two forms are tested equal, sample by sample):
 
-* ``detect_slip(travel, gyro_z_radps, settings) -> SlipResult`` (gyro per accepted sample or None)
+* ``detect_slip(travel, gyro_z_radps, settings) -> SlipResult`` over a whole run, vectorised
+  (gyro per accepted sample, NaN where no IMU reading is available, or None);
 * ``SlipMonitor(settings).step(tracker, status, dt_s, ds_left_m, ds_right_m, gyro_z_radps) -> SlipStep``
-  (``tracker.joint_travel_m`` holds the per-joint travel of the step)
+  one accepted sample at a time (``tracker.joint_travel_m`` holds the per-joint travel of the step).
+
+Wheel speeds and heading changes are compared over a sliding time window of ``slip.window_s``
+(the samples with stamp in (t - window, t]); a window that contains a chain restart (first sample,
+gap, encoder jump) is not evaluated. Every detector turns its statistic into a score ``z``
+(1 at its threshold) and runs its own latch: the flag sets once ``z > 1`` has held for
+``slip.set_delay_s`` (debounce) and clears once ``z < slip.clear_fraction`` has held for
+``slip.clear_delay_s`` (hysteresis); in between it keeps its state. Samples a detector cannot
+evaluate count as clear.
+
+Detectors (bits of ``detector``):
+
+* ``DETECTOR_GYRO`` (1), gyro against wheels: the wheels' heading change over the window,
+  sum (ds_r - ds_l) / b, against the gyro's, sum (w_z - bias) dt. Their difference d is gated by a
+  chi-square test with one degree of freedom (Bar-Shalom, Li & Kirubarajan 2001, sec. 5.4, the
+  gate on an innovation): ``z = |d| / sqrt(gate * var)`` with
+  ``var = sum C[1,1] + sigma_g^2 sum dt^2 + (tol_w T)^2 + (tol_s dtheta_wheels)^2``, where C[1,1]
+  is the heading-increment variance of the core's noise model (``noise.increment_noise``),
+  sigma_g is ``slip.gyro_noise_radps``, tol_w ``slip.gyro_rate_tolerance_radps`` (timing and
+  mounting, common practice) and tol_s ``slip.gyro_scale_tolerance`` (gyro scale and wheel
+  calibration, common practice). The gyro bias is the mean z rate over the last
+  ``slip.gyro_bias_samples`` samples at which the base stood still (both wheel speeds below
+  ``slip.still_speed_mps``), ``slip.gyro_bias_radps`` until ``BIAS_MIN_SAMPLES`` such samples.
+  This is the disagreement test of gyrodometry (Borenstein & Feng, ICRA 1996) with a
+  statistical threshold. The side is the hypothesis that best keeps the base speed seen before
+  the discrepancy: if the right wheel slips, the true speed is v_l + w_gyro b / 2; if the left,
+  v_r - w_gyro b / 2.
+* ``DETECTOR_TRACTION`` (2), traction plausibility: a wheel's surface acceleration (difference of
+  window-mean speeds one window apart) beyond ``slip.traction_mu`` times standard gravity
+  cannot come from rolling contact (common practice: a wheel cannot accelerate the base faster
+  than about mu g). Catches the onset of spinning and of dragging; runs without an IMU.
+* ``DETECTOR_SAME_SIDE`` (4), where a side has two or more joints: the spread of their window
+  speeds over the side's mean speed (a slip ratio, common practice), against
+  ``slip.same_side_ratio`` (speeds below ``slip.same_side_min_speed_mps`` count as that speed).
+
+Responses (``slip.response``): ``flag`` changes nothing; ``inflate`` multiplies the step noise Q
+(and the twist covariance) of every flagged sample by ``slip.inflate_factor``; ``gyro``
+replaces the heading increment of every flagged sample that has a gyro reading by the
+bias-corrected gyro increment (w_z - bias) dt (gyrodometry, Borenstein & Feng 1996), and
+inflates flagged samples without one. ``score`` is the largest detector score of the sample.
+
+Slip flags are advisory inputs to navigation, not a safety function: never use them in place of a
+safety-rated stop; defer to local codes and the machine's safety assessment.
 """
 from __future__ import annotations
 
+import math
+from collections import deque
 from dataclasses import dataclass
 
 import numpy as np
 
+from .noise import motion_model_parts, motion_model_variances
 from .settings import Settings
 from .wheels import SampleStatus, Travel, TravelTracker
 
-__all__ = ["SlipResult", "SlipStep", "detect_slip", "SlipMonitor"]
+__all__ = [
+    "SlipResult",
+    "SlipStep",
+    "detect_slip",
+    "SlipMonitor",
+    "heading_increment_variance",
+    "latch",
+    "DETECTOR_GYRO",
+    "DETECTOR_TRACTION",
+    "DETECTOR_SAME_SIDE",
+    "DETECTOR_NAMES",
+    "STANDARD_GRAVITY_MPS2",
+    "BIAS_MIN_SAMPLES",
+]
+
+DETECTOR_GYRO = 1        # gyro z rate disagrees with the wheels' yaw rate (chi-square gate)
+DETECTOR_TRACTION = 2    # a wheel accelerates faster than traction allows (mu g)
+DETECTOR_SAME_SIDE = 4   # wheels of one side disagree (sides with two or more joints)
+DETECTOR_NAMES = {DETECTOR_GYRO: "gyro", DETECTOR_TRACTION: "traction", DETECTOR_SAME_SIDE: "same_side"}
+
+STANDARD_GRAVITY_MPS2 = 9.80665  # standard acceleration of gravity (3rd CGPM, 1901)
+BIAS_MIN_SAMPLES = 10            # standing-still samples needed before the gyro bias estimate is used
 
 
 @dataclass
 class SlipResult:
-    """Per accepted sample: flags, score, and what the response changes."""
+    """Per accepted sample: flags, detectors, score, and what the response changes."""
 
     slip: np.ndarray           # (M,) bool, any side slipping
     left: np.ndarray           # (M,) bool
     right: np.ndarray          # (M,) bool
-    detector: np.ndarray       # (M,) int bit mask of the detectors that fired
-    score: np.ndarray          # (M,) float
-    dtheta_rad: np.ndarray | None = None   # replacement heading increments, or None
-    noise_scale: np.ndarray | None = None  # factor on the step noise Q, or None
+    detector: np.ndarray       # (M,) int bit mask of the detectors whose flag is set (DETECTOR_*)
+    score: np.ndarray          # (M,) float, largest detector score (1 = at its threshold)
+    dtheta_rad: np.ndarray | None = None   # heading increments to integrate (response 'gyro'), or None
+    noise_scale: np.ndarray | None = None  # factor on the step noise Q (responses 'inflate', 'gyro'), or None
+    gyro_bias_radps: np.ndarray | None = None  # gyro bias estimate in use at each sample, or None without gyro
 
 
 @dataclass
 class SlipStep:
-    """One sample's slip outcome (streaming)."""
+    """One sample's slip outcome (streaming); same meanings as ``SlipResult``."""
 
     slip: bool = False
     left: bool = False
@@ -42,25 +110,455 @@ class SlipStep:
     score: float = 0.0
     dtheta_rad: float | None = None
     noise_scale: float = 1.0
+    gyro_bias_radps: float | None = None
 
 
-def detect_slip(travel: "Travel", gyro_z_radps: np.ndarray | None, settings: Settings) -> SlipResult:
-    """Run the slip detectors over a whole run."""
-    m = len(travel.dt_s)
+# ------------------------------------------------------------------------------------------------
+# shared pieces
+# ------------------------------------------------------------------------------------------------
+class _Constants:
+    """Settings turned into the numbers both forms use (computed once, identically)."""
+
+    def __init__(self, settings: Settings) -> None:
+        s = settings.slip
+        w = settings.wheels
+        self.enabled = s.enabled
+        self.response = s.response
+        self.b = w.track_width
+        self.half_b = 0.5 * w.track_width
+        self.nl = len(w.left_joints)
+        self.nr = len(w.right_joints)
+        self.window_ns = int(round(s.window_s * 1e9))
+        self.set_ns = int(round(s.set_delay_s * 1e9))
+        self.clear_ns = int(round(s.clear_delay_s * 1e9))
+        self.clear_fraction = s.clear_fraction
+        self.gate = s.gyro_gate
+        self.gyro_var = s.gyro_noise_radps * s.gyro_noise_radps
+        self.rate_tol = s.gyro_rate_tolerance_radps
+        self.scale_tol = s.gyro_scale_tolerance
+        self.bias_prior = s.gyro_bias_radps
+        self.bias_samples = s.gyro_bias_samples
+        self.still = s.still_speed_mps
+        self.mu_g = s.traction_mu * STANDARD_GRAVITY_MPS2
+        self.ss_ratio = s.same_side_ratio
+        self.ss_min = s.same_side_min_speed_mps
+        self.inflate = s.inflate_factor
+        n = settings.noise
+        self.model = n.model
+        self.k_left = n.k_left
+        self.k_right = n.k_right
+        self.alphas = n.alphas
+        self.scheme = settings.integration
+
+
+def heading_increment_variance(ds_left_m: np.ndarray, ds_right_m: np.ndarray, settings: Settings) -> np.ndarray:
+    """Variance (rad^2) of each step's wheel heading increment: C[1,1] of ``noise.increment_noise``.
+
+    Same expressions as the core's noise models: per_wheel (k_r |ds_r| + k_l |ds_l|) / b^2
+    (Siegwart et al. 2011, sec. 5.2.4); motion_model var(rot1) + var(rot2) (Thrun et al. 2005,
+    sec. 5.4). Divided by dt^2 it is the variance of the wheels' yaw rate.
+    """
+    return _c11(np.asarray(ds_left_m, dtype=np.float64), np.asarray(ds_right_m, dtype=np.float64),
+                _Constants(settings))
+
+
+def _c11(dl: np.ndarray, dr: np.ndarray, k: _Constants) -> np.ndarray:
+    b = k.b
+    if k.model == "per_wheel":
+        return (k.k_right * np.abs(dr) + k.k_left * np.abs(dl)) / (b * b)
+    ds = 0.5 * (dr + dl)
+    dth = (dr - dl) / b
+    rot1, trans, rot2 = motion_model_parts(ds, dth, k.scheme)
+    var = motion_model_variances(rot1, trans, rot2, k.alphas)
+    return var[..., 0] + var[..., 2]
+
+
+def _held(cond: np.ndarray, stamp_ns: np.ndarray, delay_ns: int) -> np.ndarray:
+    """True where ``cond`` has been true for at least ``delay_ns`` (since the first sample of its run)."""
+    m = len(cond)
+    prev = np.concatenate(([False], cond[:-1]))
+    start = cond & ~prev
+    first = np.maximum.accumulate(np.where(start, np.arange(m), 0))
+    return cond & (stamp_ns - stamp_ns[first] >= delay_ns)
+
+
+def latch(score: np.ndarray, stamp_ns: np.ndarray, set_delay_ns: int, clear_delay_ns: int,
+          clear_fraction: float) -> np.ndarray:
+    """Debounced latch with hysteresis, vectorised: set after ``score > 1`` held ``set_delay_ns``,
+    cleared after ``score < clear_fraction`` held ``clear_delay_ns``, else the state is kept.
+
+    Set and clear events exclude each other, so the state is the kind of the latest event
+    (forward fill over run lengths), which equals stepping the state machine sample by sample.
+    """
+    m = len(score)
+    if m == 0:
+        return np.zeros(0, dtype=bool)
+    on = _held(score > 1.0, stamp_ns, set_delay_ns)
+    off = _held(score < clear_fraction, stamp_ns, clear_delay_ns)
+    last = np.maximum.accumulate(np.where(on | off, np.arange(m), -1))
+    return np.where(last >= 0, on[np.maximum(last, 0)], False)
+
+
+class _Latch:
+    """Streaming twin of ``latch``."""
+
+    __slots__ = ("state", "_set_since", "_clear_since", "_k")
+
+    def __init__(self, k: _Constants) -> None:
+        self._k = k
+        self.state = False
+        self._set_since: int | None = None
+        self._clear_since: int | None = None
+
+    def update(self, z: float, stamp_ns: int) -> bool:
+        k = self._k
+        is_set = z > 1.0
+        is_clear = z < k.clear_fraction
+        if is_set:
+            if self._set_since is None:
+                self._set_since = stamp_ns
+        else:
+            self._set_since = None
+        if is_clear:
+            if self._clear_since is None:
+                self._clear_since = stamp_ns
+        else:
+            self._clear_since = None
+        if is_set and stamp_ns - self._set_since >= k.set_ns:
+            self.state = True
+        elif is_clear and stamp_ns - self._clear_since >= k.clear_ns:
+            self.state = False
+        return self.state
+
+
+def _no_slip(m: int) -> SlipResult:
     no = np.zeros(m, dtype=bool)
     return SlipResult(no, no.copy(), no.copy(), np.zeros(m, dtype=np.int64), np.zeros(m))
 
 
+# ------------------------------------------------------------------------------------------------
+# batch
+# ------------------------------------------------------------------------------------------------
+def _cum(x: np.ndarray) -> np.ndarray:
+    """Running sum with a leading zero (sequential additions, as the streaming totals)."""
+    out = np.zeros((len(x) + 1,) + x.shape[1:], dtype=x.dtype)
+    np.cumsum(x, axis=0, out=out[1:])
+    return out
+
+
+def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Settings) -> SlipResult:
+    """Run the slip detectors over a whole run (one entry per accepted sample), vectorised.
+
+    ``gyro_z_radps`` (M,) is the IMU z rate (rad/s, base frame, REP 103) held at each accepted
+    sample, NaN where none is available, or None for no IMU. See the module docstring for the
+    detectors, their thresholds and the responses.
+    """
+    k = _Constants(settings)
+    m = len(travel.dt_s)
+    if not k.enabled or m == 0:
+        return _no_slip(m)
+    stamp = np.asarray(travel.stamp_ns, dtype=np.int64)
+    restart = np.asarray(travel.restart, dtype=bool)
+    dt = np.where(restart, 0.0, np.asarray(travel.dt_s, dtype=np.float64))
+    dl = np.asarray(travel.ds_left_m, dtype=np.float64)
+    dr = np.asarray(travel.ds_right_m, dtype=np.float64)
+    joints = travel.joint_travel_m
+    nl = k.nl
+    if joints is None or joints.shape[1] != k.nl + k.nr:
+        joints = np.column_stack([dl, dr])
+        nl = 1
+    joints = np.asarray(joints, dtype=np.float64)
+    nj = joints.shape[1]
+
+    # gyro and its bias (mean over the last N standing-still samples)
+    if gyro_z_radps is None:
+        avail = np.zeros(m, dtype=bool)
+        g = np.zeros(m)
+    else:
+        g = np.asarray(gyro_z_radps, dtype=np.float64)
+        avail = np.isfinite(g)
+        g = np.where(avail, g, 0.0)
+    still = avail & ~restart & (np.abs(dl) <= k.still * dt) & (np.abs(dr) <= k.still * dt)
+    still_total = _cum(g[still])
+    count = np.cumsum(still)
+    n_used = np.minimum(count, k.bias_samples)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        bias = np.where(count >= BIAS_MIN_SAMPLES,
+                        (still_total[count] - still_total[count - n_used]) / np.maximum(n_used, 1), k.bias_prior)
+    gi = np.where(avail, (g - bias) * dt, 0.0)          # bias-corrected gyro heading increment
+    dth = (dr - dl) / k.b                               # wheel heading increment (as body_increment)
+    c11 = _c11(dl, dr, k)
+
+    # sliding windows (stamp_i in (t_k - window, t_k]) by running sums; boundary sample = j - 1
+    j = np.searchsorted(stamp, stamp - k.window_ns, side="right")
+    bnd = np.maximum(j - 1, 0)
+    has_b = j >= 1
+
+    def win(x: np.ndarray) -> np.ndarray:
+        c = _cum(x)
+        return c[1:] - c[j]
+
+    t_eff = win(dt)
+    clean = win(restart.astype(np.int64)) == 0
+    safe = np.where(clean, t_eff, 1.0)
+    vj = np.where(clean[:, None], win(joints) / safe[:, None], 0.0)
+    vl = win(dl) / safe
+    vr = win(dr) / safe
+    vb = np.where(clean, 0.5 * (vl + vr), 0.0)
+    clean_b = has_b & clean[bnd]
+
+    # traction: |a| / (mu g) per joint, a = difference of window-mean speeds one window apart
+    valid_a = clean & clean_b
+    za = np.where(valid_a[:, None], np.abs((vj - vj[bnd]) / safe[:, None]) / k.mu_g, 0.0)
+    zt_left = za[:, :nl].max(axis=1)
+    zt_right = za[:, nl:].max(axis=1)
+
+    # same side: spread / max(mean |v|, floor) / ratio
+    def same_side(cols: range) -> np.ndarray:
+        vs = vj[:, cols.start:cols.stop]
+        mean_abs = np.abs(vs[:, 0])
+        for c in range(1, vs.shape[1]):
+            mean_abs = mean_abs + np.abs(vs[:, c])
+        mean_abs = mean_abs / vs.shape[1]
+        spread = vs.max(axis=1) - vs.min(axis=1)
+        return np.where(clean, spread / np.maximum(mean_abs, k.ss_min) / k.ss_ratio, 0.0)
+
+    zs_left = same_side(range(0, nl)) if nl >= 2 else None
+    zs_right = same_side(range(nl, nj)) if nj - nl >= 2 else None
+
+    # gyro against wheels
+    miss = win((~avail).astype(np.int64))
+    g_ok = clean & (miss == 0)
+    dth_w = win(dth)
+    dth_g = win(gi)
+    d = dth_w - dth_g
+    var = win(c11) + k.gyro_var * win(dt * dt) + (k.rate_tol * t_eff) * (k.rate_tol * t_eff) \
+        + (k.scale_tol * dth_w) * (k.scale_tol * dth_w)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        zg = np.where(g_ok, np.abs(d) / np.sqrt(np.where(g_ok, var, 1.0) * k.gate), 0.0)
+    # side: keep the base speed seen while quiet (forward fill)
+    quiet = g_ok & clean_b & (zg < k.clear_fraction)
+    qi = np.maximum.accumulate(np.where(quiet, np.arange(m), -1))
+    q = np.where(qi >= 0, vb[bnd][np.maximum(qi, 0)], 0.0)
+    wg = dth_g / safe
+    gyro_left = np.abs(vr - wg * k.half_b - q) < np.abs(vl + wg * k.half_b - q)
+
+    # latches
+    def lat(z: np.ndarray) -> np.ndarray:
+        return latch(z, stamp, k.set_ns, k.clear_ns, k.clear_fraction)
+
+    on_g = lat(zg)
+    on_tl, on_tr = lat(zt_left), lat(zt_right)
+    no = np.zeros(m, dtype=bool)
+    on_sl = lat(zs_left) if zs_left is not None else no
+    on_sr = lat(zs_right) if zs_right is not None else no
+    left = on_tl | on_sl | (on_g & gyro_left)
+    right = on_tr | on_sr | (on_g & ~gyro_left)
+    flagged = left | right
+    detector = (np.where(on_g, DETECTOR_GYRO, 0) | np.where(on_tl | on_tr, DETECTOR_TRACTION, 0)
+                | np.where(on_sl | on_sr, DETECTOR_SAME_SIDE, 0)).astype(np.int64)
+    score = np.maximum(np.maximum(zg, zt_left), zt_right)
+    if zs_left is not None:
+        score = np.maximum(score, zs_left)
+    if zs_right is not None:
+        score = np.maximum(score, zs_right)
+
+    result = SlipResult(flagged, left, right, detector, score,
+                        gyro_bias_radps=None if gyro_z_radps is None else bias)
+    if k.response == "inflate":
+        result.noise_scale = np.where(flagged, k.inflate, 1.0)
+    elif k.response == "gyro":
+        sub = flagged & avail
+        result.dtheta_rad = np.where(sub, gi, dth)
+        result.noise_scale = np.where(flagged & ~avail, k.inflate, 1.0)
+    return result
+
+
+# ------------------------------------------------------------------------------------------------
+# streaming
+# ------------------------------------------------------------------------------------------------
+class _Entry:
+    """One sample in the window: stamp, running totals after it, and what the boundary needs."""
+
+    __slots__ = ("stamp", "totals", "joints", "clean", "vj", "vb")
+
+    def __init__(self, stamp: int, totals: tuple, joints: list[float]) -> None:
+        self.stamp = stamp
+        self.totals = totals
+        self.joints = joints
+        self.clean = False
+        self.vj: list[float] = []
+        self.vb = 0.0
+
+
 class SlipMonitor:
-    """Streaming form of ``detect_slip``."""
+    """Streaming form of ``detect_slip`` (same rules and arithmetic; tested equal sample by sample)."""
 
     def __init__(self, settings: Settings) -> None:
         self.settings = settings
+        self._k = _Constants(settings)
+        self.reset()
 
     def reset(self) -> None:
-        """Forget detector state."""
+        """Forget detector state (windows, latches, gyro bias)."""
+        k = self._k
+        self._entries: deque[_Entry] = deque()
+        self._boundary: _Entry | None = None
+        nj = k.nl + k.nr
+        self._nj = nj
+        self._t_joints = [0.0] * nj
+        self._t_left = self._t_right = self._t_dt = 0.0
+        self._t_dth = self._t_gi = self._t_c11 = self._t_dt2 = 0.0
+        self._t_restart = 0
+        self._t_miss = 0
+        self._still_count = 0
+        self._still_totals: deque[float] = deque([0.0], maxlen=k.bias_samples + 1)
+        self._q = 0.0
+        self._lat_g, self._lat_tl, self._lat_tr = _Latch(k), _Latch(k), _Latch(k)
+        self._lat_sl, self._lat_sr = _Latch(k), _Latch(k)
 
-    def step(self, tracker: "TravelTracker", status: SampleStatus, dt_s: float, ds_left_m: float,
+    def _c11_one(self, dl: float, dr: float) -> float:
+        k = self._k
+        if k.model == "per_wheel":
+            b = k.b
+            return (k.k_right * abs(dr) + k.k_left * abs(dl)) / (b * b)
+        return float(_c11(np.array([dl]), np.array([dr]), k)[0])
+
+    def step(self, tracker: TravelTracker, status: SampleStatus, dt_s: float, ds_left_m: float,
              ds_right_m: float, gyro_z_radps: float | None) -> SlipStep:
-        """One sample."""
-        return SlipStep()
+        """One accepted sample (``status`` < 10); returns its flags and the response's changes."""
+        k = self._k
+        if not k.enabled:
+            return SlipStep()
+        stamp = int(tracker.last_stamp_ns)
+        restart = status != SampleStatus.USED
+        dt = 0.0 if restart else float(dt_s)
+        dl, dr = float(ds_left_m), float(ds_right_m)
+        joints = [float(v) for v in tracker.joint_travel_m]
+        nl = k.nl
+        if len(joints) != self._nj:
+            joints, nl = [dl, dr], 1
+        nj = len(joints)
+        if len(self._t_joints) != nj:
+            self._t_joints = [0.0] * nj
+
+        # gyro and bias
+        try:
+            g = float(gyro_z_radps) if gyro_z_radps is not None else math.nan
+        except (TypeError, ValueError):
+            g = math.nan
+        avail = math.isfinite(g)
+        if not avail:
+            g = 0.0
+        if avail and not restart and abs(dl) <= k.still * dt and abs(dr) <= k.still * dt:
+            self._still_count += 1
+            self._still_totals.append(self._still_totals[-1] + g)
+        count = self._still_count
+        if count >= BIAS_MIN_SAMPLES:
+            n_used = min(count, k.bias_samples)
+            bias = (self._still_totals[-1] - self._still_totals[-1 - n_used]) / n_used
+        else:
+            bias = k.bias_prior
+        gi = (g - bias) * dt if avail else 0.0
+        dth = (dr - dl) / k.b
+        c11 = self._c11_one(dl, dr)
+
+        # running totals, window
+        tj = self._t_joints
+        for i in range(nj):
+            tj[i] = tj[i] + joints[i]
+        self._t_left += dl
+        self._t_right += dr
+        self._t_dt += dt
+        self._t_dth += dth
+        self._t_gi += gi
+        self._t_c11 += c11
+        self._t_dt2 += dt * dt
+        self._t_restart += int(restart)
+        self._t_miss += int(not avail)
+        entry = _Entry(stamp, (self._t_dt, self._t_left, self._t_right, self._t_dth, self._t_gi,
+                               self._t_c11, self._t_dt2, self._t_restart, self._t_miss), list(tj))
+        self._entries.append(entry)
+        cutoff = stamp - k.window_ns
+        while self._entries[0].stamp <= cutoff:
+            self._boundary = self._entries.popleft()
+        bnd = self._boundary
+        if bnd is None:
+            b_tot = (0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0, 0)
+            b_joints = [0.0] * nj
+        else:
+            b_tot, b_joints = bnd.totals, bnd.joints
+        now = entry.totals
+        t_eff = now[0] - b_tot[0]
+        clean = now[7] - b_tot[7] == 0
+        safe = t_eff if clean else 1.0
+        vj = [(tj[i] - b_joints[i]) / safe if clean else 0.0 for i in range(nj)]
+        vl = (now[1] - b_tot[1]) / safe
+        vr = (now[2] - b_tot[2]) / safe
+        vb = 0.5 * (vl + vr) if clean else 0.0
+        entry.clean, entry.vj, entry.vb = clean, vj, vb
+        clean_b = bnd is not None and bnd.clean
+
+        # traction
+        if clean and clean_b:
+            za = [abs((vj[i] - bnd.vj[i]) / safe) / k.mu_g for i in range(nj)]
+        else:
+            za = [0.0] * nj
+        zt_left = max(za[:nl])
+        zt_right = max(za[nl:])
+
+        # same side
+        def same_side(lo: int, hi: int) -> float:
+            vs = vj[lo:hi]
+            mean_abs = abs(vs[0])
+            for v in vs[1:]:
+                mean_abs = mean_abs + abs(v)
+            mean_abs = mean_abs / len(vs)
+            if not clean:
+                return 0.0
+            return (max(vs) - min(vs)) / max(mean_abs, k.ss_min) / k.ss_ratio
+
+        zs_left = same_side(0, nl) if nl >= 2 else None
+        zs_right = same_side(nl, nj) if nj - nl >= 2 else None
+
+        # gyro against wheels
+        g_ok = clean and now[8] - b_tot[8] == 0
+        dth_w = now[3] - b_tot[3]
+        dth_g = now[4] - b_tot[4]
+        if g_ok:
+            var = (now[5] - b_tot[5]) + k.gyro_var * (now[6] - b_tot[6]) \
+                + (k.rate_tol * t_eff) * (k.rate_tol * t_eff) + (k.scale_tol * dth_w) * (k.scale_tol * dth_w)
+            zg = abs(dth_w - dth_g) / math.sqrt(var * k.gate)  # var > 0: gyro noise > 0, window dt > 0
+        else:
+            zg = 0.0
+        if g_ok and clean_b and zg < k.clear_fraction:
+            self._q = bnd.vb
+        q = self._q
+        wg = dth_g / safe
+        gyro_left = abs(vr - wg * k.half_b - q) < abs(vl + wg * k.half_b - q)
+
+        on_g = self._lat_g.update(zg, stamp)
+        on_tl = self._lat_tl.update(zt_left, stamp)
+        on_tr = self._lat_tr.update(zt_right, stamp)
+        on_sl = self._lat_sl.update(zs_left, stamp) if zs_left is not None else False
+        on_sr = self._lat_sr.update(zs_right, stamp) if zs_right is not None else False
+        left = on_tl or on_sl or (on_g and gyro_left)
+        right = on_tr or on_sr or (on_g and not gyro_left)
+        flagged = left or right
+        detector = ((DETECTOR_GYRO if on_g else 0) | (DETECTOR_TRACTION if (on_tl or on_tr) else 0)
+                    | (DETECTOR_SAME_SIDE if (on_sl or on_sr) else 0))
+        score = max(zg, zt_left, zt_right)
+        if zs_left is not None:
+            score = max(score, zs_left)
+        if zs_right is not None:
+            score = max(score, zs_right)
+        out = SlipStep(flagged, left, right, detector, score,
+                       gyro_bias_radps=bias if gyro_z_radps is not None else None)
+        if k.response == "inflate" and flagged:
+            out.noise_scale = k.inflate
+        elif k.response == "gyro" and flagged:
+            if avail:
+                out.dtheta_rad = gi
+            else:
+                out.noise_scale = k.inflate
+        return out
