@@ -1,0 +1,91 @@
+#!/usr/bin/env python3
+"""Benchmark of the estimator core: batch ``run`` over one hour at 100 Hz, streaming ``step`` per sample.
+
+Usage: .venv/bin/python tools/bench_core.py [--samples 360000] [--stream-samples 36000] [--repeat 3]
+
+The drive is the invented demo cart "Quokka" (radii 0.0829/0.0822 m, track 0.4185 m) turning
+gently for an hour; every integration scheme x noise model is timed. Figures are printed, not
+asserted (speed targets live here, not in the test suite).
+"""
+from __future__ import annotations
+
+import argparse
+import time
+
+import numpy as np
+
+from wheel_dr.core import Estimator, JointSamples, Settings, run
+
+__all__ = ["make_drive", "bench_batch", "bench_stream", "main"]
+
+LEFT, RIGHT = "quokka_left_wheel_joint", "quokka_right_wheel_joint"
+SCHEMES = ("euler", "midpoint", "exact")
+MODELS = ("per_wheel", "motion_model")
+
+
+def make_drive(n: int, rate_hz: float = 100.0) -> JointSamples:
+    """Joint positions (rad) of an n-sample drive at ``rate_hz`` with varying curvature."""
+    t = np.arange(n) / rate_hz
+    omega_l = 5.0 + 2.0 * np.sin(0.05 * t)
+    omega_r = 5.0 + 2.0 * np.cos(0.031 * t)
+    dt = 1.0 / rate_hz
+    pos = np.column_stack([np.cumsum(omega_l) * dt, np.cumsum(omega_r) * dt])
+    stamp_ns = 1_764_000_000_000_000_000 + np.arange(n, dtype=np.int64) * int(round(1e9 / rate_hz))
+    return JointSamples(stamp_ns, (LEFT, RIGHT), pos, np.column_stack([omega_l, omega_r]))
+
+
+def settings_for(scheme: str, model: str) -> Settings:
+    return Settings.from_flat({"wheels.left_joints": [LEFT], "wheels.right_joints": [RIGHT],
+                               "wheels.left_radius": 0.0829, "wheels.right_radius": 0.0822,
+                               "wheels.track_width": 0.4185, "integration": scheme, "noise.model": model})
+
+
+def bench_batch(samples: JointSamples, settings: Settings, repeat: int) -> float:
+    """Best wall time (s) of ``run`` over ``samples``."""
+    best = float("inf")
+    for _ in range(repeat):
+        t0 = time.perf_counter()
+        traj = run(samples, settings)
+        best = min(best, time.perf_counter() - t0)
+    assert len(traj) == len(samples)
+    return best
+
+
+def bench_stream(samples: JointSamples, settings: Settings) -> float:
+    """Mean wall time (s) of one ``Estimator.step``."""
+    est = Estimator(settings)
+    names = list(samples.names)
+    pos = samples.position.tolist()
+    vel = samples.velocity.tolist()
+    stamps = samples.stamp_ns.tolist()
+    t0 = time.perf_counter()
+    for k in range(len(stamps)):
+        est.step(stamps[k], names, pos[k], vel[k])
+    elapsed = time.perf_counter() - t0
+    return elapsed / len(stamps)
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--samples", type=int, default=360_000, help="batch samples (default 1 h at 100 Hz)")
+    parser.add_argument("--stream-samples", type=int, default=36_000, help="streaming samples per case")
+    parser.add_argument("--repeat", type=int, default=3, help="batch repetitions (best is reported)")
+    args = parser.parse_args(argv)
+    batch_drive = make_drive(args.samples)
+    stream_drive = make_drive(args.stream_samples)
+    print(f"wheel_dr core benchmark: batch run of {args.samples} samples ({args.samples / 100 / 3600:.2f} h at "
+          f"100 Hz, best of {args.repeat}); streaming step over {args.stream_samples} samples")
+    print(f"{'scheme':<9} {'model':<13} {'batch s':>9} {'batch us/sample':>16} {'samples/s':>12} "
+          f"{'stream us/step':>15}")
+    for scheme in SCHEMES:
+        for model in MODELS:
+            s = settings_for(scheme, model)
+            batch_s = bench_batch(batch_drive, s, args.repeat)
+            step_s = bench_stream(stream_drive, s)
+            print(f"{scheme:<9} {model:<13} {batch_s:9.3f} {1e6 * batch_s / args.samples:16.3f} "
+                  f"{args.samples / batch_s:12.0f} {1e6 * step_s:15.1f}")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
