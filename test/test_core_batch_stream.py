@@ -76,6 +76,9 @@ def build_case(source: str, scheme: str, model: str, seed: int = 0):
         pos = np.floor(pos * TICKS_PER_REV * GEAR / (2 * math.pi)) % (2 ** BITS)
     elif source == "wrap_angle":
         pos = math.pi - np.mod(math.pi - pos, 2 * math.pi)
+    if source in ("ticks", "wrap_angle"):     # the counters roll over / the angles wrap in this drive
+        half = 2 ** (BITS - 1) if source == "ticks" else math.pi
+        assert (np.abs(np.diff(pos[:, [cl, cr]], axis=0)) > half).sum() >= 4
     which = vel if source == "velocity" else pos
     which[50, cl] = np.nan                   # non-finite
     which[60, cr] = np.inf
