@@ -73,8 +73,16 @@ _READING = [
 ]
 
 
+def _png_of(image: ImageLike) -> bytes:
+    if isinstance(image, Figure):
+        return figure_png(image)
+    if isinstance(image, (bytes, bytearray, memoryview)) and bytes(image[:8]) == b"\x89PNG\r\n\x1a\n":
+        return bytes(image)
+    raise TypeError(f"An extra report image must be PNG bytes or a matplotlib Figure, not {type(image).__name__}.")
+
+
 def _img_tag(image: ImageLike, alt: str) -> str:
-    png = figure_png(image) if isinstance(image, Figure) else bytes(image)
+    png = _png_of(image)
     data = base64.b64encode(png).decode("ascii")
     return f'<img src="data:image/png;base64,{data}" alt="{html.escape(alt)}">'
 
@@ -125,6 +133,8 @@ def render_page(evaluations: Sequence[Evaluation], *, title: str = "wheel_dr com
                 notes: Sequence[str] = (), ellipse_every: int | None = None,
                 rank_key: str = "rpe_trans_pct") -> str:
     """The page as a string (see ``write_report``)."""
+    # extra images first: a bad one fails before any figure is drawn
+    extra_png = [(t, frag, [_png_of(img) for img in images]) for t, frag, images in extra_sections]
     ordered = rank(evaluations, rank_key)
     names: list[str] = []
     for e in evaluations:
@@ -174,7 +184,7 @@ def render_page(evaluations: Sequence[Evaluation], *, title: str = "wheel_dr com
         for fig, cap in figs:
             parts.append(_figure_html(fig, cap))
         parts.append("</div></section>")
-    for i, (t, frag, images) in enumerate(extra_sections, 1):
+    for i, (t, frag, images) in enumerate(extra_png, 1):
         parts.append(f'<section id="extra-{i}"><h2>{html.escape(t)}</h2>{frag}<div class="grid">')
         for k, img in enumerate(images, 1):
             parts.append(_figure_html(img, f"{t}, figure {k}"))
