@@ -185,3 +185,19 @@ def test_yaw_quaternion_matches_scipy(yaw: float) -> None:
     # rotating body +x by the quaternion gives (cos yaw, sin yaw): counter-clockwise
     assert np.allclose(Rotation.from_quat(q).apply([1.0, 0.0, 0.0]), [math.cos(yaw), math.sin(yaw), 0.0],
                        atol=1e-15)
+
+
+def test_odometry_covariance_layout() -> None:
+    """nav_msgs/Odometry (message definition): 6x6 row-major over (x, y, z, rot X, rot Y, rot Z); the
+    planar (x, y, yaw) block goes to rows/columns 0, 1, 5, and z, roll, pitch are marked unobserved
+    with a large variance (common practice, documented in wheel_dr.core.conventions)."""
+    from wheel_dr.core import UNOBSERVED_VARIANCE, planar_covariance_from_6x6, pose_covariance_6x6
+    cov3 = np.array([[0.04, 0.01, -0.002], [0.01, 0.09, 0.003], [-0.002, 0.003, 0.0025]])
+    flat = pose_covariance_6x6(cov3)
+    assert len(flat) == 36
+    full = np.array(flat).reshape(6, 6)
+    assert full[0, 0] == 0.04 and full[1, 1] == 0.09 and full[5, 5] == 0.0025
+    assert full[0, 1] == full[1, 0] == 0.01 and full[0, 5] == full[5, 0] == -0.002 and full[1, 5] == 0.003
+    assert all(full[i, i] == UNOBSERVED_VARIANCE for i in (2, 3, 4)) and UNOBSERVED_VARIANCE >= 1e3
+    assert np.array_equal(full, full.T)
+    assert np.array_equal(planar_covariance_from_6x6(flat), cov3)
