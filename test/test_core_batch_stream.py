@@ -152,3 +152,16 @@ def test_batch_equals_streaming(scheme: str, model: str, source: str) -> None:
     assert np.array_equal(traj.index, np.flatnonzero(traj.status < 10))
     assert np.all(traj.status[[50, 60, 160, 190, 220, 500]] >= 10)
     assert traj.status[70] == SampleStatus.USED
+
+
+@pytest.mark.parametrize("source", SOURCES)
+def test_batch_equals_streaming_with_slip_inflation(source: str) -> None:
+    """Same equality when flagged samples inflate the step noise (slip.response 'inflate')."""
+    settings, samples, messages = build_case(source, "exact", "per_wheel", seed=4)
+    settings = settings.with_values({"slip.response": "inflate"})
+    traj = run(samples, settings, START_POSE, START_COV)
+    est, status, rows = stream(settings, messages)
+    assert np.array_equal(traj.status, status) and traj.counters == est.counters
+    assert np.max(np.abs(traj.x_m - np.array([r[0] for r in rows]))) < 1e-9
+    assert np.allclose(traj.cov, np.array([r[4] for r in rows]), rtol=1e-9, atol=1e-12)
+    assert np.allclose(traj.twist_cov, np.array([r[7] for r in rows]), rtol=1e-9, atol=1e-12)
