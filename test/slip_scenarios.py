@@ -17,6 +17,7 @@ import numpy as np
 from wheel_dr.core import JointSamples, Settings
 
 __all__ = ["SlipEvent", "Drive", "Generated", "generate", "random_drive", "quokka_settings", "slip_figures",
+           "sharp_turns_drive", "traction_limit_drive", "noisy_gyro_drive",
            "QUOKKA_LEFT", "QUOKKA_RIGHT", "RAMP_S"]
 
 QUOKKA_LEFT = ("quokka_left_wheel_joint",)
@@ -26,7 +27,7 @@ NOMINAL_TRACK_M = 0.412
 TRUE_LEFT_RADIUS_M = 0.0829
 TRUE_RIGHT_RADIUS_M = 0.0822
 TRUE_TRACK_M = 0.4185
-RAMP_S = 0.05            # slip blends in and out over this time
+RAMP_S = 0.05            # default time a slip blends in and out over
 INNER_HZ = 1000.0        # integration rate of the truth
 COUNTS_PER_REV = 4096 * 16  # encoder counts per wheel revolution (4096-count encoder, 16:1 gear)
 
@@ -41,6 +42,7 @@ class SlipEvent:
     kind: str
     ratio: float
     joint: int | None = None   # which joint of the side (skid steer), None for all of them
+    ramp_s: float = RAMP_S     # the slip blends in and out over this time
 
 
 @dataclass
@@ -56,6 +58,8 @@ class Drive:
     gyro: bool = True
     gyro_bias_radps: float = 0.01
     gyro_noise_radps: float = 0.01
+    gyro_lag_s: float = 0.0       # the gyro reading is this old at the sample stamp
+    wheel_accel_mps2: float | None = None  # also limit each wheel's ground acceleration to this
     rolling_k_m: float = 2e-6     # variance of the true rolling random walk per metre
     joints_per_side: int = 1
 
@@ -116,6 +120,10 @@ def generate(drive: Drive, seed: int, settings: Settings | None = None) -> Gener
     v = _rate_limit(v_cmd, drive.accel_mps2, dt_i)
     w = _rate_limit(w_cmd, drive.yaw_accel_radps2, dt_i)
     b = TRUE_TRACK_M
+    if drive.wheel_accel_mps2 is not None:
+        wl = _rate_limit(v - 0.5 * b * w, drive.wheel_accel_mps2, dt_i)
+        wr = _rate_limit(v + 0.5 * b * w, drive.wheel_accel_mps2, dt_i)
+        v, w = 0.5 * (wl + wr), (wr - wl) / b
     nj = drive.joints_per_side
     ground = np.empty((n_i, 2 * nj))
     ground[:, :nj] = (v - 0.5 * b * w)[:, None]
@@ -125,7 +133,7 @@ def generate(drive: Drive, seed: int, settings: Settings | None = None) -> Gener
     for ev in drive.events:
         s0 = 0 if ev.side == "left" else nj
         cols = range(s0, s0 + nj) if ev.joint is None else [s0 + ev.joint]
-        ramp = np.clip((t - ev.t0_s) / RAMP_S, 0, 1) * np.clip((ev.t0_s + ev.duration_s - t) / RAMP_S, 0, 1)
+        ramp = np.clip((t - ev.t0_s) / ev.ramp_s, 0, 1) * np.clip((ev.t0_s + ev.duration_s - t) / ev.ramp_s, 0, 1)
         factor = 1.0 + ev.ratio * ramp if ev.kind == "spin" else 1.0 - ev.ratio * ramp
         for c in cols:
             surface[:, c] *= factor
@@ -152,7 +160,7 @@ def generate(drive: Drive, seed: int, settings: Settings | None = None) -> Gener
     samples = JointSamples(stamp_ns, names, pos, np.zeros_like(pos))
     gyro = None
     if drive.gyro:
-        gyro = (np.interp(t_read, t, w) + drive.gyro_bias_radps
+        gyro = (np.interp(t_read - drive.gyro_lag_s, t, w) + drive.gyro_bias_radps
                 + rng.normal(0.0, drive.gyro_noise_radps, len(t_s)))
     idx = np.clip(np.round(t_s * INNER_HZ).astype(int), 0, n_i - 1)
     return Generated(samples, gyro, t_s, truth[idx, 0], truth[idx, 1], np.interp(t_s, t, theta),
@@ -218,3 +226,47 @@ def slip_figures(gen: Generated, flagged: np.ndarray, t_s: np.ndarray, grace_s: 
         "latency_max_s": float(max(latencies)) if latencies else 0.0,
         "latency_mean_s": float(np.mean(latencies)) if latencies else 0.0,
     }
+
+
+# ------------------------------------------------------------------------------------------------
+# hard cases without slip (nothing may fire)
+# ------------------------------------------------------------------------------------------------
+def sharp_turns_drive(seed: int, duration_s: float = 40.0) -> Drive:
+    """Arcs of 0.5 m radius at 1 m/s alternating left and right, and fast turns in place, with an
+    abrupt yaw acceleration (8 rad/s^2) and a gyro reading 5 ms old."""
+    rng = np.random.default_rng(20_000 + seed)
+    segs: list[tuple[float, float, float]] = [(2.0, 0.0, 0.0)]
+    t = 2.0
+    while t < duration_s:
+        d = float(rng.uniform(1.0, 2.5))
+        if rng.random() < 0.75:
+            segs.append((d, float(rng.uniform(0.8, 1.0)), float(rng.choice([-1, 1]) * rng.uniform(1.6, 2.0))))
+        else:
+            segs.append((d, 0.0, float(rng.choice([-1, 1]) * rng.uniform(2.0, 2.5))))
+        t += d
+    return Drive(segs, yaw_accel_radps2=8.0, gyro_lag_s=0.005)
+
+
+def traction_limit_drive(seed: int, mu: float = 0.5, duration_s: float = 40.0) -> Drive:
+    """Starts and stops with each wheel at 90 % of the traction limit mu g, straight and turning."""
+    rng = np.random.default_rng(30_000 + seed)
+    segs: list[tuple[float, float, float]] = [(2.0, 0.0, 0.0)]
+    t = 2.0
+    while t < duration_s:
+        go = float(rng.uniform(1.0, 2.0))
+        segs.append((go, float(rng.uniform(0.8, 1.2)), float(rng.choice([0.0, -0.8, 0.8]))))
+        segs.append((float(rng.uniform(0.6, 1.2)), 0.0, 0.0))
+        t += go + 1.2
+    limit = 0.9 * mu * 9.80665
+    return Drive(segs, accel_mps2=limit, yaw_accel_radps2=4.0, wheel_accel_mps2=limit)
+
+
+def noisy_gyro_drive(seed: int, standstill: bool = True, duration_s: float = 60.0) -> Drive:
+    """A random round without slip, the gyro three times noisier than configured, biased by
+    0.05 rad/s; with or without a first standstill to estimate the bias."""
+    d = random_drive(seed, duration_s=duration_s, n_events=0)
+    if not standstill:
+        d.segments = [(0.5, 0.6, 0.0)] + d.segments[1:]
+    d.gyro_noise_radps = 0.03
+    d.gyro_bias_radps = 0.05
+    return d

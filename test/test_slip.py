@@ -1,0 +1,271 @@
+"""Slip detection: its pieces against their sources, batch against streaming, responses."""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from scipy.stats import chi2
+
+from slip_scenarios import Drive, SlipEvent, generate, quokka_settings, random_drive
+from wheel_dr.core import Estimator, Settings, run, wheel_travel
+from wheel_dr.core.noise import increment_noise
+from wheel_dr.core.slip import (DETECTOR_GYRO, DETECTOR_SAME_SIDE, DETECTOR_TRACTION, SlipMonitor, SlipStep,
+                                detect_slip, heading_increment_variance, latch)
+from wheel_dr.core.wheels import SampleStatus, TravelTracker
+
+
+# ------------------------------------------------------------------------------------------------
+# pieces
+# ------------------------------------------------------------------------------------------------
+@pytest.mark.parametrize("model", ["per_wheel", "motion_model"])
+@pytest.mark.parametrize("scheme", ["euler", "midpoint", "exact"])
+def test_wheel_heading_variance_is_the_core_noise_models_c11(model, scheme):
+    """The gyro gate's wheel variance is C[1,1] of noise.increment_noise (per-wheel model:
+    Siegwart et al. 2011 sec. 5.2.4; motion model: Thrun et al. 2005 sec. 5.4)."""
+    rng = np.random.default_rng(4)
+    dl, dr = rng.normal(0.01, 0.01, 500), rng.normal(0.01, 0.01, 500)
+    s = Settings().with_values({"noise.model": model, "integration": scheme, "noise.k_left": 3e-4})
+    n = s.noise
+    _, c_in = increment_noise(np.zeros(500), dl, dr, s.wheels.track_width, scheme, n.model, n.k_left, n.k_right,
+                              n.alphas)
+    np.testing.assert_allclose(heading_increment_variance(dl, dr, s), c_in[:, 1, 1], rtol=1e-13, atol=0)
+
+
+def test_default_gyro_gate_is_the_chi_square_quantile():
+    """Default gate = chi-square(1) 99.5 % quantile (scipy.stats.chi2, a reference library)."""
+    assert Settings().slip.gyro_gate == pytest.approx(chi2.ppf(0.995, 1), abs=0.005)
+
+
+def _reference_latch(score, stamp_ns, set_ns, clear_ns, fraction):
+    """Textbook debounced set/reset latch with hysteresis, one sample at a time (common practice)."""
+    state, set_since, clear_since, out = False, None, None, []
+    for z, t in zip(score, stamp_ns):
+        set_since = (t if set_since is None else set_since) if z > 1.0 else None
+        clear_since = (t if clear_since is None else clear_since) if z < fraction else None
+        if not state and set_since is not None and t - set_since >= set_ns:
+            state = True
+        elif state and clear_since is not None and t - clear_since >= clear_ns:
+            state = False
+        out.append(state)
+    return np.array(out)
+
+
+@pytest.mark.parametrize("seed", range(5))
+def test_vectorised_latch_equals_the_state_machine(seed):
+    rng = np.random.default_rng(seed)
+    n = 3000
+    # a slowly varying score crossing both thresholds, with noise, on jittered stamps
+    score = np.abs(np.cumsum(rng.normal(0, 0.15, n)) % 2.5) + rng.normal(0, 0.05, n)
+    stamp = np.cumsum(rng.integers(5_000_000, 30_000_000, n)).astype(np.int64)
+    for set_ns, clear_ns, fr in [(0, 0, 0.5), (40_000_000, 100_000_000, 0.5), (20_000_000, 0, 0.9)]:
+        got = latch(score, stamp, set_ns, clear_ns, fr)
+        want = _reference_latch(score, stamp, set_ns, clear_ns, fr)
+        assert got.any() and not got.all()
+        np.testing.assert_array_equal(got, want)
+
+
+def test_latch_debounce_and_hysteresis_behave():
+    stamp = np.arange(20, dtype=np.int64) * 10_000_000  # 100 Hz
+    z = np.array([0, 2, 0, 2, 2, 2, 0.8, 0.8, 0.2, 0.2, 0.2, 0.2, 0, 0, 0, 0, 0, 0, 0, 0], dtype=float)
+    got = latch(z, stamp, 20_000_000, 30_000_000, 0.5)
+    # a one-sample blip does not set; three samples (20 ms held) do; the hysteresis band (0.8) keeps it;
+    # it clears once below 0.5 for 30 ms
+    want = np.zeros(20, dtype=bool)
+    want[5:11] = True
+    np.testing.assert_array_equal(got, want)
+
+
+# ------------------------------------------------------------------------------------------------
+# batch == streaming
+# ------------------------------------------------------------------------------------------------
+def _stream(gen, settings, gyro, drop=()):
+    est = Estimator(settings)
+    steps, theta, cov = [], [], []
+    s = gen.samples
+    for i in range(len(s)):
+        g = None if gyro is None else gyro[i]
+        st = est.step(int(s.stamp_ns[i]), s.names, s.position[i], s.velocity[i],
+                      None if g is None or i in drop else float(g))
+        if st < 10:
+            steps.append(est.last_slip)
+            theta.append(est.theta_rad)
+            cov.append(est.cov.copy())
+    return steps, np.array(theta), np.array(cov)
+
+
+def _scenarios():
+    base = random_drive(41, duration_s=30.0, n_events=3)
+    skid = random_drive(42, duration_s=30.0, n_events=3, joints_per_side=2, same_side_events=True)
+    skid.gyro = False
+    spin = Drive([(2.0, 0.0, 0.0), (5.0, 0.7, 0.3), (1.0, 0.0, 0.0)],
+                 events=[SlipEvent(4.0, 1.0, "left", "spin", 1.0, ramp_s=0.005)])
+    sudden = [SlipEvent(e.t0_s, e.duration_s, e.side, e.kind, e.ratio, ramp_s=0.005) for e in base.events]
+    no_imu = Drive(base.segments, sudden, gyro=False)
+    return [("imu", base, {}), ("no_imu", no_imu, {}),
+            ("skid", skid, {}), ("spin_inflate", spin, {"slip.response": "inflate"}),
+            ("gyro_motion_model", base, {"slip.response": "gyro", "noise.model": "motion_model"}),
+            ("gyro_no_imu", no_imu, {"slip.response": "gyro"})]
+
+
+@pytest.mark.parametrize("name,drive,values", _scenarios(), ids=[c[0] for c in _scenarios()])
+def test_batch_equals_streaming_sample_by_sample(name, drive, values):
+    """DESIGN.md: batch and streaming agree; here exactly (same additions in the same order)."""
+    gen = generate(drive, 7)
+    settings = gen.settings.with_values(values)
+    gyro = gen.gyro_z_radps
+    samples = gen.samples
+    if gyro is not None:  # IMU dropouts: NaN in the batch, None in the stream
+        gyro = gyro.copy()
+        drop = set(range(300, 330))
+        gyro[list(drop)] = np.nan
+    else:
+        drop = set()
+    # an encoder jump and a gap restart the chain
+    samples.position[500:, 0] += 5.0
+    keep = np.ones(len(samples), dtype=bool)
+    keep[800:840] = False
+    samples.stamp_ns, samples.position, samples.velocity = (samples.stamp_ns[keep], samples.position[keep],
+                                                            samples.velocity[keep])
+    if gyro is not None:
+        gyro = gyro[keep]
+    traj = run(samples, settings, gyro_z_radps=gyro)
+    assert traj.counters["jump"] == 1 and traj.counters["gap"] == 1
+    steps, theta, cov = _stream(gen, settings, gyro, drop)
+    sr = traj.slip
+    assert sr.slip.any()
+    for field in ("slip", "left", "right", "detector", "score"):
+        np.testing.assert_array_equal(np.array([getattr(x, field) for x in steps]), getattr(sr, field), err_msg=field)
+    np.testing.assert_array_equal(theta, traj.theta_rad)
+    np.testing.assert_allclose(cov, traj.cov, rtol=1e-9, atol=1e-15)
+
+
+# ------------------------------------------------------------------------------------------------
+# physics and signs of single events
+# ------------------------------------------------------------------------------------------------
+def _one_event(side, kind, gyro=True, ramp_s=0.05, w=0.0, ratio=0.8):
+    d = Drive([(3.0, 0.0, 0.0), (6.0, 0.7, w), (1.0, 0.0, 0.0)],
+              events=[SlipEvent(5.5, 1.5, side, kind, ratio, ramp_s=ramp_s)], gyro=gyro)
+    gen = generate(d, 11)
+    traj = run(gen.samples, gen.settings, gyro_z_radps=gen.gyro_z_radps)
+    t = gen.t_s[traj.index]
+    inside = (t >= 5.7) & (t < 7.0)
+    return gen, traj, t, inside
+
+
+@pytest.mark.parametrize("side,kind", [("left", "spin"), ("right", "spin"), ("left", "drag"), ("right", "drag")])
+def test_gyro_detector_flags_the_slipping_side(side, kind):
+    """REP 103: a right wheel running faster than the ground turns the wheel heading left; the
+    gyro does not see it. The flagged side is the slipping one, the detector is the gyro's."""
+    gen, traj, t, inside = _one_event(side, kind)
+    sr = traj.slip
+    mine, other = (sr.left, sr.right) if side == "left" else (sr.right, sr.left)
+    assert mine[inside].mean() >= 0.95
+    assert not other[inside].any()
+    assert (sr.detector[inside] & DETECTOR_GYRO).all()
+    wheel_turn = traj.theta_rad[inside][-1] - traj.theta_rad[inside][0]
+    faster_right = (side == "right") == (kind == "spin")
+    assert (wheel_turn > 0) == faster_right
+    assert not sr.slip[t < 5.5].any()
+
+
+def test_traction_detector_catches_a_sudden_spin_without_imu():
+    """A wheel going from 0.7 to 1.4 m/s in 5 ms accelerates at about 140 m/s^2, far beyond
+    mu g (common practice: rolling contact cannot do that)."""
+    gen, traj, t, inside = _one_event("right", "spin", gyro=False, ramp_s=0.005, ratio=1.0)
+    sr = traj.slip
+    onset = np.flatnonzero(sr.right & (t >= 5.5))
+    assert len(onset) and t[onset[0]] - 5.5 < 0.2
+    assert (sr.detector[onset[0]] & DETECTOR_TRACTION)
+    assert not sr.left.any()
+    assert sr.gyro_bias_radps is None
+
+
+def test_same_side_detector_on_a_skid_steer_base():
+    """Two joints per side: one spinning joint disagrees with its neighbour (slip ratio, common practice)."""
+    d = Drive([(3.0, 0.0, 0.0), (6.0, 0.7, 0.0), (1.0, 0.0, 0.0)],
+              events=[SlipEvent(5.5, 1.5, "left", "spin", 0.6, joint=1)], gyro=False, joints_per_side=2)
+    gen = generate(d, 5)
+    traj = run(gen.samples, gen.settings)
+    t = gen.t_s[traj.index]
+    inside = (t >= 5.7) & (t < 7.0)
+    sr = traj.slip
+    assert sr.left[inside].mean() >= 0.95
+    assert (sr.detector[inside] & DETECTOR_SAME_SIDE).all()
+    assert not sr.right.any()
+    assert not sr.slip[(t < 5.5) | (t > 7.3)].any()
+
+
+def test_gyro_bias_is_estimated_while_standing_still():
+    """The bias is the sample mean of the z rate at standstill: within 4 standard errors
+    (sigma / sqrt(n), common practice) of the true 0.05 rad/s after 2 s at rest."""
+    d = Drive([(3.0, 0.0, 0.0), (3.0, 0.5, 0.0)], gyro_bias_radps=0.05, gyro_noise_radps=0.03)
+    gen = generate(d, 3)
+    traj = run(gen.samples, gen.settings, gyro_z_radps=gen.gyro_z_radps)
+    t = gen.t_s[traj.index]
+    n_still = int(((t > 1.0) & (t <= 3.0)).sum())
+    bias = traj.slip.gyro_bias_radps[np.searchsorted(t, 3.0)]
+    assert abs(bias - 0.05) < 4 * 0.03 / math.sqrt(n_still)
+    before = traj.slip.gyro_bias_radps[:5]
+    assert (before == 0.0).all()   # the prior until enough standstill samples
+
+
+# ------------------------------------------------------------------------------------------------
+# responses
+# ------------------------------------------------------------------------------------------------
+def test_gyro_response_takes_the_gyro_increment_on_flagged_samples_only():
+    """Gyrodometry (Borenstein & Feng 1996): flagged steps integrate (w_z - bias) dt, others the wheels'."""
+    gen, _, _, _ = _one_event("left", "drag")
+    s = gen.settings.with_values({"slip.response": "gyro"})
+    tv = wheel_travel(gen.samples, s)
+    gyro = gen.gyro_z_radps[tv.index]
+    sr = detect_slip(tv, gyro, s)
+    wheel = (tv.ds_right_m - tv.ds_left_m) / s.wheels.track_width
+    dt = np.where(tv.restart, 0.0, tv.dt_s)
+    f = sr.slip
+    assert f.any() and not f.all()
+    np.testing.assert_array_equal(sr.dtheta_rad[~f], wheel[~f])
+    np.testing.assert_allclose(sr.dtheta_rad[f], (gyro[f] - sr.gyro_bias_radps[f]) * dt[f], rtol=1e-12)
+    assert (sr.noise_scale == 1.0).all()
+
+
+def test_inflate_response_scales_the_step_noise_of_flagged_samples():
+    gen, _, t, inside = _one_event("right", "spin")
+    factor = 50.0
+    s = gen.settings.with_values({"slip.response": "inflate", "slip.inflate_factor": factor})
+    flag_only = run(gen.samples, gen.settings, gyro_z_radps=gen.gyro_z_radps)
+    inflated = run(gen.samples, s, gyro_z_radps=gen.gyro_z_radps)
+    f = inflated.slip.slip
+    np.testing.assert_array_equal(inflated.slip.noise_scale, np.where(f, factor, 1.0))
+    np.testing.assert_allclose(inflated.twist_cov[f], factor * flag_only.twist_cov[f], rtol=1e-12)
+    assert inflated.cov[-1, 2, 2] > 5 * flag_only.cov[-1, 2, 2]
+    np.testing.assert_array_equal(inflated.theta_rad, flag_only.theta_rad)
+
+
+def test_gyro_response_without_imu_falls_back_to_inflating():
+    gen, _, _, _ = _one_event("right", "spin", gyro=False, ramp_s=0.005, ratio=1.0)
+    s = gen.settings.with_values({"slip.response": "gyro"})
+    sr = run(gen.samples, s).slip
+    assert sr.slip.any()
+    np.testing.assert_array_equal(sr.noise_scale, np.where(sr.slip, s.slip.inflate_factor, 1.0))
+
+
+def test_disabled_detection_never_flags():
+    gen, _, _, _ = _one_event("right", "spin")
+    s = gen.settings.with_values({"slip.enabled": False, "slip.response": "gyro"})
+    sr = run(gen.samples, s, gyro_z_radps=gen.gyro_z_radps).slip
+    assert not sr.slip.any() and sr.dtheta_rad is None and sr.noise_scale is None
+    est = Estimator(s)
+    assert isinstance(est.last_slip, SlipStep) and not est.last_slip.slip
+
+
+def test_monitor_never_raises_on_bad_gyro_values():
+    s = quokka_settings()
+    mon = SlipMonitor(s)
+    tracker = TravelTracker(s)
+    names = s.wheels.left_joints + s.wheels.right_joints
+    for i, g in enumerate([None, float("nan"), float("inf"), "abc", 0.1, -1e300]):
+        status, dt, dl, dr = tracker.step(10**9 + i * 20_000_000, names, [0.01 * i, 0.01 * i], [])
+        out = mon.step(tracker, status, dt, dl, dr, g)
+        assert isinstance(out, SlipStep) and math.isfinite(out.score)
+    assert status == SampleStatus.USED
