@@ -178,3 +178,40 @@ def test_core_imports_no_ros_bags_or_yaml() -> None:
     bad = [m for m in modules if any(m == b or m.startswith(b + ".") for b in banned)]
     assert not bad, f"the core imports {bad}"
     assert "numpy" in modules and "wheel_dr.core" in modules
+
+
+class _NoDuplicatesLoader(yaml.SafeLoader):
+    """YAML loader that refuses a key given twice in one mapping (PyYAML silently keeps the last)."""
+
+
+def _construct_mapping(loader, node, deep=False):
+    keys = [loader.construct_object(k, deep=deep) for k, _ in node.value]
+    dupes = {k for k in keys if keys.count(k) > 1}
+    if dupes:
+        raise yaml.constructor.ConstructorError(None, None, f"duplicate keys {sorted(dupes)}", node.start_mark)
+    return yaml.SafeLoader.construct_mapping(loader, node, deep=deep)
+
+
+_NoDuplicatesLoader.add_constructor(yaml.resolver.BaseResolver.DEFAULT_MAPPING_TAG, _construct_mapping)
+
+
+def test_update_params_text_adds_a_missing_name_inside_its_existing_section() -> None:
+    """A name missing from a section the file already has goes into that section: a second 'wheels:'
+    mapping would make YAML keep only one of the two and silently drop the file's other values."""
+    text = ("/**:\n  ros__parameters:\n    wheels:\n      track_width: 0.412   # m, measured\n"
+            "      left_radius: 0.0825\n    # integration scheme\n    integration: exact\n")
+    updated = update_params_text(text, {"wheels.right_radius": 0.0822, "wheels.track_width": 0.4185,
+                                        "limits.max_gap_s": 0.25, "noise.alphas": [0.1, 0.0, 0.0, 0.0]})
+    yaml.load(updated, Loader=_NoDuplicatesLoader)   # no key twice
+    assert parse_params_text(updated) == {"wheels.track_width": 0.4185, "wheels.left_radius": 0.0825,
+                                          "wheels.right_radius": 0.0822, "integration": "exact",
+                                          "limits.max_gap_s": 0.25, "noise.alphas": [0.1, 0.0, 0.0, 0.0]}
+    assert "# m, measured" in updated and "    # integration scheme\n    integration: exact" in updated
+    # the section is the file's last lines and a new section is appended too, in either order
+    tail = "/**:\n  ros__parameters:\n    integration: exact\n    wheels:\n      track_width: 0.412\n"
+    for values in ({"limits.max_gap_s": 0.25, "wheels.gear_ratio": 2.0},
+                   {"wheels.gear_ratio": 2.0, "limits.max_gap_s": 0.25}):
+        updated = update_params_text(tail, values)
+        yaml.load(updated, Loader=_NoDuplicatesLoader)
+        assert parse_params_text(updated) == {"integration": "exact", "wheels.track_width": 0.412,
+                                              "wheels.gear_ratio": 2.0, "limits.max_gap_s": 0.25}

@@ -123,13 +123,16 @@ _SCALAR = re.compile(r"^(?P<indent>\s*)(?P<key>[A-Za-z0-9_]+):(?P<sp>\s*)(?P<val
 def update_params_text(text: str, values: Mapping[str, Any], header: str = "") -> str:
     """The parameters file ``text`` with only the given dotted names' values replaced.
 
-    Comments, order and everything else are kept; names absent from the file are appended under
-    the first ``ros__parameters`` block. ``header`` (plain text) becomes a comment block on top.
+    Comments, order and everything else are kept; a name absent from the file goes at the end of
+    its section when the file has that section (a second mapping of the same name would make YAML
+    drop one of them), otherwise it is appended under the last ``ros__parameters`` block.
+    ``header`` (plain text) becomes a comment block on top.
     """
     lines = text.splitlines()
     stack: list[tuple[int, str]] = []
     done: set[str] = set()
     params_indent: int | None = None
+    sections: dict[str, tuple[int, int]] = {}  # dotted name of a mapping -> (line index, indent)
     for i, line in enumerate(lines):
         if not line.strip() or line.lstrip().startswith("#"):
             continue
@@ -149,10 +152,10 @@ def update_params_text(text: str, values: Mapping[str, Any], header: str = "") -
         dotted = ".".join([k for _, k in stack[1:]] + [key])
         if m.group("value").strip() == "":
             stack.append((indent, key))
+            sections[dotted] = (i, indent)
             continue
         if dotted in values:
-            new = yaml.safe_dump(_plain(values[dotted]), default_flow_style=True).strip()
-            new = new.removesuffix("...").strip()
+            new = _flow(values[dotted])
             lines[i] = f"{m.group('indent')}{key}:{m.group('sp') or ' '}{new}{m.group('tail') or ''}"
             done.add(dotted)
     missing = {k: v for k, v in values.items() if k not in done}
@@ -160,12 +163,51 @@ def update_params_text(text: str, values: Mapping[str, Any], header: str = "") -
         if params_indent is None:
             raise SettingsError("the parameters file has no 'ros__parameters' block to update; start from "
                                 "config/wheel_dr.yaml.")
-        extra = yaml.safe_dump(_nest({k: _plain(v) for k, v in missing.items()}), sort_keys=False,
-                               default_flow_style=None)
-        pad = " " * (params_indent + 2)
-        lines += [pad + ln for ln in extra.splitlines()]
+        by_section: dict[str, dict[str, Any]] = {}
+        for name, value in missing.items():
+            parts = name.split(".")
+            owner = next((".".join(parts[:n]) for n in range(len(parts) - 1, 0, -1)
+                          if ".".join(parts[:n]) in sections), "")
+            by_section.setdefault(owner, {})[name[len(owner) + 1:] if owner else name] = value
+        inserts: list[tuple[int, int, list[str]]] = []  # (line index, 1 for new sections, lines)
+        for owner, sub in by_section.items():
+            extra = _tree_lines(_nest({k: _plain(v) for k, v in sub.items()}))
+            if not owner:
+                inserts.append((len(lines), 1, [" " * (params_indent + 2) + ln for ln in extra]))
+                continue
+            at, indent = sections[owner]
+            end, child = at, indent + 2
+            for j in range(at + 1, len(lines)):
+                body = lines[j].strip()
+                if not body or body.startswith("#"):
+                    continue
+                depth = len(lines[j]) - len(lines[j].lstrip())
+                if depth <= indent:
+                    break
+                child = depth if end == at else child
+                end = j
+            inserts.append((end + 1, 0, [" " * child + ln for ln in extra]))
+        # bottom up, so earlier indices stay valid; at one index new sections go after section ends
+        for at, _, new_lines in sorted(inserts, key=lambda item: item[:2], reverse=True):
+            lines[at:at] = new_lines
     head = [f"# {ln}".rstrip() for ln in header.splitlines()] if header else []
     return "\n".join(head + lines) + "\n"
+
+
+def _flow(value: Any) -> str:
+    """One value as YAML flow text (``0.4``, ``[0.1, 0.2]``, ``exact``)."""
+    return yaml.safe_dump(_plain(value), default_flow_style=True).strip().removesuffix("...").strip()
+
+
+def _tree_lines(tree: Mapping[str, Any]) -> list[str]:
+    """Lines of a nested mapping in the parameters file's style (block mappings, flow lists)."""
+    out: list[str] = []
+    for key, value in tree.items():
+        if isinstance(value, Mapping):
+            out += yaml.safe_dump({key: value}, sort_keys=False, default_flow_style=None).splitlines()
+        else:
+            out.append(f"{key}: {_flow(value)}")
+    return out
 
 
 def _plain(value: Any) -> Any:
