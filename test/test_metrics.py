@@ -8,12 +8,13 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from wheel_dr.analysis.consistency import chi2_bounds, mean_nees_bounds, nees
+from wheel_dr.analysis.consistency import chi2_bounds, mean_nees_bounds, nees, segment_covariance
 from wheel_dr.analysis.metrics import evaluate, rank, rpe_distance, slip_scores, step_noise_of
 from wheel_dr.analysis.path import PlanarPath
 from wheel_dr.core import JointSamples, Settings, run
 from wheel_dr.core.errors import InputError
 from wheel_dr.core.motion import body_increment, integrate
+from wheel_dr.core.noise import propagate_step
 
 # Demo-scenario geometry ("Quokka" cart; invented numbers, demo only).
 RADIUS_M = 0.0825
@@ -92,6 +93,27 @@ def test_nees_of_errors_drawn_from_the_covariance_is_chi_square_3() -> None:
     assert np.mean((over >= lo) & (over <= hi)) < 0.01
     # and a singular covariance gives NaN, not a number
     assert np.isnan(nees(np.ones((1, 3)), np.zeros((1, 3, 3))))[0]
+
+
+def test_segment_covariance_equals_the_recursion_restarted_at_each_start() -> None:
+    """The vectorised segment covariance equals iterating the core's P' = F P F^T + Q
+    (noise.propagate_step, first-order propagation, Siegwart et al. 2011 sec. 5.2.4) from zero at
+    each segment start, also far from the odom origin."""
+    rng = np.random.default_rng(2)
+    m = 400
+    theta = np.cumsum(rng.normal(0.0, 0.05, m))
+    x = 5000.0 + np.cumsum(0.02 * np.cos(theta))
+    y = -3000.0 + np.cumsum(0.02 * np.sin(theta))
+    a = rng.normal(size=(m, 3, 3)) * 1e-3
+    q = a @ np.swapaxes(a, 1, 2)
+    starts = np.array([0, 37, 120, 250])
+    ends = np.array([37, 100, 250, 399])
+    got = segment_covariance(x, y, q, starts, ends)
+    for k, (i, j) in enumerate(zip(starts, ends)):
+        p = np.zeros((3, 3))
+        for step in range(i + 1, j + 1):
+            p = propagate_step(p, x[step] - x[step - 1], y[step] - y[step - 1], q[step])
+        assert np.allclose(got[k], p, rtol=1e-9, atol=1e-15), k
 
 
 def test_segment_nees_of_the_real_estimator_is_consistent_when_its_noise_model_is_right() -> None:

@@ -51,7 +51,11 @@ def umeyama_se2(src_xy: np.ndarray, dst_xy: np.ndarray) -> tuple[np.ndarray, np.
 def apply_se2(rot: np.ndarray, t: np.ndarray, xy: np.ndarray,
               yaw_rad: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray | None]:
     """Map points (N, 2) and headings (N,) through x' = R x + t, yaw' = yaw + angle(R) (wrapped)."""
-    out_xy = np.asarray(xy, dtype=np.float64).reshape(-1, 2) @ np.asarray(rot).T + np.asarray(t)
+    p = np.asarray(xy, dtype=np.float64).reshape(-1, 2)
+    r = np.asarray(rot, dtype=np.float64)
+    out_xy = np.empty_like(p)          # written out: a (N, 2) @ (2, 2) product on a strided view is slow
+    out_xy[:, 0] = r[0, 0] * p[:, 0] + r[0, 1] * p[:, 1] + t[0]
+    out_xy[:, 1] = r[1, 0] * p[:, 0] + r[1, 1] * p[:, 1] + t[1]
     if yaw_rad is None:
         return out_xy, None
     angle = math.atan2(rot[1, 0], rot[0, 0])

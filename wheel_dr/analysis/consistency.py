@@ -14,9 +14,8 @@ import numpy as np
 from scipy import stats
 
 from ..core.motion import wrap_angle
-from ..core.noise import propagate_covariance
 
-__all__ = ["chi2_bounds", "mean_nees_bounds", "SegmentNees", "segment_nees", "nees"]
+__all__ = ["chi2_bounds", "mean_nees_bounds", "SegmentNees", "segment_nees", "segment_covariance", "nees"]
 
 
 def chi2_bounds(dof: int = 3, prob: float = 0.95) -> tuple[float, float]:
@@ -47,6 +46,51 @@ def nees(err: np.ndarray, cov: np.ndarray) -> np.ndarray:
         z = np.linalg.solve(chol, err[k])
         out[k] = float(z @ z)
     return out
+
+
+def segment_covariance(x_m: np.ndarray, y_m: np.ndarray, step_noise: np.ndarray, starts: np.ndarray,
+                       ends: np.ndarray) -> np.ndarray:
+    """Covariance (S, 3, 3) at sample ends[k] of the recursion P' = F P F^T + Q started from zero at
+    sample starts[k] (the core's propagation, ``noise.propagate_covariance``), for disjoint segments.
+
+    Uses the same closed form as the core: the product of the F's from step m to sample j is
+    I + c e3^T with c = (-(y_j - y_m), x_j - x_m, 0), so with a_m = (-(y_m - y_i), x_m - x_i, 0)
+    re-based at each segment's start (round-off stays at the segment's scale)
+    P = sum_m (I + (a_j - a_m) e3^T) Q_m (I + e3 (a_j - a_m)^T), evaluated by per-segment sums.
+    """
+    starts = np.asarray(starts, dtype=np.int64)
+    ends = np.asarray(ends, dtype=np.int64)
+    lens = ends - starts
+    if len(starts) == 0:
+        return np.zeros((0, 3, 3))
+    if np.any(lens < 1):
+        raise ValueError("every segment needs ends > starts")
+    offsets = np.concatenate(([0], np.cumsum(lens)[:-1]))
+    steps = np.arange(int(lens.sum())) - np.repeat(offsets, lens) + np.repeat(starts + 1, lens)
+    x = np.asarray(x_m, dtype=np.float64)
+    y = np.asarray(y_m, dtype=np.float64)
+    rx, ry = np.repeat(x[starts], lens), np.repeat(y[starts], lens)
+    a = np.zeros((len(steps), 3))
+    a[:, 0] = -(y[steps] - ry)
+    a[:, 1] = x[steps] - rx
+    qk = np.asarray(step_noise, dtype=np.float64)[steps]
+    qc = qk[:, :, 2]
+    sk = qk[:, 2, 2]
+    red = lambda v: np.add.reduceat(v, offsets, axis=0)  # noqa: E731
+    sum_q, sum_qc, sum_s = red(qk), red(qc), red(sk)
+    sum_sa = red(sk[:, None] * a)
+    sum_aq = red(a[:, :, None] * qc[:, None, :])
+    sum_saa = red(sk[:, None, None] * a[:, :, None] * a[:, None, :])
+    aj = np.zeros((len(starts), 3))
+    aj[:, 0] = -(y[ends] - y[starts])
+    aj[:, 1] = x[ends] - x[starts]
+    out = (sum_q
+           + aj[:, :, None] * sum_qc[:, None, :] - sum_aq
+           + sum_qc[:, :, None] * aj[:, None, :] - np.swapaxes(sum_aq, 1, 2)
+           + sum_s[:, None, None] * aj[:, :, None] * aj[:, None, :]
+           - aj[:, :, None] * sum_sa[:, None, :] - sum_sa[:, :, None] * aj[:, None, :]
+           + sum_saa)
+    return 0.5 * (out + np.swapaxes(out, 1, 2))
 
 
 @dataclass
@@ -92,11 +136,7 @@ def segment_nees(est_pose: np.ndarray, truth_pose: np.ndarray, step_noise: np.nd
     q = np.asarray(step_noise, dtype=np.float64)
     starts = np.asarray(starts, dtype=np.int64)
     ends = np.asarray(ends, dtype=np.int64)
-    s_count = len(starts)
-    covs = np.zeros((s_count, 3, 3))
-    for k, (i, j) in enumerate(zip(starts, ends)):
-        covs[k] = propagate_covariance(est[i + 1:j + 1, 0], est[i + 1:j + 1, 1], q[i + 1:j + 1],
-                                       None, (float(est[i, 0]), float(est[i, 1])))[-1]
+    covs = segment_covariance(est[:, 0], est[:, 1], q, starts, ends)
     r_est = _rot_z(-est[starts, 2])
     r_tru = _rot_z(-tru[starts, 2])
     d_est = est[ends] - est[starts]
