@@ -18,6 +18,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+from wheel_dr.core import motion
 from wheel_dr.core.motion import (SERIES_BELOW, chord_factor, increment_jacobian, increment_jacobian_scalar,
                                   pose_increment, pose_increment_scalar)
 from wheel_dr.core.noise import increment_noise, increment_noise_scalar, propagate_step
@@ -161,6 +162,27 @@ def test_chord_factor_precision_against_extended_precision() -> None:
     rel = np.abs((chord_factor(dth).astype(np.longdouble) - ref) / ref)
     assert float(rel.max()) < 4.5e-16, f"worst relative error {float(rel.max()):.3g}"
     assert chord_factor(np.array([0.0]))[0] == 1.0
+
+
+def test_chord_factor_derivative_against_extended_precision() -> None:
+    """d sinc(dth/2)/d dth against long double: exact series -h/6 + h^3/60 - h^5/1680 + h^7/90720
+    (from sin h / h = 1 - h^2/6 + h^4/120 - h^6/5040 + h^8/362880) for |h| < 0.05, the closed form
+    (h cos h - sin h)/(2 h^2) above. Absolute error below 1e-12: negligible beside the Jacobian's
+    order-one entries (near the switch the float64 closed form cancels to ~1e-8 relative)."""
+    dth = np.concatenate([np.logspace(-10, np.log10(6.0), 300), SWITCH * np.array([0.9999, 1.0001]),
+                          -np.logspace(-6, 0, 40)])
+    h = dth.astype(np.longdouble) / 2
+    series = -h / 6 + h**3 / 60 - h**5 / 1680 + h**7 / 90720
+    closed = (h * np.cos(h) - np.sin(h)) / (2 * h * h)
+    ref = np.where(np.abs(h) < 0.05, series, closed)
+    err = np.abs(motion.chord_factor_derivative(dth).astype(np.longdouble) - ref)
+    assert float(err.max()) < 1e-12, f"worst absolute error {float(err.max()):.3g}"
+    # the derivative is that of chord_factor (central differences in long double)
+    step = np.longdouble(1e-6)
+    big = np.abs(h) > 1e-2
+    hb = h[big]
+    fd = (np.sin(hb + step / 2) / (hb + step / 2) - np.sin(hb - step / 2) / (hb - step / 2)) / (2 * step)
+    assert np.allclose(motion.chord_factor_derivative(dth[big]), fd.astype(np.float64), rtol=1e-8, atol=0)
 
 
 @pytest.mark.parametrize("theta", [0.0, 0.7, -2.4, 3.1])

@@ -137,7 +137,7 @@ other_node:
         parse_params_text("/**: [unclosed\n")
 
 
-def test_update_params_text_keeps_comments_and_changes_only_given_values(tmp_path) -> None:
+def test_update_params_text_keeps_comments_and_changes_only_given_values() -> None:
     """update_params_text rewrites only the given values; comments, order and the rest stay."""
     original = CONFIG.read_text(encoding="utf-8")
     new_values = {"wheels.track_width": 0.4185, "wheels.left_radius": 0.0829, "noise.alphas": [0.1, 0.002, 0.02, 0.003],
