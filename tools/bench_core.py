@@ -2,6 +2,7 @@
 """Benchmark of the estimator core: batch ``run`` over one hour at 100 Hz, streaming ``step`` per sample.
 
 Usage: .venv/bin/python tools/bench_core.py [--samples 360000] [--stream-samples 36000] [--repeat 3]
+                                            [--slip on|off]
 
 The drive is the invented demo cart "Quokka" (radii 0.0829/0.0822 m, track 0.4185 m) turning
 gently for an hour; every integration scheme x noise model is timed. Figures are printed, not
@@ -34,10 +35,11 @@ def make_drive(n: int, rate_hz: float = 100.0) -> JointSamples:
     return JointSamples(stamp_ns, (LEFT, RIGHT), pos, np.column_stack([omega_l, omega_r]))
 
 
-def settings_for(scheme: str, model: str) -> Settings:
+def settings_for(scheme: str, model: str, slip: bool = True) -> Settings:
     return Settings.from_flat({"wheels.left_joints": [LEFT], "wheels.right_joints": [RIGHT],
                                "wheels.left_radius": 0.0829, "wheels.right_radius": 0.0822,
-                               "wheels.track_width": 0.4185, "integration": scheme, "noise.model": model})
+                               "wheels.track_width": 0.4185, "integration": scheme, "noise.model": model,
+                               "slip.enabled": slip})
 
 
 def bench_batch(samples: JointSamples, settings: Settings, repeat: int) -> float:
@@ -70,16 +72,18 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--samples", type=int, default=360_000, help="batch samples (default 1 h at 100 Hz)")
     parser.add_argument("--stream-samples", type=int, default=36_000, help="streaming samples per case")
     parser.add_argument("--repeat", type=int, default=3, help="batch repetitions (best is reported)")
+    parser.add_argument("--slip", choices=("on", "off"), default="on", help="run the slip detectors (default on)")
     args = parser.parse_args(argv)
     batch_drive = make_drive(args.samples)
     stream_drive = make_drive(args.stream_samples)
     print(f"wheel_dr core benchmark: batch run of {args.samples} samples ({args.samples / 100 / 3600:.2f} h at "
-          f"100 Hz, best of {args.repeat}); streaming step over {args.stream_samples} samples")
+          f"100 Hz, best of {args.repeat}); streaming step over {args.stream_samples} samples; "
+          f"slip detectors {args.slip}")
     print(f"{'scheme':<9} {'model':<13} {'batch s':>9} {'batch us/sample':>16} {'samples/s':>12} "
           f"{'stream us/step':>15}")
     for scheme in SCHEMES:
         for model in MODELS:
-            s = settings_for(scheme, model)
+            s = settings_for(scheme, model, args.slip == "on")
             batch_s = bench_batch(batch_drive, s, args.repeat)
             step_s = bench_stream(stream_drive, s)
             print(f"{scheme:<9} {model:<13} {batch_s:9.3f} {1e6 * batch_s / args.samples:16.3f} "
