@@ -98,10 +98,11 @@ def _scenarios():
     base = random_drive(41, duration_s=30.0, n_events=3)
     skid = random_drive(42, duration_s=30.0, n_events=3, joints_per_side=2, same_side_events=True)
     skid.gyro = False
-    spin = Drive([(2.0, 0.0, 0.0), (5.0, 0.7, 0.3), (1.0, 0.0, 0.0)],
+    spin = Drive([(2.0, 0.0, 0.0), (20.0, 0.7, 0.3), (2.0, 0.0, 0.0)],
                  events=[SlipEvent(4.0, 1.0, "left", "spin", 1.0, ramp_s=0.005)])
-    sudden = [SlipEvent(e.t0_s, e.duration_s, e.side, e.kind, e.ratio, ramp_s=0.005) for e in base.events]
-    no_imu = Drive(base.segments, sudden, gyro=False)
+    no_imu = Drive([(2.0, 0.0, 0.0), (20.0, 0.7, 0.3), (2.0, 0.0, 0.0)], gyro=False,
+                   events=[SlipEvent(4.0, 1.0, "left", "spin", 1.0, ramp_s=0.005),
+                           SlipEvent(12.0, 1.0, "right", "drag", 0.9, ramp_s=0.005)])
     return [("imu", base, {}), ("no_imu", no_imu, {}),
             ("skid", skid, {}), ("spin_inflate", spin, {"slip.response": "inflate"}),
             ("gyro_motion_model", base, {"slip.response": "gyro", "noise.model": "motion_model"}),

@@ -224,6 +224,8 @@ class SlipSettings:
     traction_mu: float = _p(0.5, "Friction coefficient for the traction check: a wheel accelerating faster "
                             "than mu g is slipping or glitching (rubber on dry indoor floors about 0.5 to "
                             "0.9, common practice).", "", 0.0, 5.0, lo_open=True)
+    traction_hold_s: float = _p(2.0, "A traction spike keeps its side flagged until a spike of the opposite "
+                                "sign (grip regained) or this long after the last spike.", "s", 0.0, 600.0)
     same_side_ratio: float = _p(0.25, "Wheels of one side whose speeds spread by more than this fraction of "
                                 "the side's mean speed disagree (slip ratio, common practice).", "", 0.0, 10.0,
                                 lo_open=True)

@@ -13,7 +13,7 @@ gap, encoder jump) is not evaluated. Every detector turns its statistic into a s
 (1 at its threshold) and runs its own latch: the flag sets once ``z > 1`` has held for
 ``slip.set_delay_s`` (debounce) and clears once ``z < slip.clear_fraction`` has held for
 ``slip.clear_delay_s`` (hysteresis); in between it keeps its state. Samples a detector cannot
-evaluate count as clear.
+evaluate count as clear. The traction detector latches differently (below).
 
 Detectors (bits of ``detector``):
 
@@ -35,7 +35,12 @@ Detectors (bits of ``detector``):
 * ``DETECTOR_TRACTION`` (2), traction plausibility: a wheel's surface acceleration (difference of
   window-mean speeds one window apart) beyond ``slip.traction_mu`` times standard gravity
   cannot come from rolling contact (common practice: a wheel cannot accelerate the base faster
-  than about mu g). Catches the onset of spinning and of dragging; runs without an IMU.
+  than about mu g). Such a spike (no debounce: the acceleration is
+  already a difference of window means) marks the onset of spinning (positive) or dragging
+  (negative); the side stays flagged until a spike of the opposite sign (the wheel taking grip
+  again) or until ``slip.traction_hold_s`` after the last spike of its own sign. Where the gyro
+  is read, a traction flag on one side only is dropped while the gyro detector has been clear for
+  ``slip.clear_delay_s`` (a one-sided slip would turn the wheels' heading). Runs without an IMU.
 * ``DETECTOR_SAME_SIDE`` (4), where a side has two or more joints: the spread of their window
   speeds over the side's mean speed (a slip ratio, common practice), against
   ``slip.same_side_ratio`` (speeds below ``slip.same_side_min_speed_mps`` count as that speed).
@@ -68,6 +73,7 @@ __all__ = [
     "SlipMonitor",
     "heading_increment_variance",
     "latch",
+    "traction_latch",
     "DETECTOR_GYRO",
     "DETECTOR_TRACTION",
     "DETECTOR_SAME_SIDE",
@@ -140,6 +146,7 @@ class _Constants:
         self.bias_samples = s.gyro_bias_samples
         self.still = s.still_speed_mps
         self.mu_g = s.traction_mu * STANDARD_GRAVITY_MPS2
+        self.hold_ns = int(round(s.traction_hold_s * 1e9))
         self.ss_ratio = s.same_side_ratio
         self.ss_min = s.same_side_min_speed_mps
         self.inflate = s.inflate_factor
@@ -197,6 +204,81 @@ def latch(score: np.ndarray, stamp_ns: np.ndarray, set_delay_ns: int, clear_dela
     off = _held(score < clear_fraction, stamp_ns, clear_delay_ns)
     last = np.maximum.accumulate(np.where(on | off, np.arange(m), -1))
     return np.where(last >= 0, on[np.maximum(last, 0)], False)
+
+
+def traction_latch(spike: np.ndarray, stamp_ns: np.ndarray, hold_ns: int) -> np.ndarray:
+    """Flag from a traction spike until a spike of the opposite sign or ``hold_ns`` after the last
+    spike of its own sign. ``spike`` is +1 / -1 where a spike is seen, else 0.
+
+    A run of equal spikes is one spike; the run that ends a slip cannot start the next one. When a
+    slip times out, an opposite spike within a further ``hold_ns`` is its late re-grip and starts
+    nothing. The loop visits runs only (few), not samples; ``_TractionLatch`` is the same rule per sample.
+    """
+    m = len(spike)
+    out = np.zeros(m, dtype=bool)
+    if m == 0:
+        return out
+    prev = np.concatenate(([0], spike[:-1]))
+    starts = np.flatnonzero((spike != 0) & (spike != prev))
+    ends = np.flatnonzero((spike != 0) & (spike != np.concatenate((spike[1:], [0]))))
+    sign, on_at, last_ns, expect, expect_until = 0, 0, 0, 0, 0
+    for a, e in zip(starts.tolist(), ends.tolist()):
+        sg = int(spike[a])
+        t_a = int(stamp_ns[a])
+        if sign != 0 and t_a - last_ns > hold_ns:               # timed out before this run
+            out[on_at:int(np.searchsorted(stamp_ns, last_ns + hold_ns, side="right"))] = True
+            sign, expect, expect_until = 0, -sign, last_ns + 2 * hold_ns
+        if expect != 0 and t_a > expect_until:
+            expect = 0
+        if sign == 0:
+            if sg == expect:                                    # late re-grip of a timed-out slip
+                expect = 0
+            else:
+                sign, on_at, last_ns, expect = sg, a, int(stamp_ns[e]), 0
+        elif sg == sign:
+            last_ns = int(stamp_ns[e])
+        else:                                                   # the wheel takes grip again
+            out[on_at:a] = True
+            sign = 0
+    if sign != 0:
+        out[on_at:int(np.searchsorted(stamp_ns, last_ns + hold_ns, side="right"))] = True
+    return out
+
+
+class _TractionLatch:
+    """Streaming twin of ``traction_latch``."""
+
+    __slots__ = ("_k", "_sign", "_last_ns", "_consumed", "_expect", "_expect_until")
+
+    def __init__(self, k: "_Constants") -> None:
+        self._k = k
+        self._sign = 0
+        self._last_ns = 0
+        self._consumed = 0
+        self._expect = 0
+        self._expect_until = 0
+
+    def update(self, signed_z: float, stamp_ns: int) -> bool:
+        hold = self._k.hold_ns
+        spike = 1 if signed_z > 1.0 else (-1 if signed_z < -1.0 else 0)
+        if self._sign != 0 and stamp_ns - self._last_ns > hold:
+            self._expect, self._expect_until = -self._sign, self._last_ns + 2 * hold
+            self._sign = 0
+        if self._expect != 0 and stamp_ns > self._expect_until:
+            self._expect = 0
+        if spike == 0 or spike != self._consumed:
+            self._consumed = 0
+        if spike != 0 and self._consumed == 0:
+            if self._sign == 0:
+                if spike == self._expect:
+                    self._consumed, self._expect = spike, 0
+                else:
+                    self._sign, self._last_ns, self._expect = spike, stamp_ns, 0
+            elif spike == self._sign:
+                self._last_ns = stamp_ns
+            else:
+                self._sign, self._consumed = 0, spike
+        return self._sign != 0
 
 
 class _Latch:
@@ -307,11 +389,17 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
     vb = np.where(clean, 0.5 * (vl + vr), 0.0)
     clean_b = has_b & clean[bnd]
 
-    # traction: |a| / (mu g) per joint, a = difference of window-mean speeds one window apart
+    # traction: a / (mu g) per joint, a = difference of window-mean speeds one window apart;
+    # per side the joint with the largest |a| (the first of equals)
     valid_a = clean & clean_b
-    za = np.where(valid_a[:, None], np.abs((vj - vj[bnd]) / safe[:, None]) / k.mu_g, 0.0)
-    zt_left = za[:, :nl].max(axis=1)
-    zt_right = za[:, nl:].max(axis=1)
+    za = np.where(valid_a[:, None], (vj - vj[bnd]) / safe[:, None] / k.mu_g, 0.0)
+
+    def side_extreme(part: np.ndarray) -> np.ndarray:
+        pick = np.argmax(np.abs(part), axis=1)
+        return np.take_along_axis(part, pick[:, None], axis=1)[:, 0]
+
+    st_left, st_right = side_extreme(za[:, :nl]), side_extreme(za[:, nl:])
+    zt_left, zt_right = np.abs(st_left), np.abs(st_right)
 
     # same side: spread / max(mean |v|, floor) / ratio
     def same_side(cols: range) -> np.ndarray:
@@ -348,7 +436,13 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
         return latch(z, stamp, k.set_ns, k.clear_ns, k.clear_fraction)
 
     on_g = lat(zg)
-    on_tl, on_tr = lat(zt_left), lat(zt_right)
+    def trac(signed: np.ndarray) -> np.ndarray:
+        return traction_latch(np.where(signed > 1.0, 1, np.where(signed < -1.0, -1, 0)), stamp, k.hold_ns)
+
+    on_tl, on_tr = trac(st_left), trac(st_right)
+    # a one-sided slip turns the wheels' heading: a gyro clearly quiet for clear_delay_s vetoes it
+    veto = _held(g_ok & (zg < k.clear_fraction), stamp, k.clear_ns) & ~(on_tl & on_tr)
+    on_tl, on_tr = on_tl & ~veto, on_tr & ~veto
     no = np.zeros(m, dtype=bool)
     on_sl = lat(zs_left) if zs_left is not None else no
     on_sr = lat(zs_right) if zs_right is not None else no
@@ -414,7 +508,8 @@ class SlipMonitor:
         self._still_count = 0
         self._still_totals: deque[float] = deque([0.0], maxlen=k.bias_samples + 1)
         self._q = 0.0
-        self._lat_g, self._lat_tl, self._lat_tr = _Latch(k), _Latch(k), _Latch(k)
+        self._quiet_since: int | None = None
+        self._lat_g, self._lat_tl, self._lat_tr = _Latch(k), _TractionLatch(k), _TractionLatch(k)
         self._lat_sl, self._lat_sr = _Latch(k), _Latch(k)
 
     def _c11_one(self, dl: float, dr: float) -> float:
@@ -501,11 +596,19 @@ class SlipMonitor:
 
         # traction
         if clean and clean_b:
-            za = [abs((vj[i] - bnd.vj[i]) / safe) / k.mu_g for i in range(nj)]
+            za = [(vj[i] - bnd.vj[i]) / safe / k.mu_g for i in range(nj)]
         else:
             za = [0.0] * nj
-        zt_left = max(za[:nl])
-        zt_right = max(za[nl:])
+
+        def side_extreme(part: list[float]) -> float:
+            best = part[0]
+            for x in part[1:]:
+                if abs(x) > abs(best):
+                    best = x
+            return best
+
+        st_left, st_right = side_extreme(za[:nl]), side_extreme(za[nl:])
+        zt_left, zt_right = abs(st_left), abs(st_right)
 
         # same side
         def same_side(lo: int, hi: int) -> float:
@@ -538,8 +641,15 @@ class SlipMonitor:
         gyro_left = abs(vr - wg * k.half_b - q) < abs(vl + wg * k.half_b - q)
 
         on_g = self._lat_g.update(zg, stamp)
-        on_tl = self._lat_tl.update(zt_left, stamp)
-        on_tr = self._lat_tr.update(zt_right, stamp)
+        on_tl = self._lat_tl.update(st_left, stamp)
+        on_tr = self._lat_tr.update(st_right, stamp)
+        if g_ok and zg < k.clear_fraction:
+            if self._quiet_since is None:
+                self._quiet_since = stamp
+        else:
+            self._quiet_since = None
+        if self._quiet_since is not None and stamp - self._quiet_since >= k.clear_ns and not (on_tl and on_tr):
+            on_tl = on_tr = False
         on_sl = self._lat_sl.update(zs_left, stamp) if zs_left is not None else False
         on_sr = self._lat_sr.update(zs_right, stamp) if zs_right is not None else False
         left = on_tl or on_sl or (on_g and gyro_left)
