@@ -106,14 +106,14 @@ def test_segment_covariance_equals_the_recursion_restarted_at_each_start() -> No
     y = -3000.0 + np.cumsum(0.02 * np.sin(theta))
     a = rng.normal(size=(m, 3, 3)) * 1e-3
     q = a @ np.swapaxes(a, 1, 2)
-    starts = np.array([0, 37, 120, 250])
-    ends = np.array([37, 100, 250, 399])
-    got = segment_covariance(x, y, q, starts, ends)
-    for k, (i, j) in enumerate(zip(starts, ends)):
-        p = np.zeros((3, 3))
-        for step in range(i + 1, j + 1):
-            p = propagate_step(p, x[step] - x[step - 1], y[step] - y[step - 1], q[step])
-        assert np.allclose(got[k], p, rtol=1e-9, atol=1e-15), k
+    for starts, ends in (([0, 37, 120, 250], [37, 100, 250, 399]),      # with gaps between segments
+                         ([3, 37, 100, 250], [37, 100, 250, 399])):     # tiling a range
+        got = segment_covariance(x, y, q, np.array(starts), np.array(ends))
+        for k, (i, j) in enumerate(zip(starts, ends)):
+            p = np.zeros((3, 3))
+            for step in range(i + 1, j + 1):
+                p = propagate_step(p, x[step] - x[step - 1], y[step] - y[step - 1], q[step])
+            assert np.allclose(got[k], p, rtol=1e-9, atol=1e-15), (starts, k)
 
 
 def test_segment_nees_of_the_real_estimator_is_consistent_when_its_noise_model_is_right() -> None:

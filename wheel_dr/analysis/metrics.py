@@ -314,9 +314,10 @@ def evaluate(traj: Trajectory, truth: PlanarPath, settings: Settings, slip_truth
         starts, ends = marks[:-1], marks[1:]
         csum = np.concatenate(([0], np.cumsum(restart)))
         clean = (csum[ends + 1] - csum[starts + 1]) == 0           # no restart in steps i+1..j
-        seg = segment_nees(est, tru, q, starts[clean], ends[clean])
-        dropped = int(np.count_nonzero(~clean)) + seg.dropped
-        values, seg_end = seg.value, seg.end
+        seg = segment_nees(est, tru, q, starts, ends)          # all (contiguous: fastest), then drop
+        keep = np.isin(seg.start, starts[clean])
+        values, seg_end = seg.value[keep], seg.end[keep]
+        dropped = int(len(starts) - len(values))               # restarts and non-positive covariances
     else:
         values, seg_end, dropped = np.zeros(0), np.zeros(0, dtype=np.int64), 0
     n_seg = len(values)
