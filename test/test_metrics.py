@@ -273,6 +273,20 @@ def test_truth_that_does_not_overlap_is_a_clear_error() -> None:
         evaluate(_HandTrajectory(truth.stamp_ns, truth.x_m, truth.y_m, truth.yaw_rad), late, Settings())
 
 
+def test_too_short_truth_and_bad_slip_intervals_are_clear_errors() -> None:
+    truth = _circle_truth()
+    est = _HandTrajectory(truth.stamp_ns, truth.x_m, truth.y_m, truth.yaw_rad)
+    one = PlanarPath(truth.stamp_ns[:1], truth.x_m[:1], truth.y_m[:1], truth.yaw_rad[:1])
+    with pytest.raises(InputError, match="too few to compare"):
+        evaluate(est, one, Settings())
+    with pytest.raises(InputError, match="ends before it starts"):
+        evaluate(est, truth, Settings(), slip_truth=np.array([[truth.stamp_ns[9], truth.stamp_ns[3]]]))
+    # slip truth given with no events: false flags are still scored
+    ev = evaluate(est, truth, Settings(), slip_truth=np.zeros((0, 2), dtype=np.int64))
+    assert ev.metrics["slip_truth"] == 1 and ev.metrics["slip_false_flag_frac"] == 0.0
+    assert ev.metrics["slip_events"] == 0 and math.isnan(ev.metrics["slip_recall"])
+
+
 def test_truth_covering_part_of_the_run_is_compared_there_only() -> None:
     """Interpolated truth (PlanarPath.interpolate) is NaN outside its span; only the overlap counts."""
     truth = _circle_truth()

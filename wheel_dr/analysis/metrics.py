@@ -212,7 +212,7 @@ def slip_scores(stamp_ns: np.ndarray, flags: np.ndarray, intervals_ns: np.ndarra
             latencies.append((t[lo + hit[0]] - s) * 1e-9)
     nan = float("nan")
     return {
-        "slip_truth": int(len(merged) > 0),
+        "slip_truth": 1,
         "slip_precision": tp / n_flag if n_flag else nan,
         "slip_recall": tp / n_true if n_true else nan,
         "slip_coverage_after_grace": float(np.count_nonzero(f & late)) / n_late if n_late else nan,
@@ -252,6 +252,14 @@ def evaluate(traj: Trajectory, truth: PlanarPath, settings: Settings, slip_truth
     """
     if len(traj) < 2:
         raise InputError("The estimate has fewer than 2 poses; check that the joint states were decoded.")
+    if len(truth) < 2:
+        raise InputError(f"Ground truth has {len(truth)} pose(s), too few to compare; record truth over the "
+                         "drive or choose the right truth topic.")
+    if slip_truth is not None:
+        slip_truth = np.asarray(slip_truth, dtype=np.int64).reshape(-1, 2) if np.size(slip_truth) else \
+            np.zeros((0, 2), dtype=np.int64)
+        if np.any(slip_truth[:, 1] < slip_truth[:, 0]):
+            raise InputError("A slip truth interval ends before it starts; give intervals as [start_ns, end_ns].")
     stamps = np.asarray(traj.stamp_ns, dtype=np.int64)
     at = truth.interpolate(stamps)
     valid = np.isfinite(at.x_m) & np.isfinite(at.y_m) & np.isfinite(at.yaw_rad)
