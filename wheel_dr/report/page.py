@@ -105,8 +105,8 @@ def _ranking_table(evals: Sequence[Evaluation], colours: dict[str, str], key: st
     for k, _, _ in RANK_COLUMNS:
         vals = [_num(e.metrics.get(k)) for e in evals]
         vals = [v for v in vals if math.isfinite(v)]
-        if not vals:
-            continue
+        if not vals or min(vals) == max(vals):
+            continue                    # nothing to single out when all agree
         if k == "nees_mean":
             best[k] = min(vals, key=lambda v: abs(v - 3.0))
         else:
@@ -159,8 +159,9 @@ def render_page(evaluations: Sequence[Evaluation], *, title: str = "wheel_dr com
     parts.append(f'<div class="caution"><strong>Caution.</strong> {html.escape(CAUTION_TEXT)}</div>')
     for n in notes:
         parts.append(f'<p class="note">{html.escape(n)}</p>')
+    key_title = {k: t for k, t, _ in RANK_COLUMNS}.get(rank_key, rank_key)
     parts.append(f'<section id="ranking"><h2>Ranking</h2><p class="note">Per recording, best first by '
-                 f'{html.escape(rank_key)}; the best value of each column in bold (NEES: closest to 3).</p>')
+                 f'{html.escape(key_title)}; the best value of each column in bold (NEES mean: closest to 3).</p>')
     for b in bags:
         group = [e for e in ordered if e.bag == b]
         m0 = group[0].metrics
