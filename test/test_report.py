@@ -73,6 +73,7 @@ class _PageParser(HTMLParser):
         self.sections: list[str] = []
         self.headings: list[str] = []
         self.rows: list[list[str]] = []
+        self.best_cells: list[tuple[int, int]] = []     # (row index, column index) of bold cells
         self._cell: list[str] | None = None
         self._row: list[str] | None = None
         self._heading: list[str] | None = None
@@ -91,6 +92,8 @@ class _PageParser(HTMLParser):
             self._row = []
         if tag in ("td", "th"):
             self._cell = []
+            if a.get("class") == "best":
+                self.best_cells.append((len(self.rows), len(self._row or [])))
 
     def handle_endtag(self, tag) -> None:
         if tag in ("h2", "h3") and self._heading is not None:
@@ -154,6 +157,12 @@ def test_ranking_table_lists_each_recording_best_first(page: Path, evaluations) 
     # the RPE column shows the metric rounded as formatted
     rpe_col = 2 + [t for _, t, _ in RANK_COLUMNS].index("RPE %")
     assert float(body[0][rpe_col]) == pytest.approx(rank(evaluations)[0].metrics["rpe_trans_pct"], abs=0.006)
+    # the best (lowest) RPE of each recording is bold: the first data row of each table
+    first_rows = [i for i, r in enumerate(parser.rows) if r and r[0] == "1"]
+    assert all((i, rpe_col) in parser.best_cells for i in first_rows)
+    # slip precision is the same for both settings (same hand-made flags): nothing singled out
+    p_col = 2 + [t for _, t, _ in RANK_COLUMNS].index("slip P")
+    assert not any(c == p_col for _, c in parser.best_cells)
 
 
 def test_summary_files_read_back_equal(tmp_path: Path, evaluations) -> None:
