@@ -38,13 +38,15 @@ def nees(err: np.ndarray, cov: np.ndarray) -> np.ndarray:
     err = np.asarray(err, dtype=np.float64)
     cov = np.asarray(cov, dtype=np.float64)
     out = np.full(len(err), np.nan)
-    for k in range(len(err)):
-        try:
-            chol = np.linalg.cholesky(cov[k])
-        except np.linalg.LinAlgError:
-            continue
-        z = np.linalg.solve(chol, err[k])
-        out[k] = float(z @ z)
+    if len(err) == 0:
+        return out
+    finite = np.all(np.isfinite(cov), axis=(1, 2)) & np.all(np.isfinite(err), axis=1)
+    sym = 0.5 * (cov + np.swapaxes(cov, 1, 2))
+    ok = finite.copy()
+    ok[finite] = np.linalg.eigvalsh(sym[finite])[:, 0] > 0.0          # positive definite
+    if ok.any():
+        z = np.linalg.solve(sym[ok], err[ok][..., None])[..., 0]
+        out[ok] = np.einsum("si,si->s", err[ok], z)
     return out
 
 
