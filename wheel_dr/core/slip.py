@@ -321,6 +321,14 @@ def _no_slip(m: int) -> SlipResult:
 # ------------------------------------------------------------------------------------------------
 # batch
 # ------------------------------------------------------------------------------------------------
+def _side_sum(w: np.ndarray, lo: int, hi: int) -> np.ndarray:
+    """Mean of columns lo..hi-1 by sequential additions (as the streaming form)."""
+    total = w[:, lo]
+    for c in range(lo + 1, hi):
+        total = total + w[:, c]
+    return total / (hi - lo)
+
+
 def _cum(x: np.ndarray) -> np.ndarray:
     """Running sum with a leading zero (sequential additions, as the streaming totals)."""
     out = np.zeros((len(x) + 1,) + x.shape[1:], dtype=x.dtype)
@@ -353,22 +361,23 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
     nj = joints.shape[1]
 
     # gyro and its bias (mean over the last N standing-still samples)
-    if gyro_z_radps is None:
-        avail = np.zeros(m, dtype=bool)
-        g = np.zeros(m)
-    else:
+    has_gyro = gyro_z_radps is not None
+    if has_gyro:
         g = np.asarray(gyro_z_radps, dtype=np.float64)
         avail = np.isfinite(g)
         g = np.where(avail, g, 0.0)
-    still = avail & ~restart & (np.abs(dl) <= k.still * dt) & (np.abs(dr) <= k.still * dt)
-    still_total = _cum(g[still])
-    count = np.cumsum(still)
-    n_used = np.minimum(count, k.bias_samples)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        bias = np.where(count >= BIAS_MIN_SAMPLES,
-                        (still_total[count] - still_total[count - n_used]) / np.maximum(n_used, 1), k.bias_prior)
-    gi = np.where(avail, (g - bias) * dt, 0.0)          # bias-corrected gyro heading increment
-    dth = (dr - dl) / k.b                               # wheel heading increment (as body_increment)
+        still = avail & ~restart & (np.abs(dl) <= k.still * dt) & (np.abs(dr) <= k.still * dt)
+        still_total = _cum(g[still])
+        count = np.cumsum(still)
+        n_used = np.minimum(count, k.bias_samples)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            bias = np.where(count >= BIAS_MIN_SAMPLES,
+                            (still_total[count] - still_total[count - n_used]) / np.maximum(n_used, 1),
+                            k.bias_prior)
+        gi = np.where(avail, (g - bias) * dt, 0.0)      # bias-corrected gyro heading increment
+    else:
+        avail = np.zeros(m, dtype=bool)
+        gi = np.zeros(m)
     c11 = _c11(dl, dr, k)
 
     # sliding windows (stamp_i in (t_k - window, t_k]) by running sums; boundary sample = j - 1
@@ -376,17 +385,25 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
     bnd = np.maximum(j - 1, 0)
     has_b = j >= 1
 
+    # window sums are differences of sequential running sums (gyro increments, C11, joints);
+    # a window is clean when no restart lies in it; its length is the stamp difference to the
+    # boundary sample, its sample count k - j + 1
     def win(x: np.ndarray) -> np.ndarray:
-        c = _cum(x)
+        c = np.empty(m + 1)
+        c[0] = 0.0
+        np.cumsum(x, out=c[1:])
         return c[1:] - c[j]
 
-    t_eff = win(dt)
-    clean = win(restart.astype(np.int64)) == 0
+    idx = np.arange(m)
+    clean = has_b & (np.maximum.accumulate(np.where(restart, idx, -1)) < j)
+    t_eff = (stamp - stamp[bnd]) * 1e-9
     safe = np.where(clean, t_eff, 1.0)
-    vj = np.where(clean[:, None], win(joints) / safe[:, None], 0.0)
-    vl = win(dl) / safe
-    vr = win(dr) / safe
-    vb = np.where(clean, 0.5 * (vl + vr), 0.0)
+    wj = np.column_stack([win(joints[:, c]) for c in range(nj)])
+    vj = np.where(clean[:, None], wj / safe[:, None], 0.0)
+    wl, wr = _side_sum(wj, 0, nl), _side_sum(wj, nl, nj)
+    vl = np.where(clean, wl / safe, 0.0)
+    vr = np.where(clean, wr / safe, 0.0)
+    vb = 0.5 * (vl + vr)
     clean_b = has_b & clean[bnd]
 
     # traction: a / (mu g) per joint, a = difference of window-mean speeds one window apart;
@@ -395,6 +412,8 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
     za = np.where(valid_a[:, None], (vj - vj[bnd]) / safe[:, None] / k.mu_g, 0.0)
 
     def side_extreme(part: np.ndarray) -> np.ndarray:
+        if part.shape[1] == 1:
+            return part[:, 0]
         pick = np.argmax(np.abs(part), axis=1)
         return np.take_along_axis(part, pick[:, None], axis=1)[:, 0]
 
@@ -415,34 +434,40 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
     zs_right = same_side(range(nl, nj)) if nj - nl >= 2 else None
 
     # gyro against wheels
-    miss = win((~avail).astype(np.int64))
-    g_ok = clean & (miss == 0)
-    dth_w = win(dth)
-    dth_g = win(gi)
-    d = dth_w - dth_g
-    var = win(c11) + k.gyro_var * win(dt * dt) + (k.rate_tol * t_eff) * (k.rate_tol * t_eff) \
-        + (k.scale_tol * dth_w) * (k.scale_tol * dth_w)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        zg = np.where(g_ok, np.abs(d) / np.sqrt(np.where(g_ok, var, 1.0) * k.gate), 0.0)
-    # side: keep the base speed seen while quiet (forward fill)
-    quiet = g_ok & clean_b & (zg < k.clear_fraction)
-    qi = np.maximum.accumulate(np.where(quiet, np.arange(m), -1))
-    q = np.where(qi >= 0, vb[bnd][np.maximum(qi, 0)], 0.0)
-    wg = dth_g / safe
-    gyro_left = np.abs(vr - wg * k.half_b - q) < np.abs(vl + wg * k.half_b - q)
+    if has_gyro:
+        g_ok = clean & (np.maximum.accumulate(np.where(avail, -1, idx)) < j)
+        dth_w = (wr - wl) / k.b
+        dth_g = win(gi)
+        d = dth_w - dth_g
+        n_win = (idx - j + 1).astype(np.float64)
+        var = win(c11) + k.gyro_var * (t_eff * t_eff / n_win) + (k.rate_tol * t_eff) * (k.rate_tol * t_eff) \
+            + (k.scale_tol * dth_w) * (k.scale_tol * dth_w)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            zg = np.where(g_ok, np.abs(d) / np.sqrt(np.where(g_ok, var, 1.0) * k.gate), 0.0)
+        # side: keep the base speed seen while quiet (forward fill)
+        quiet = g_ok & clean_b & (zg < k.clear_fraction)
+        qi = np.maximum.accumulate(np.where(quiet, np.arange(m), -1))
+        q = np.where(qi >= 0, vb[bnd][np.maximum(qi, 0)], 0.0)
+        wg = dth_g / safe
+        gyro_left = np.abs(vr - wg * k.half_b - q) < np.abs(vl + wg * k.half_b - q)
+    else:
+        g_ok = np.zeros(m, dtype=bool)
+        zg = np.zeros(m)
+        gyro_left = g_ok
 
     # latches
     def lat(z: np.ndarray) -> np.ndarray:
         return latch(z, stamp, k.set_ns, k.clear_ns, k.clear_fraction)
 
-    on_g = lat(zg)
+    on_g = lat(zg) if has_gyro else np.zeros(m, dtype=bool)
     def trac(signed: np.ndarray) -> np.ndarray:
         return traction_latch(np.where(signed > 1.0, 1, np.where(signed < -1.0, -1, 0)), stamp, k.hold_ns)
 
     on_tl, on_tr = trac(st_left), trac(st_right)
     # a one-sided slip turns the wheels' heading: a gyro clearly quiet for clear_delay_s vetoes it
-    veto = _held(g_ok & (zg < k.clear_fraction), stamp, k.clear_ns) & ~(on_tl & on_tr)
-    on_tl, on_tr = on_tl & ~veto, on_tr & ~veto
+    if has_gyro:
+        veto = _held(g_ok & (zg < k.clear_fraction), stamp, k.clear_ns) & ~(on_tl & on_tr)
+        on_tl, on_tr = on_tl & ~veto, on_tr & ~veto
     no = np.zeros(m, dtype=bool)
     on_sl = lat(zs_left) if zs_left is not None else no
     on_sr = lat(zs_right) if zs_right is not None else no
@@ -458,12 +483,12 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
         score = np.maximum(score, zs_right)
 
     result = SlipResult(flagged, left, right, detector, score,
-                        gyro_bias_radps=None if gyro_z_radps is None else bias)
+                        gyro_bias_radps=bias if has_gyro else None)
     if k.response == "inflate":
         result.noise_scale = np.where(flagged, k.inflate, 1.0)
     elif k.response == "gyro":
         sub = flagged & avail
-        result.dtheta_rad = np.where(sub, gi, dth)
+        result.dtheta_rad = np.where(sub, gi, (dr - dl) / k.b)   # else the wheels' (as body_increment)
         result.noise_scale = np.where(flagged & ~avail, k.inflate, 1.0)
     return result
 
@@ -471,6 +496,13 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
 # ------------------------------------------------------------------------------------------------
 # streaming
 # ------------------------------------------------------------------------------------------------
+def _side_sum_one(w: list[float], lo: int, hi: int) -> float:
+    total = w[lo]
+    for c in range(lo + 1, hi):
+        total = total + w[c]
+    return total / (hi - lo)
+
+
 class _Entry:
     """One sample in the window: stamp, running totals after it, and what the boundary needs."""
 
@@ -501,8 +533,7 @@ class SlipMonitor:
         nj = k.nl + k.nr
         self._nj = nj
         self._t_joints = [0.0] * nj
-        self._t_left = self._t_right = self._t_dt = 0.0
-        self._t_dth = self._t_gi = self._t_c11 = self._t_dt2 = 0.0
+        self._t_gi = self._t_c11 = 0.0
         self._t_restart = 0
         self._t_miss = 0
         self._still_count = 0
@@ -555,42 +586,36 @@ class SlipMonitor:
         else:
             bias = k.bias_prior
         gi = (g - bias) * dt if avail else 0.0
-        dth = (dr - dl) / k.b
         c11 = self._c11_one(dl, dr)
 
         # running totals, window
         tj = self._t_joints
         for i in range(nj):
             tj[i] = tj[i] + joints[i]
-        self._t_left += dl
-        self._t_right += dr
-        self._t_dt += dt
-        self._t_dth += dth
         self._t_gi += gi
         self._t_c11 += c11
-        self._t_dt2 += dt * dt
         self._t_restart += int(restart)
         self._t_miss += int(not avail)
-        entry = _Entry(stamp, (self._t_dt, self._t_left, self._t_right, self._t_dth, self._t_gi,
-                               self._t_c11, self._t_dt2, self._t_restart, self._t_miss), list(tj))
+        entry = _Entry(stamp, (self._t_gi, self._t_c11, self._t_restart, self._t_miss), list(tj))
         self._entries.append(entry)
         cutoff = stamp - k.window_ns
         while self._entries[0].stamp <= cutoff:
             self._boundary = self._entries.popleft()
         bnd = self._boundary
         if bnd is None:
-            b_tot = (0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0, 0)
-            b_joints = [0.0] * nj
+            b_tot, b_joints, b_stamp = (0.0, 0.0, 0, 0), [0.0] * nj, stamp
         else:
-            b_tot, b_joints = bnd.totals, bnd.joints
+            b_tot, b_joints, b_stamp = bnd.totals, bnd.joints, bnd.stamp
         now = entry.totals
-        t_eff = now[0] - b_tot[0]
-        clean = now[7] - b_tot[7] == 0
+        t_eff = (stamp - b_stamp) * 1e-9
+        clean = bnd is not None and now[2] - b_tot[2] == 0
         safe = t_eff if clean else 1.0
-        vj = [(tj[i] - b_joints[i]) / safe if clean else 0.0 for i in range(nj)]
-        vl = (now[1] - b_tot[1]) / safe
-        vr = (now[2] - b_tot[2]) / safe
-        vb = 0.5 * (vl + vr) if clean else 0.0
+        wj = [tj[i] - b_joints[i] for i in range(nj)]
+        vj = [wj[i] / safe if clean else 0.0 for i in range(nj)]
+        wl, wr = _side_sum_one(wj, 0, nl), _side_sum_one(wj, nl, nj)
+        vl = wl / safe if clean else 0.0
+        vr = wr / safe if clean else 0.0
+        vb = 0.5 * (vl + vr)
         entry.clean, entry.vj, entry.vb = clean, vj, vb
         clean_b = bnd is not None and bnd.clean
 
@@ -625,11 +650,12 @@ class SlipMonitor:
         zs_right = same_side(nl, nj) if nj - nl >= 2 else None
 
         # gyro against wheels
-        g_ok = clean and now[8] - b_tot[8] == 0
-        dth_w = now[3] - b_tot[3]
-        dth_g = now[4] - b_tot[4]
+        g_ok = clean and now[3] - b_tot[3] == 0
+        dth_w = (wr - wl) / k.b
+        dth_g = now[0] - b_tot[0]
         if g_ok:
-            var = (now[5] - b_tot[5]) + k.gyro_var * (now[6] - b_tot[6]) \
+            n_win = float(len(self._entries))
+            var = (now[1] - b_tot[1]) + k.gyro_var * (t_eff * t_eff / n_win) \
                 + (k.rate_tol * t_eff) * (k.rate_tol * t_eff) + (k.scale_tol * dth_w) * (k.scale_tol * dth_w)
             zg = abs(dth_w - dth_g) / math.sqrt(var * k.gate)  # var > 0: gyro noise > 0, window dt > 0
         else:
