@@ -9,7 +9,7 @@ import pytest
 from scipy import stats
 
 from wheel_dr.analysis.consistency import chi2_bounds, mean_nees_bounds, nees, segment_covariance
-from wheel_dr.analysis.metrics import evaluate, rank, rpe_distance, slip_scores, step_noise_of
+from wheel_dr.analysis.metrics import evaluate, rank, rpe_distance, slip_scores, slip_side_scores, step_noise_of
 from wheel_dr.analysis.path import PlanarPath
 from wheel_dr.core import JointSamples, Settings, run
 from wheel_dr.core.errors import InputError
@@ -153,6 +153,8 @@ def test_recorded_step_noise_equals_the_recomputed_one() -> None:
 class _FakeSlip:
     def __init__(self, n: int, flags: np.ndarray | None = None) -> None:
         self.slip = np.zeros(n, dtype=bool) if flags is None else flags
+        self.left = self.slip.copy()
+        self.right = np.zeros(n, dtype=bool)
         self.dtheta_rad = None
         self.noise_scale = None
 
@@ -330,6 +332,33 @@ def test_slip_scores_merge_overlapping_intervals_and_handle_no_flags() -> None:
     assert sc["slip_latency_max_s"] == 0.0 and sc["slip_false_flag_frac"] == 0.0
 
 
+def test_heading_error_left_by_each_slip_event() -> None:
+    """A heading error of 0.1 rad that builds up inside an event (and stays) is what the event leaves:
+    5.73 deg (= degrees(0.1)); a second event with no heading change leaves 0."""
+    truth = _circle_truth()
+    theta = truth.yaw_rad.copy()
+    theta[300:] += 0.1
+    theta[300:320] = truth.yaw_rad[300:320] + np.linspace(0.0, 0.1, 20)     # builds up over 20 samples
+    events = np.array([[truth.stamp_ns[295], truth.stamp_ns[330]], [truth.stamp_ns[800], truth.stamp_ns[900]]])
+    ev = evaluate(_HandTrajectory(truth.stamp_ns, truth.x_m, truth.y_m, theta), truth, Settings(), slip_truth=events)
+    assert math.isclose(ev.metrics["slip_heading_error_max_deg"], math.degrees(0.1), rel_tol=1e-9)
+    assert math.isclose(ev.metrics["slip_heading_error_mean_deg"], math.degrees(0.1) / 2, rel_tol=1e-9)
+
+
+def test_slip_side_scores_on_hand_made_flags() -> None:
+    stamp = np.arange(100, dtype=np.int64) * 10_000_000
+    events = np.array([[100_000_000, 190_000_000], [500_000_000, 590_000_000]])     # 10 samples each
+    left = np.zeros(100, dtype=bool)
+    right = np.zeros(100, dtype=bool)
+    left[10:20] = True                  # event 1 (left): 10 flagged, all by the left flag: correct
+    right[50:55] = True                 # event 2 (right): 5 by the right flag (correct), then 3 left only
+    left[55:58] = True
+    sc = slip_side_scores(stamp, left, right, events, ["left", "right"])
+    assert math.isclose(sc["slip_side_correct_frac"], (10 + 5) / (10 + 8))
+    with pytest.raises(InputError, match="one per interval"):
+        slip_side_scores(stamp, left, right, events, ["left"])
+
+
 def test_evaluate_scores_slip_and_serialises() -> None:
     truth = _circle_truth()
     flags = np.zeros(len(truth), dtype=bool)
@@ -337,6 +366,9 @@ def test_evaluate_scores_slip_and_serialises() -> None:
     ev = evaluate(_HandTrajectory(truth.stamp_ns, truth.x_m, truth.y_m, truth.yaw_rad, flags), truth, Settings(),
                   slip_truth=np.array([[truth.stamp_ns[100], truth.stamp_ns[199]]]), bag="b1", name="nominal")
     assert ev.metrics["slip_precision"] == 1.0 and ev.metrics["slip_recall"] == 1.0
+    sided = evaluate(_HandTrajectory(truth.stamp_ns, truth.x_m, truth.y_m, truth.yaw_rad, flags), truth, Settings(),
+                     slip_truth=np.array([[truth.stamp_ns[100], truth.stamp_ns[199]]]), slip_side=["right"])
+    assert sided.metrics["slip_side_correct_frac"] == 0.0      # the hand-made flags name the left side
     assert ev.series["flag_intervals_s"].shape == (1, 2)
     text = json.dumps(ev.to_dict(series=True), allow_nan=False)      # NaN become null
     back = json.loads(text)

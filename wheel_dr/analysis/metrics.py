@@ -25,7 +25,8 @@ from .align import anchor_first, apply_se2, umeyama_se2
 from .consistency import chi2_bounds, mean_nees_bounds, segment_nees
 from .path import PlanarPath
 
-__all__ = ["Evaluation", "evaluate", "rpe_distance", "slip_scores", "step_noise_of", "rank",
+__all__ = ["Evaluation", "evaluate", "rpe_distance", "slip_scores", "slip_heading_error", "slip_side_scores",
+           "step_noise_of", "rank",
            "DEFAULT_SEGMENT_LENGTHS_M"]
 
 DEFAULT_SEGMENT_LENGTHS_M = (1.0, 2.0, 5.0, 10.0)  # indoor bases: shorter than KITTI's 100-800 m
@@ -225,6 +226,48 @@ def slip_scores(stamp_ns: np.ndarray, flags: np.ndarray, intervals_ns: np.ndarra
     }
 
 
+def slip_heading_error(stamp_ns: np.ndarray, theta_est_rad: np.ndarray, theta_true_rad: np.ndarray,
+                       intervals_ns: np.ndarray) -> dict[str, float]:
+    """Heading error each slip event leaves: |wrap(dtheta_est - dtheta_true)| in degrees between the
+    last sample before the event's start and the last sample at or before its end (merged events;
+    events without a sample before them are skipped). With gyro substitution this should shrink
+    (issue 5 target: at least 5x smaller than without). Headings are unwrapped, radians."""
+    t = np.asarray(stamp_ns, dtype=np.int64)
+    merged = _merge_intervals(intervals_ns)
+    errs = []
+    for s, e in merged:
+        i = int(np.searchsorted(t, s, side="left")) - 1
+        j = int(np.searchsorted(t, e, side="right")) - 1
+        if i < 0 or j <= i:
+            continue
+        d = (theta_est_rad[j] - theta_est_rad[i]) - (theta_true_rad[j] - theta_true_rad[i])
+        errs.append(abs(float(wrap_angle(d))))
+    nan = float("nan")
+    return {"slip_heading_error_mean_deg": math.degrees(float(np.mean(errs))) if errs else nan,
+            "slip_heading_error_max_deg": math.degrees(float(np.max(errs))) if errs else nan}
+
+
+def slip_side_scores(stamp_ns: np.ndarray, left: np.ndarray, right: np.ndarray, intervals_ns: np.ndarray,
+                     sides: Sequence[str]) -> dict[str, float]:
+    """Share of flagged samples inside true events whose side flags match the event's side: 'left'
+    needs the left flag, 'right' the right flag, 'both' both (intervals not merged here)."""
+    t = np.asarray(stamp_ns, dtype=np.int64)
+    iv = np.asarray(intervals_ns, dtype=np.int64).reshape(-1, 2)
+    if len(sides) != len(iv):
+        raise InputError(f"Slip truth has {len(iv)} intervals but {len(sides)} side labels; give one per interval.")
+    hit = total = 0
+    for (s, e), side in zip(iv, sides):
+        lo, hi = np.searchsorted(t, s, side="left"), np.searchsorted(t, e, side="right")
+        lf, rf = left[lo:hi], right[lo:hi]
+        flagged = lf | rf
+        want = {"left": lf, "right": rf, "both": lf & rf}.get(str(side))
+        if want is None:
+            raise InputError(f"Slip side '{side}' is not one of left, right, both.")
+        total += int(np.count_nonzero(flagged))
+        hit += int(np.count_nonzero(flagged & want))
+    return {"slip_side_correct_frac": hit / total if total else float("nan")}
+
+
 def _flag_intervals_s(t_s: np.ndarray, flags: np.ndarray) -> np.ndarray:
     """Runs of True in ``flags`` as (F, 2) [first, last] times."""
     f = np.asarray(flags, dtype=bool)
@@ -239,7 +282,7 @@ def _flag_intervals_s(t_s: np.ndarray, flags: np.ndarray) -> np.ndarray:
 def evaluate(traj: Trajectory, truth: PlanarPath, settings: Settings, slip_truth: np.ndarray | None = None,
              segment_lengths_m: Sequence[float] = DEFAULT_SEGMENT_LENGTHS_M, *, bag: str = "", name: str = "",
              nees_segment_m: float = 2.0, slip_grace_s: float = 0.2, max_plot_points: int = 3000,
-             rpe_max_starts: int = 4000) -> Evaluation:
+             rpe_max_starts: int = 4000, slip_side: Sequence[str] | None = None) -> Evaluation:
     """Compare an estimator trajectory with ground truth (see the module docstring for sources).
 
     Truth is interpolated at the trajectory's stamps; samples outside its span are not compared.
@@ -248,7 +291,9 @@ def evaluate(traj: Trajectory, truth: PlanarPath, settings: Settings, slip_truth
     End-point drift: anchored end-point error over true distance travelled, in %. NEES: disjoint
     segments of ``nees_segment_m`` true distance, covariance restarted at each start; segments holding
     a chain restart (gap, jump) are dropped. Slip: ``slip_scores`` over all samples when
-    ``slip_truth`` (K, 2) ns intervals is given.
+    ``slip_truth`` (K, 2) ns intervals is given, the heading error each event leaves
+    (``slip_heading_error``) and, with ``slip_side`` (K,) 'left'/'right'/'both', the share of
+    flagged event samples that name the right side (``slip_side_scores``).
     """
     if len(traj) < 2:
         raise InputError("The estimate has fewer than 2 poses; check that the joint states were decoded.")
@@ -345,11 +390,19 @@ def evaluate(traj: Trajectory, truth: PlanarPath, settings: Settings, slip_truth
     flags_all = np.asarray(traj.slip.slip, dtype=bool)
     if slip_truth is not None:
         m.update(slip_scores(stamps, flags_all, np.asarray(slip_truth), slip_grace_s))
+        m.update(slip_heading_error(stamps[sl], est[:, 2], tru[:, 2], slip_truth))
+        if slip_side is not None:
+            m.update(slip_side_scores(stamps, np.asarray(traj.slip.left, dtype=bool),
+                                      np.asarray(traj.slip.right, dtype=bool), slip_truth, slip_side))
+        else:
+            m["slip_side_correct_frac"] = nan
     else:
         m.update({"slip_truth": 0, "slip_precision": nan, "slip_recall": nan, "slip_coverage_after_grace": nan,
                   "slip_false_flag_frac": nan, "slip_latency_mean_s": nan, "slip_latency_max_s": nan,
                   "slip_events": 0, "slip_events_detected": 0,
-                  "slip_flag_frac": float(np.mean(flags_all)) if len(flags_all) else nan})
+                  "slip_flag_frac": float(np.mean(flags_all)) if len(flags_all) else nan,
+                  "slip_heading_error_mean_deg": nan, "slip_heading_error_max_deg": nan,
+                  "slip_side_correct_frac": nan})
 
     # Series for the plots (decimated)
     stride = max(1, int(math.ceil(len(est) / max_plot_points)))

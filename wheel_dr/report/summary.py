@@ -27,6 +27,7 @@ RANK_COLUMNS: tuple[tuple[str, str, str], ...] = (
     ("slip_recall", "slip R", "{:.0%}"),
     ("slip_false_flag_frac", "false flags", "{:.1%}"),
     ("slip_latency_mean_s", "latency s", "{:.2f}"),
+    ("slip_heading_error_mean_deg", "slip yaw err deg", "{:.2f}"),
 )
 
 
