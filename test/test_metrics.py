@@ -289,6 +289,19 @@ def test_too_short_truth_and_bad_slip_intervals_are_clear_errors() -> None:
     assert ev.metrics["slip_events"] == 0 and math.isnan(ev.metrics["slip_recall"])
 
 
+def test_a_base_standing_still_gives_blank_relative_metrics_not_an_error() -> None:
+    """No travel: per-distance metrics are undefined (blank), the anchored ATE still measures creep."""
+    n = 200
+    stamp = T0_NS + np.arange(n, dtype=np.int64) * 10_000_000
+    truth = PlanarPath(stamp, np.zeros(n), np.zeros(n), np.zeros(n))
+    ev = evaluate(_HandTrajectory(stamp, np.linspace(0, 0.01, n), np.zeros(n), np.zeros(n)), truth, Settings())
+    for key in ("rpe_trans_pct", "drift_endpoint_pct", "ate_aligned_rmse_m", "nees_mean"):
+        assert math.isnan(ev.metrics[key]), key
+    assert ev.metrics["nees_segments"] == 0 and not ev.metrics["nees_consistent"]
+    assert math.isclose(ev.metrics["endpoint_error_m"], 0.01)
+    json.dumps(ev.to_dict(series=True), allow_nan=False)
+
+
 def test_truth_covering_part_of_the_run_is_compared_there_only() -> None:
     """Interpolated truth (PlanarPath.interpolate) is NaN outside its span; only the overlap counts."""
     truth = _circle_truth()
