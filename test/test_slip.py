@@ -33,8 +33,8 @@ def test_wheel_heading_variance_is_the_core_noise_models_c11(model, scheme):
 
 
 def test_default_gyro_gate_is_the_chi_square_quantile():
-    """Default gate = chi-square(1) 99.5 % quantile (scipy.stats.chi2, a reference library)."""
-    assert Settings().slip.gyro_gate == pytest.approx(chi2.ppf(0.995, 1), abs=0.005)
+    """Default gate = chi-square(1) 99 % quantile (scipy.stats.chi2, a reference library)."""
+    assert Settings().slip.gyro_gate == pytest.approx(chi2.ppf(0.99, 1), abs=0.005)
 
 
 def _reference_latch(score, stamp_ns, set_ns, clear_ns, fraction):

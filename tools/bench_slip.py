@@ -5,7 +5,9 @@ Prints, per scenario family, flag coverage of slip time after the first 0.2 s of
 fraction of non-slip time flagged (strict, and outside a 0.2 s tail after each event), the worst
 detection latency, the heading error over slip events without and with the gyro response, and
 the time of ``detect_slip`` on a 360,000-sample run. ``--tuning`` uses the seeds the defaults
-were chosen on (1-6); the default is the held-out seeds the tests assert on (101-108).
+were chosen on (1-6 and 101-108: the first held-out set, which showed misses at the sensitivity
+limit and moved the gate from the 99.5 % to the 99 % quantile); the default is the fresh
+held-out set the tests assert on (201-208).
 """
 from __future__ import annotations
 
@@ -23,8 +25,8 @@ from slip_scenarios import (Drive, SlipEvent, generate, noisy_gyro_drive, random
 from wheel_dr.core import run, wheel_travel  # noqa: E402
 from wheel_dr.core.slip import detect_slip  # noqa: E402
 
-TUNING_SEEDS = tuple(range(1, 7))
-HELD_OUT_SEEDS = tuple(range(101, 109))
+TUNING_SEEDS = tuple(range(1, 7)) + tuple(range(101, 109))
+HELD_OUT_SEEDS = tuple(range(201, 209))
 
 
 def heading_errors(gen, traj) -> np.ndarray:
@@ -118,7 +120,7 @@ def main() -> int:
     parser.add_argument("--tuning", action="store_true", help="use the seeds the defaults were chosen on")
     args = parser.parse_args()
     seeds = TUNING_SEEDS if args.tuning else HELD_OUT_SEEDS
-    print(f"seeds {seeds[0]}..{seeds[-1]} ({'tuning' if args.tuning else 'held out'}), default settings, "
+    print(f"seeds {', '.join(map(str, seeds))} ({'tuning' if args.tuning else 'held out'}), default settings, "
           "Quokka nominal geometry, 90 s rounds with 5 slip events each\n")
     family("with IMU (gyro, traction)", lambda sd: random_drive(sd), seeds)
     family("with IMU, sudden slips (5 ms onset)", lambda sd: sudden(sd, True), seeds)

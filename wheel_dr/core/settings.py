@@ -205,8 +205,8 @@ class SlipSettings:
     clear_fraction: float = _p(0.5, "Hysteresis: fraction of the threshold below which a detector counts as "
                                "clear (between it and 1 the flag keeps its state).", "", 0.0, 1.0,
                                lo_open=True, hi_open=True)
-    gyro_gate: float = _p(7.88, "Chi-square gate (1 degree of freedom) on the gyro-versus-wheels heading "
-                          "difference; 7.88 is the 99.5 % quantile.", "", 0.0, 1e6, lo_open=True)
+    gyro_gate: float = _p(6.63, "Chi-square gate (1 degree of freedom) on the gyro-versus-wheels heading "
+                          "difference; 6.63 is the 99 % quantile.", "", 0.0, 1e6, lo_open=True)
     gyro_noise_radps: float = _p(0.01, "Standard deviation of one gyro z-rate reading (white noise).", "rad/s",
                                  0.0, 10.0, lo_open=True)
     gyro_rate_tolerance_radps: float = _p(0.05, "Extra standard deviation of the gyro-wheel yaw-rate "
