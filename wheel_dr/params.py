@@ -226,6 +226,9 @@ def atomic_write_text(path: str | os.PathLike, text: str) -> None:
     try:
         with os.fdopen(fd, "w", encoding="utf-8") as fh:
             fh.write(text)
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes it private; give it the usual mode
         os.replace(tmp, p)
     except BaseException:
         Path(tmp).unlink(missing_ok=True)
