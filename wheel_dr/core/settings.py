@@ -198,6 +198,9 @@ class SlipSettings:
                        choices=("flag", "inflate", "gyro"))
     window_s: float = _p(0.1, "Sliding window over which wheel speeds and heading changes are compared "
                          "(smooths encoder and timing noise).", "s", 0.0, 5.0, lo_open=True)
+    long_window_s: float = _p(1.0, "Second, longer window of the gyro-versus-wheels test for mild sustained "
+                              "slips (counts while the short window points the same way); 0 turns it off.",
+                              "s", 0.0, 60.0)
     set_delay_s: float = _p(0.02, "Debounce: a detector's score must stay above 1 this long before its flag "
                             "sets.", "s", 0.0, 10.0)
     clear_delay_s: float = _p(0.06, "A detector's score must stay below slip.clear_fraction this long before "

@@ -80,6 +80,7 @@ __all__ = [
     "DETECTOR_NAMES",
     "STANDARD_GRAVITY_MPS2",
     "BIAS_MIN_SAMPLES",
+    "LONG_SHORT_SCORE",
 ]
 
 DETECTOR_GYRO = 1        # gyro z rate disagrees with the wheels' yaw rate (chi-square gate)
@@ -89,6 +90,7 @@ DETECTOR_NAMES = {DETECTOR_GYRO: "gyro", DETECTOR_TRACTION: "traction", DETECTOR
 
 STANDARD_GRAVITY_MPS2 = 9.80665  # standard acceleration of gravity (3rd CGPM, 1901)
 BIAS_MIN_SAMPLES = 10            # standing-still samples needed before the gyro bias estimate is used
+LONG_SHORT_SCORE = 0.25          # the long window counts while the short one's score is at least this
 
 
 @dataclass
@@ -147,6 +149,7 @@ class _Constants:
         self.still = s.still_speed_mps
         self.mu_g = s.traction_mu * STANDARD_GRAVITY_MPS2
         self.hold_ns = int(round(s.traction_hold_s * 1e9))
+        self.long_ns = int(round(s.long_window_s * 1e9))
         self.ss_ratio = s.same_side_ratio
         self.ss_min = s.same_side_min_speed_mps
         self.inflate = s.inflate_factor
@@ -388,17 +391,19 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
     # window sums are differences of sequential running sums (gyro increments, C11, joints);
     # a window is clean when no restart lies in it; its length is the stamp difference to the
     # boundary sample, its sample count k - j + 1
-    def win(x: np.ndarray) -> np.ndarray:
+    def cum(x: np.ndarray) -> np.ndarray:
         c = np.empty(m + 1)
         c[0] = 0.0
         np.cumsum(x, out=c[1:])
-        return c[1:] - c[j]
+        return c
 
     idx = np.arange(m)
-    clean = has_b & (np.maximum.accumulate(np.where(restart, idx, -1)) < j)
+    last_restart = np.maximum.accumulate(np.where(restart, idx, -1))
+    cum_joints = [cum(joints[:, c]) for c in range(nj)]
+    clean = has_b & (last_restart < j)
     t_eff = (stamp - stamp[bnd]) * 1e-9
     safe = np.where(clean, t_eff, 1.0)
-    wj = np.column_stack([win(joints[:, c]) for c in range(nj)])
+    wj = np.column_stack([c[1:] - c[j] for c in cum_joints])
     vj = np.where(clean[:, None], wj / safe[:, None], 0.0)
     wl, wr = _side_sum(wj, 0, nl), _side_sum(wj, nl, nj)
     vl = np.where(clean, wl / safe, 0.0)
@@ -433,17 +438,32 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
     zs_left = same_side(range(0, nl)) if nl >= 2 else None
     zs_right = same_side(range(nl, nj)) if nj - nl >= 2 else None
 
-    # gyro against wheels
+    # gyro against wheels, over the window and (for mild sustained slips) the long window
     if has_gyro:
-        g_ok = clean & (np.maximum.accumulate(np.where(avail, -1, idx)) < j)
-        dth_w = (wr - wl) / k.b
-        dth_g = win(gi)
-        d = dth_w - dth_g
-        n_win = (idx - j + 1).astype(np.float64)
-        var = win(c11) + k.gyro_var * (t_eff * t_eff / n_win) + (k.rate_tol * t_eff) * (k.rate_tol * t_eff) \
-            + (k.scale_tol * dth_w) * (k.scale_tol * dth_w)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            zg = np.where(g_ok, np.abs(d) / np.sqrt(np.where(g_ok, var, 1.0) * k.gate), 0.0)
+        last_miss = np.maximum.accumulate(np.where(avail, -1, idx))
+        cum_gi, cum_c11 = cum(gi), cum(c11)
+
+        def gyro_test(jw: np.ndarray, ok: np.ndarray, w_left: np.ndarray, w_right: np.ndarray):
+            t_w = (stamp - stamp[np.maximum(jw - 1, 0)]) * 1e-9
+            dth_w = (w_right - w_left) / k.b
+            dth_gw = cum_gi[1:] - cum_gi[jw]
+            d_w = dth_w - dth_gw
+            n_win = (idx - jw + 1).astype(np.float64)
+            var = (cum_c11[1:] - cum_c11[jw]) + k.gyro_var * (t_w * t_w / n_win) \
+                + (k.rate_tol * t_w) * (k.rate_tol * t_w) + (k.scale_tol * dth_w) * (k.scale_tol * dth_w)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                z = np.where(ok, np.abs(d_w) / np.sqrt(np.where(ok, var, 1.0) * k.gate), 0.0)
+            return z, d_w, dth_gw
+
+        g_ok = clean & (last_miss < j)
+        zg, d, dth_g = gyro_test(j, g_ok, wl, wr)
+        if k.long_ns > 0:
+            jl = np.searchsorted(stamp, stamp - k.long_ns, side="right")
+            ok_l = (jl >= 1) & (last_restart < jl) & (last_miss < jl)
+            wjl = np.column_stack([c[1:] - c[jl] for c in cum_joints])
+            zl, dl_w, _ = gyro_test(jl, ok_l, _side_sum(wjl, 0, nl), _side_sum(wjl, nl, nj))
+            agree = g_ok & (zg >= LONG_SHORT_SCORE) & ((d > 0.0) == (dl_w > 0.0))
+            zg = np.maximum(zg, np.where(agree, zl, 0.0))
         # side: keep the base speed seen while quiet (forward fill)
         quiet = g_ok & clean_b & (zg < k.clear_fraction)
         qi = np.maximum.accumulate(np.where(quiet, np.arange(m), -1))
@@ -530,6 +550,8 @@ class SlipMonitor:
         k = self._k
         self._entries: deque[_Entry] = deque()
         self._boundary: _Entry | None = None
+        self._lentries: deque[_Entry] = deque()
+        self._lboundary: _Entry | None = None
         nj = k.nl + k.nr
         self._nj = nj
         self._t_joints = [0.0] * nj
@@ -549,6 +571,19 @@ class SlipMonitor:
             b = k.b
             return (k.k_right * abs(dr) + k.k_left * abs(dl)) / (b * b)
         return float(_c11(np.array([dl]), np.array([dr]), k)[0])
+
+    def _gyro_test(self, ok: bool, stamp: int, b_stamp: int, now: tuple, b_tot: tuple, w_left: float,
+                   w_right: float, n: int) -> tuple[float, float, float]:
+        k = self._k
+        t_w = (stamp - b_stamp) * 1e-9
+        dth_w = (w_right - w_left) / k.b
+        dth_gw = now[0] - b_tot[0]
+        d_w = dth_w - dth_gw
+        if not ok:
+            return 0.0, d_w, dth_gw
+        var = (now[1] - b_tot[1]) + k.gyro_var * (t_w * t_w / float(n)) \
+            + (k.rate_tol * t_w) * (k.rate_tol * t_w) + (k.scale_tol * dth_w) * (k.scale_tol * dth_w)
+        return abs(d_w) / math.sqrt(var * k.gate), d_w, dth_gw   # var > 0: gyro noise > 0, window dt > 0
 
     def step(self, tracker: TravelTracker, status: SampleStatus, dt_s: float, ds_left_m: float,
              ds_right_m: float, gyro_z_radps: float | None) -> SlipStep:
@@ -601,6 +636,11 @@ class SlipMonitor:
         cutoff = stamp - k.window_ns
         while self._entries[0].stamp <= cutoff:
             self._boundary = self._entries.popleft()
+        if k.long_ns > 0:
+            self._lentries.append(entry)
+            cutoff_l = stamp - k.long_ns
+            while self._lentries[0].stamp <= cutoff_l:
+                self._lboundary = self._lentries.popleft()
         bnd = self._boundary
         if bnd is None:
             b_tot, b_joints, b_stamp = (0.0, 0.0, 0, 0), [0.0] * nj, stamp
@@ -649,17 +689,16 @@ class SlipMonitor:
         zs_left = same_side(0, nl) if nl >= 2 else None
         zs_right = same_side(nl, nj) if nj - nl >= 2 else None
 
-        # gyro against wheels
+        # gyro against wheels (window, long window)
         g_ok = clean and now[3] - b_tot[3] == 0
-        dth_w = (wr - wl) / k.b
-        dth_g = now[0] - b_tot[0]
-        if g_ok:
-            n_win = float(len(self._entries))
-            var = (now[1] - b_tot[1]) + k.gyro_var * (t_eff * t_eff / n_win) \
-                + (k.rate_tol * t_eff) * (k.rate_tol * t_eff) + (k.scale_tol * dth_w) * (k.scale_tol * dth_w)
-            zg = abs(dth_w - dth_g) / math.sqrt(var * k.gate)  # var > 0: gyro noise > 0, window dt > 0
-        else:
-            zg = 0.0
+        zg, d, dth_g = self._gyro_test(g_ok, stamp, b_stamp, now, b_tot, wl, wr, len(self._entries))
+        lb = self._lboundary
+        if k.long_ns > 0 and g_ok and lb is not None and now[2] - lb.totals[2] == 0 and now[3] - lb.totals[3] == 0:
+            wjl = [tj[i] - lb.joints[i] for i in range(nj)]
+            zl, dl_w, _ = self._gyro_test(True, stamp, lb.stamp, now, lb.totals, _side_sum_one(wjl, 0, nl),
+                                          _side_sum_one(wjl, nl, nj), len(self._lentries))
+            if zg >= LONG_SHORT_SCORE and (d > 0.0) == (dl_w > 0.0):
+                zg = max(zg, zl)
         if g_ok and clean_b and zg < k.clear_fraction:
             self._q = bnd.vb
         q = self._q
