@@ -1,0 +1,631 @@
+"""The wheel_dr runtime node: joint states (and an optional IMU) in; odometry, TF, slip flags and diagnostics out.
+
+A thin rclpy shell around ``wheel_dr.core.Estimator``: it converts messages to the core's inputs,
+calls ``Estimator.step`` once per joint-state message and publishes what the core computed.
+
+Interfaces (relative names follow the node's namespace and remaps):
+
+* subscribes ``joint_states`` (sensor_msgs/JointState, sensor-data QoS: best effort, depth 100)
+  and ``imu`` (sensor_msgs/Imu, optional: the latest z rate goes to the slip detectors);
+* publishes ``odom`` (nav_msgs/Odometry, frame ``frames.odom`` -> child ``frames.base``, stamped
+  with the joint-state stamp), ``/tf`` (tf2_msgs/TFMessage, when ``output.publish_tf``),
+  ``odom_flags`` (std_msgs/Float64MultiArray, one per joint-state sample, fields in
+  ``wheel_dr.ros.convert.FLAG_FIELDS``) and ``/diagnostics`` (diagnostic_msgs/DiagnosticArray
+  every ``output.diagnostics_period_s``);
+* service ``~/reset`` (std_srvs/Trigger): pose and covariance to zero;
+  topic ``~/reanchor`` (geometry_msgs/PoseWithCovarianceStamped in the odom frame): pose and
+  (x, y, yaw) covariance set to the given ones.
+
+Parameters are wheel_dr's settings under their dotted names (``wheels.track_width``, ...), declared
+with descriptions and ranges; a change at run time is validated by ``Settings.from_flat`` and either
+applied (``Estimator.update_settings``) or refused with the reason.
+
+Threads: the joint-state and IMU subscriptions are served by a dedicated wait loop in the main
+thread (one wait set with just those two subscriptions, the same primitive rclpy's own
+``wait_for_message`` uses), because the general executor rebuilds its wait set over every entity
+on each wake-up and costs more than the estimator at 1 kHz. Services, parameters, the re-anchor
+topic and the diagnostics timer run in a SingleThreadedExecutor on a second thread; a lock keeps
+the estimator consistent between the two.
+
+Caution: odometry, its covariance and the slip flags are advisory inputs to navigation, not a
+safety function; never use them in place of a safety-rated stop. Defer to local codes and the
+machine's safety assessment.
+"""
+from __future__ import annotations
+
+import math
+import os
+import signal
+import sys
+import threading
+import time
+from contextlib import ExitStack
+from typing import Any, Sequence
+
+import numpy as np
+
+from ..core.errors import InputError, SettingsError
+from ..core.estimator import Estimator
+from ..core.settings import Settings
+from ..core.wheels import RESTART_KINDS, SKIP_KINDS, SampleStatus
+from ..params import NODE_NAME
+from .convert import (OdometryFrame, flag_values, key_values, ns_to_sec_nanosec, parameter_descriptor,
+                      parameter_value, pose_from_msg, python_value)
+
+__all__ = ["OdometryNode", "main", "READ_ONLY_PARAMETERS", "LOG_THROTTLE_S", "ROS_OWNED_PREFIXES"]
+
+READ_ONLY_PARAMETERS = frozenset({"frames.odom", "frames.base"})  # TF consumers expect fixed frames
+LOG_THROTTLE_S = 5.0           # a kind of bad input is logged at most once per this many seconds
+JOINT_STATE_DEPTH = 100        # sensor-data QoS (best effort, volatile) with room for 100 ms at 1 kHz
+MAX_TAKE_PER_WAKE = 200        # messages taken per wake-up before the loop waits again
+WAIT_TIMEOUT_NS = 100_000_000  # the input loop checks for a stop request at least this often
+LATENCY_BIN_US = 1             # latency histogram resolution
+LATENCY_MAX_US = 50_000        # and range (longer latencies go to the last bin)
+# Parameters that belong to ROS 2 itself, not to wheel_dr's settings.
+ROS_OWNED_PREFIXES = ("use_sim_time", "qos_overrides.", "start_type_description_service")
+
+_SKIP_TEXT = {
+    SampleStatus.MALFORMED: "names, positions and velocities have different lengths",
+    SampleStatus.BAD_STAMP: "header stamp is zero or negative (the driver must stamp its joint states)",
+    SampleStatus.MISSING_JOINT: "a configured wheel joint is not in the message (check wheels.left_joints "
+                                "and wheels.right_joints against the driver's joint names)",
+    SampleStatus.NON_FINITE: "a needed position or velocity is NaN or infinite",
+    SampleStatus.STAMP_NOT_INCREASING: "the stamp repeats or goes backwards",
+    SampleStatus.GAP: "gap since the last sample exceeds limits.max_gap_s: increment dropped, chain restarts",
+    SampleStatus.JUMP: "a wheel speed exceeds limits.max_wheel_speed_mps (encoder jump or glitch): "
+                       "increment dropped, chain restarts",
+}
+
+
+def _is_ros_owned(name: str) -> bool:
+    """True for parameters of ROS 2 itself (sim time, QoS overrides), which the settings ignore."""
+    return any(name.startswith(p) if p.endswith(".") else name == p for p in ROS_OWNED_PREFIXES)
+
+
+class _LatencyStats:
+    """Receipt -> odom-publish latencies: the current period's list and a histogram since start (µs)."""
+
+    def __init__(self) -> None:
+        self.period: list[int] = []
+        self.hist = np.zeros(LATENCY_MAX_US // LATENCY_BIN_US + 1, dtype=np.int64)
+        self.max_ns = 0
+
+    def add(self, latency_ns: int) -> None:
+        self.period.append(latency_ns)
+
+    def roll(self) -> dict[str, float]:
+        """Fold the period into the histogram; return period and total p50/p99/max in µs."""
+        out: dict[str, float] = {}
+        period, self.period = self.period, []
+        if period:
+            arr = np.asarray(period, dtype=np.float64) * 1e-3
+            out["latency_p50_us"] = float(np.percentile(arr, 50))
+            out["latency_p99_us"] = float(np.percentile(arr, 99))
+            out["latency_max_us"] = float(arr.max())
+            idx = np.minimum((arr / LATENCY_BIN_US).astype(np.int64), len(self.hist) - 1)
+            np.add.at(self.hist, idx, 1)
+            self.max_ns = max(self.max_ns, max(period))
+        total = int(self.hist.sum())
+        if total:
+            cum = np.cumsum(self.hist)
+            out["latency_total_count"] = total
+            out["latency_total_p50_us"] = float(np.searchsorted(cum, 0.5 * total) * LATENCY_BIN_US)
+            out["latency_total_p99_us"] = float(np.searchsorted(cum, 0.99 * total) * LATENCY_BIN_US)
+            out["latency_total_max_us"] = self.max_ns * 1e-3
+        return out
+
+
+class OdometryNode:
+    """The node's state and callbacks around one rclpy Node (built by ``create``)."""
+
+    def __init__(self, node: Any, settings: Settings, tf_type: type | None, tf_problem: str | None) -> None:
+        from diagnostic_msgs.msg import DiagnosticArray
+        from geometry_msgs.msg import PoseWithCovarianceStamped
+        from nav_msgs.msg import Odometry
+        from rclpy.qos import QoSProfile, qos_profile_sensor_data
+        from sensor_msgs.msg import Imu, JointState
+        from std_msgs.msg import Float64MultiArray
+        from std_srvs.srv import Trigger
+
+        self.node = node
+        self.log = node.get_logger()
+        self.settings = settings
+        self.estimator = Estimator(settings)
+        self.lock = threading.Lock()
+        self._frame = OdometryFrame(settings.frames.odom, settings.frames.base, tf_type)
+        self._last_log: dict[str, float] = {}
+        self.received = 0
+        self.imu_received = 0
+        self.handler_errors = 0
+        self.reanchor_refused = 0
+        self._gyro_z: float | None = None
+        self._gyro_mono = -math.inf
+        self._period_received = 0
+        self._period_start = time.monotonic()
+        self._period_slip = 0
+        self._last_slip: tuple[int, float, int] | None = None  # stamp_ns, score, detector
+        self._period_skipped: dict[str, int] = {}
+        self._latency = _LatencyStats()
+
+        node.add_on_set_parameters_callback(self._on_set_parameters)
+        self.pub_odom = node.create_publisher(Odometry, "odom", 10)
+        self.pub_flags = node.create_publisher(Float64MultiArray, "odom_flags", 10)
+        self.pub_diag = node.create_publisher(DiagnosticArray, "/diagnostics", 10)
+        self.pub_tf = None
+        self.tf_problem = tf_problem
+        if tf_type is not None:
+            try:
+                self.pub_tf = node.create_publisher(tf_type, "/tf", QoSProfile(depth=100))
+            except Exception as exc:  # a broken type support: keep running without TF
+                self.tf_problem = f"{exc.__class__.__name__}: {exc}"
+                self._frame.tf = None
+        if self.tf_problem is not None:
+            self.log.warning(f"TF output disabled: tf2_msgs cannot be used in this process ({self.tf_problem}); "
+                             "odometry, flags and diagnostics are still published. On a robot, source the ROS 2 "
+                             "installation; with the venv, run `make tf-msgs` and `. tools/ros_env.sh`.")
+        self.srv_reset = node.create_service(Trigger, "~/reset", self._on_reset)
+        self.sub_reanchor = node.create_subscription(PoseWithCovarianceStamped, "~/reanchor",
+                                                     self._on_reanchor, 10)
+        self._diag_timer = node.create_timer(settings.output.diagnostics_period_s, self._on_diagnostics)
+
+        js_qos = QoSProfile(depth=JOINT_STATE_DEPTH, reliability=qos_profile_sensor_data.reliability,
+                            durability=qos_profile_sensor_data.durability,
+                            history=qos_profile_sensor_data.history)
+        self._input_group = _never_group()
+        self.sub_js = node.create_subscription(JointState, "joint_states", self._on_joint_state_cb, js_qos,
+                                               callback_group=self._input_group)
+        self.sub_imu = node.create_subscription(Imu, "imu", self._on_imu_cb, js_qos,
+                                                callback_group=self._input_group)
+        self._JointState = JointState
+        self._Imu = Imu
+        self._DiagnosticArray = DiagnosticArray
+        self.log.info(f"wheel_dr odometry: joint states on {self.sub_js.topic_name}, odometry on "
+                      f"{self.pub_odom.topic_name} ({settings.frames.odom} -> {settings.frames.base}), "
+                      f"TF {'on' if self.pub_tf is not None and settings.output.publish_tf else 'off'}.")
+
+    # -- logging ---------------------------------------------------------------------------------
+    def _throttled(self, key: str, level: str, text: str) -> None:
+        """Log ``text`` at most once per LOG_THROTTLE_S for each ``key``."""
+        now = time.monotonic()
+        if now - self._last_log.get(key, -math.inf) < LOG_THROTTLE_S:
+            return
+        self._last_log[key] = now
+        try:
+            # rclpy fixes the severity per call site, hence one call per level.
+            if level == "info":
+                self.log.info(text)
+            elif level == "warning":
+                self.log.warning(text)
+            else:
+                self.log.error(text)
+        except Exception:  # logging must never stop the node
+            pass
+
+    # -- inputs ----------------------------------------------------------------------------------
+    def _on_joint_state_cb(self, msg: Any, info: Any = None) -> None:
+        """Executor form of the joint-state input (used only when the dedicated loop is unavailable)."""
+        self.on_joint_state(msg, int(info["received_timestamp"]) if info else 0)
+
+    def _on_imu_cb(self, msg: Any, info: Any = None) -> None:
+        self.on_imu(msg)
+
+    def on_imu(self, msg: Any) -> None:
+        """Keep the latest gyro z rate (rad/s, IMU frame assumed aligned with the base z axis)."""
+        try:
+            self.imu_received += 1
+            wz = float(msg.angular_velocity.z)
+            # sensor_msgs/Imu: angular_velocity_covariance[0] == -1 means no angular velocity.
+            if msg.angular_velocity_covariance[0] == -1.0 or not math.isfinite(wz):
+                self._gyro_z = None
+                return
+            self._gyro_z = wz
+            self._gyro_mono = time.monotonic()
+        except Exception as exc:  # never die on a bad message
+            self.handler_errors += 1
+            self._throttled("imu_error", "warning", f"imu message could not be used ({exc.__class__.__name__}: "
+                                                    f"{exc}); it is ignored.")
+
+    def on_joint_state(self, msg: Any, received_ns: int) -> None:
+        """One joint-state message: estimator step, then odometry, TF and flags. Never raises."""
+        try:
+            self._joint_state(msg, received_ns or time.time_ns())
+        except Exception as exc:  # never die on a bad message
+            self.handler_errors += 1
+            self._throttled("handler_error", "error", f"joint_states message could not be processed "
+                                                      f"({exc.__class__.__name__}: {exc}); it is skipped.")
+
+    def _joint_state(self, msg: Any, received_ns: int) -> None:
+        self.received += 1
+        self._period_received += 1
+        stamp = msg.header.stamp
+        sec, nanosec = stamp.sec, stamp.nanosec
+        stamp_ns = sec * 1_000_000_000 + nanosec
+        gyro = self._gyro_z
+        frame = self._frame
+        with self.lock:
+            est = self.estimator
+            if gyro is not None and time.monotonic() - self._gyro_mono > self.settings.limits.max_gap_s:
+                gyro = None  # stale IMU
+            status = est.step(stamp_ns, msg.name, msg.position, msg.velocity, gyro)
+            if status < 10:
+                frame.fill(sec, nanosec, est.x_m, est.y_m, est.yaw_rad, est.cov, est.v_mps, est.w_radps,
+                           est.twist_cov)
+                self.pub_odom.publish(frame.odom)
+                self._latency.add(time.time_ns() - received_ns)
+                if frame.tf is not None and self.settings.output.publish_tf and self.pub_tf is not None:
+                    self.pub_tf.publish(frame.tf)
+                slip = est.last_slip
+                if slip is not None and slip.slip:
+                    self._period_slip += 1
+                    self._last_slip = (stamp_ns, float(slip.score), int(slip.detector))
+            else:
+                slip = None
+        frame.fill_flags(flag_values(sec, nanosec, int(status), slip))
+        self.pub_flags.publish(frame.flags)
+        if status != SampleStatus.USED and status != SampleStatus.CHAIN_START:
+            self._note_status(status)
+
+    def _note_status(self, status: SampleStatus) -> None:
+        kind = status.name.lower()
+        if status != SampleStatus.GAP:  # a gap (e.g. the driver paused) is not bad input
+            self._period_skipped[kind] = self._period_skipped.get(kind, 0) + 1
+        count = self.estimator.counters.get(kind, 0)
+        level = "info" if status == SampleStatus.GAP else "warning"
+        what = "skipped" if status in SKIP_KINDS else "accepted with restart"
+        self._throttled(kind, level, f"joint_states sample {what} ({kind}): {_SKIP_TEXT[status]}; "
+                                     f"{count} such samples so far (logged at most every {LOG_THROTTLE_S:g} s).")
+
+    # -- the dedicated input loop ---------------------------------------------------------------------
+    def spin_inputs(self, stop: threading.Event) -> None:
+        """Serve joint_states and imu until ``stop`` is set or the context shuts down (main thread)."""
+        from rclpy.guard_condition import GuardCondition
+        from rclpy.impl.implementation_singleton import rclpy_implementation as _rclpy
+
+        context = self.node.context
+        self._wake = GuardCondition(None, None, context=context)
+        js, imu = self.sub_js, self.sub_imu
+        JointState, Imu = self._JointState, self._Imu
+        with ExitStack() as stack:
+            stack.enter_context(js.handle)
+            stack.enter_context(imu.handle)
+            stack.enter_context(self._wake.handle)
+            wait_set = _rclpy.WaitSet(2, 1, 0, 0, 0, 0, context.handle)
+            take_js, take_imu = js.handle.take_message, imu.handle.take_message
+            while not stop.is_set() and context.ok():
+                wait_set.clear_entities()
+                wait_set.add_subscription(js.handle)
+                wait_set.add_subscription(imu.handle)
+                wait_set.add_guard_condition(self._wake.handle)
+                wait_set.wait(WAIT_TIMEOUT_NS)
+                for _ in range(MAX_TAKE_PER_WAKE):
+                    got = take_imu(Imu, False)
+                    if got is None:
+                        break
+                    self.on_imu(got[0])
+                for _ in range(MAX_TAKE_PER_WAKE):
+                    got = take_js(JointState, False)
+                    if got is None:
+                        break
+                    self.on_joint_state(got[0], int(got[1].get("received_timestamp", 0)))
+
+    def wake(self) -> None:
+        """Make the input loop look at its stop flag now."""
+        wake = getattr(self, "_wake", None)
+        if wake is not None:
+            wake.trigger()
+
+    # -- services and topics on the executor thread -------------------------------------------------
+    def _on_reset(self, request: Any, response: Any) -> Any:
+        try:
+            with self.lock:
+                self.estimator.reset()
+            response.success = True
+            response.message = "pose and covariance set to zero"
+            self.log.info("reset: pose and covariance set to zero.")
+        except Exception as exc:
+            response.success = False
+            response.message = f"reset failed ({exc.__class__.__name__}: {exc})"
+        return response
+
+    def _on_reanchor(self, msg: Any) -> None:
+        try:
+            pose, cov = pose_from_msg(msg, self.settings.frames.odom)
+            with self.lock:
+                self.estimator.reset(pose, cov)
+            self.log.info(f"re-anchored at x={pose[0]:.3f} m, y={pose[1]:.3f} m, yaw={pose[2]:.4f} rad.")
+        except InputError as exc:
+            self.reanchor_refused += 1
+            self._throttled("reanchor", "warning", f"re-anchor refused: {exc}")
+        except Exception as exc:
+            self.handler_errors += 1
+            self._throttled("reanchor_error", "error", f"re-anchor message could not be processed "
+                                                       f"({exc.__class__.__name__}: {exc}).")
+
+    def _on_set_parameters(self, params: Sequence[Any]) -> Any:
+        from rcl_interfaces.msg import SetParametersResult
+
+        try:
+            changes = {p.name: python_value(p.value) for p in params if not _is_ros_owned(p.name)}
+            if not changes:
+                return SetParametersResult(successful=True)
+            new = Settings.from_flat(changes, base=self.settings)
+        except SettingsError as exc:
+            self.log.warning(f"parameter change refused: {exc}")
+            return SetParametersResult(successful=False, reason=str(exc))
+        except Exception as exc:
+            return SetParametersResult(successful=False, reason=f"{exc.__class__.__name__}: {exc}")
+        old_period = self.settings.output.diagnostics_period_s
+        with self.lock:
+            self.settings = new
+            self.estimator.update_settings(new)
+            self._frame.set_frames(new.frames.odom, new.frames.base)
+        if new.output.diagnostics_period_s != old_period:
+            self._diag_timer.cancel()
+            self.node.destroy_timer(self._diag_timer)
+            self._diag_timer = self.node.create_timer(new.output.diagnostics_period_s, self._on_diagnostics)
+        self.log.info("settings changed: " + ", ".join(f"{k}={v!r}" for k, v in changes.items()))
+        return SetParametersResult(successful=True)
+
+    def diagnostics_status(self) -> tuple[int, str, dict[str, Any]]:
+        """(level, message, values) of the current diagnostics status (0 OK, 1 WARN)."""
+        now = time.monotonic()
+        with self.lock:
+            counters = dict(self.estimator.counters)
+            settings = self.settings
+            pose = self.estimator.pose
+            period_received, self._period_received = self._period_received, 0
+            period_slip, self._period_slip = self._period_slip, 0
+            period_skipped, self._period_skipped = self._period_skipped, {}
+            latency = self._latency.roll()
+            last_slip = self._last_slip
+            slipping = bool(self.estimator.last_slip is not None and self.estimator.last_slip.slip)
+        elapsed = max(now - self._period_start, 1e-9)
+        self._period_start = now
+        skipped = {s.name.lower(): counters.get(s.name.lower(), 0) for s in SKIP_KINDS}
+        restarts = {s.name.lower(): counters.get(s.name.lower(), 0) for s in RESTART_KINDS}
+        values: dict[str, Any] = {
+            "input_rate_hz": period_received / elapsed,
+            "received": self.received,
+            "used": counters.get("used", 0),
+            "skipped": sum(skipped.values()),
+            **{f"skipped.{k}": v for k, v in skipped.items()},
+            "chain_restarts": sum(restarts.values()),
+            **{f"restart.{k}": v for k, v in restarts.items()},
+            "slipping": slipping,
+            "slip_samples_in_period": period_slip,
+            "last_slip_stamp_s": "none" if last_slip is None else f"{last_slip[0] * 1e-9:.9f}",
+            "last_slip_score": "none" if last_slip is None else last_slip[1],
+            "last_slip_detector": "none" if last_slip is None else last_slip[2],
+            "imu_received": self.imu_received,
+            "handler_errors": self.handler_errors,
+            "reanchor_refused": self.reanchor_refused,
+            "tf": "on" if (self.pub_tf is not None and settings.output.publish_tf) else
+                  ("unavailable" if self.pub_tf is None else "off"),
+            "x_m": pose[0], "y_m": pose[1], "yaw_rad": pose[2],
+            **latency,
+            **{f"param.{k}": v for k, v in settings.to_flat().items()},
+        }
+        problems = []
+        if period_slip or slipping:
+            problems.append(f"wheel slip flagged ({period_slip} samples this period)")
+        if period_received == 0:
+            problems.append("no joint states received")
+        if period_skipped:
+            problems.append("bad input: " + ", ".join(f"{v} {k}" for k, v in sorted(period_skipped.items())))
+        level = 1 if problems else 0
+        message = "; ".join(problems) if problems else "odometry running"
+        return level, message, values
+
+    def _on_diagnostics(self) -> None:
+        from diagnostic_msgs.msg import DiagnosticStatus
+
+        try:
+            level, message, values = self.diagnostics_status()
+            status = DiagnosticStatus(level=bytes([level]), name=f"{self.node.get_fully_qualified_name()}: odometry",
+                                      message=message, hardware_id=self.settings.frames.base,
+                                      values=key_values(values))
+            arr = self._DiagnosticArray()
+            arr.header.stamp = self.node.get_clock().now().to_msg()
+            arr.status = [status]
+            self.pub_diag.publish(arr)
+        except Exception as exc:
+            self.handler_errors += 1
+            self._throttled("diag_error", "error", f"diagnostics could not be published "
+                                                   f"({exc.__class__.__name__}: {exc}).")
+
+
+def _never_group() -> Any:
+    """A callback group the executor never serves: its entities are served by the input loop."""
+    from rclpy.callback_groups import CallbackGroup
+
+    class _DedicatedLoopGroup(CallbackGroup):
+        def can_execute(self, entity: Any) -> bool:
+            return False
+
+        def beginning_execution(self, entity: Any) -> bool:
+            return False
+
+        def ending_execution(self, entity: Any) -> None:
+            return None
+
+    return _DedicatedLoopGroup()
+
+
+def _settings_from_overrides(overrides: dict[str, Any]) -> Settings:
+    """Validated settings from the node's parameter overrides (params files and -p)."""
+    values = {name: python_value(p.value) for name, p in overrides.items() if not _is_ros_owned(name)}
+    return Settings.from_flat(values)
+
+
+def create(node_name: str = NODE_NAME) -> OdometryNode:
+    """Build the rclpy node, declare the parameters and start the outputs (rclpy must be initialised).
+
+    Raises SettingsError (one sentence) when the parameters given are invalid.
+    """
+    from rclpy.node import Node
+
+    node = Node(node_name, start_parameter_services=True)
+    try:
+        settings = _settings_from_overrides(dict(node._parameter_overrides))
+        flat = settings.to_flat()
+        for spec in Settings.specs():
+            node.declare_parameter(spec.name, parameter_value(flat[spec.name]),
+                                   parameter_descriptor(spec, read_only=spec.name in READ_ONLY_PARAMETERS),
+                                   ignore_override=True)
+        tf_type, tf_problem = _tf_message_type()
+        return OdometryNode(node, settings, tf_type, tf_problem)
+    except BaseException:
+        node.destroy_node()
+        raise
+
+
+def _tf_message_type() -> tuple[type | None, str | None]:
+    """tf2_msgs.msg.TFMessage with its type support loaded, or (None, reason)."""
+    try:
+        from tf2_msgs.msg import TFMessage
+
+        TFMessage.__class__.__import_type_support__()
+        if getattr(TFMessage, "_TYPE_SUPPORT", None) is None:
+            return None, "its type support did not load"
+        return TFMessage, None
+    except Exception as exc:
+        return None, f"{exc.__class__.__name__}: {exc}"
+
+
+# --- command line ---------------------------------------------------------------------------------
+_USAGE = """usage: wheel_dr_node [--ros-args --params-file FILE [-r joint_states:=TOPIC] [-r __ns:=/NS]
+                     [-p use_sim_time:=true] [-p wheels.track_width:=0.41 ...]]
+
+Wheel odometry node of wheel_dr: subscribes joint_states (and imu), publishes odom, /tf,
+odom_flags and /diagnostics; service ~/reset, topic ~/reanchor. See the README.
+Odometry and slip flags are not a safety function."""
+
+
+def _ros_args_params_files(argv: Sequence[str]) -> list[str]:
+    """The --params-file paths among the ROS arguments of ``argv``."""
+    out: list[str] = []
+    in_ros = False
+    it = iter(argv[1:])
+    for arg in it:
+        if arg == "--ros-args":
+            in_ros = True
+        elif arg == "--":
+            in_ros = False
+        elif in_ros and arg == "--params-file":
+            path = next(it, None)
+            if path is not None:
+                out.append(path)
+    return out
+
+
+def _precheck_params_files(argv: Sequence[str]) -> str | None:
+    """One sentence about the first params file that does not exist or is not valid YAML, else None."""
+    import yaml
+
+    for path in _ros_args_params_files(argv):
+        if not os.path.isfile(path):
+            return f"parameters file '{path}' does not exist; give the path of a YAML file such as config/wheel_dr.yaml."
+        try:
+            with open(path, encoding="utf-8") as fh:
+                yaml.safe_load(fh)
+        except (OSError, UnicodeDecodeError) as exc:
+            return f"parameters file '{path}' cannot be read ({exc.__class__.__name__}); check its permissions."
+        except yaml.YAMLError as exc:
+            mark = getattr(exc, "problem_mark", None)
+            where = f" at line {mark.line + 1}" if mark is not None else ""
+            return f"parameters file '{path}' is not valid YAML{where}; fix its syntax."
+    return None
+
+
+def _fail(text: str) -> int:
+    print(f"wheel_dr_node: {text}", file=sys.stderr, flush=True)
+    return 2
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Run the node until SIGINT or SIGTERM; exit 0 then, 2 on invalid parameters or arguments."""
+    argv = list(sys.argv if argv is None else argv)
+    stop = threading.Event()
+    holder: dict[str, OdometryNode] = {}
+
+    def on_signal(signum: int, frame: Any) -> None:
+        stop.set()
+        if "node" in holder:
+            holder["node"].wake()
+
+    signal.signal(signal.SIGINT, on_signal)
+    signal.signal(signal.SIGTERM, on_signal)
+    try:
+        return _main(argv, stop, holder)
+    except KeyboardInterrupt:
+        return 0
+
+
+def _main(argv: list[str], stop: threading.Event, holder: dict[str, OdometryNode]) -> int:
+    problem = _precheck_params_files(argv)
+    if problem:
+        return _fail(problem)
+    import rclpy
+    from rclpy.executors import ExternalShutdownException, SingleThreadedExecutor
+    from rclpy.signals import SignalHandlerOptions
+    from rclpy.utilities import remove_ros_args
+
+    try:
+        rest = remove_ros_args(args=argv)[1:]
+    except Exception as exc:
+        return _fail(f"the ROS arguments cannot be parsed ({str(exc).splitlines()[0]}); check --ros-args.")
+    if rest:
+        if rest[0] in ("-h", "--help"):
+            print(_USAGE)
+            return 0
+        return _fail(f"unexpected argument '{rest[0]}'; put ROS arguments after --ros-args (see --help).")
+    try:
+        rclpy.init(args=argv, signal_handler_options=SignalHandlerOptions.NO)
+    except Exception as exc:
+        first = (str(exc).strip().splitlines() or [exc.__class__.__name__])[0]
+        return _fail(f"ROS 2 could not start with these arguments ({first}); check --ros-args and the "
+                     "parameters file.")
+    executor = None
+    thread = None
+    try:
+        try:
+            odo = create()
+        except SettingsError as exc:
+            return _fail(str(exc))
+        holder["node"] = odo
+        executor = SingleThreadedExecutor()
+        executor.add_node(odo.node)
+
+        def spin_executor() -> None:
+            try:
+                while not stop.is_set():
+                    executor.spin_once(timeout_sec=0.2)
+            except (ExternalShutdownException, KeyboardInterrupt):
+                pass
+            except Exception as exc:  # report and stop the whole node rather than run half of it
+                odo.log.error(f"executor stopped ({exc.__class__.__name__}: {exc}); shutting down.")
+                stop.set()
+                odo.wake()
+
+        thread = threading.Thread(target=spin_executor, name="wheel_dr_executor", daemon=True)
+        thread.start()
+        if stop.is_set():
+            return 0
+        odo.spin_inputs(stop)
+        return 0
+    finally:
+        stop.set()
+        if thread is not None:
+            thread.join(timeout=2.0)
+        if executor is not None:
+            executor.shutdown(timeout_sec=1.0)
+        if "node" in holder:
+            try:
+                holder["node"].node.destroy_node()
+            except Exception:
+                pass
+        rclpy.try_shutdown()
+
+
+if __name__ == "__main__":
+    sys.exit(main())
