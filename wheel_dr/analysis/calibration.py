@@ -338,11 +338,16 @@ def geometry_of(settings: Settings) -> np.ndarray:
 
 
 def _combine(basis: np.ndarray, theta: np.ndarray, extra: np.ndarray | None = None) -> np.ndarray:
+    """sum_a theta_a basis[:, a] (+ extra), made positive definite: eigenvalues are floored at 1e-9 of
+    the largest (and at ``_MIN_VARIANCE``) so that round-off never leaves a segment without a whitener."""
     cov = np.einsum("sa,sakl->skl", np.broadcast_to(theta, basis.shape[:2]), basis)
     if extra is not None:
         cov = cov + extra
-    scale = np.maximum(np.trace(cov, axis1=1, axis2=2) / 3.0, 0.0)
-    return cov + (_MIN_VARIANCE + 1e-12 * scale)[:, None, None] * np.eye(3)
+    cov = 0.5 * (cov + np.swapaxes(cov, 1, 2))
+    lam, vec = np.linalg.eigh(cov)
+    floor = np.maximum(lam[:, -1:] * 1e-9, _MIN_VARIANCE)
+    lam = np.maximum(lam, floor)
+    return (vec * lam[:, None, :]) @ np.swapaxes(vec, 1, 2)
 
 
 def _nees(err: np.ndarray, cov: np.ndarray) -> np.ndarray:

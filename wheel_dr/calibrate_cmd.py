@@ -1,0 +1,414 @@
+"""The ``wheel-dr calibrate`` subcommand: fit radii, track and noise from bags, or run the UMBmark square test.
+
+Shell only: it reads bags and files, calls wheel_dr.analysis.calibration / umbmark, prints tables
+and writes the tuned parameters file (same structure and names as the input, only fitted values
+changed, ``wheel_dr.params.update_params_text``). Errors a user can cause are one sentence, exit 2.
+
+Caution: wheel odometry and its covariance are not a safety function; test a tuned file in a clear
+area with an emergency stop at hand and defer to the machine's safety assessment.
+"""
+from __future__ import annotations
+
+import argparse
+import datetime as _dt
+import math
+import sys
+from pathlib import Path
+from typing import Sequence
+
+import numpy as np
+
+from .analysis.calibration import (GEOMETRY_NAMES, CalibrationError, CalibrationResult, CalibrationRun,
+                                   RunFigures, TruthError, calibrate, prepare_run)
+from .analysis.path import PlanarPath
+from .analysis.umbmark import (CSV_COLUMNS, corrected_geometry, parse_square_csv, refine, simulate_square_test,
+                               square_csv_text, umbmark)
+from .core.conventions import quaternion_to_yaw
+from .core.errors import InputError, WheelDrError
+from .core.settings import NOISE_MODELS, Settings
+from .core.wheels import JointSamples
+from .params import atomic_write_text, parse_params_text, update_params_text, write_params_text
+
+__all__ = ["add_parser", "run_calibrate", "main", "load_bag", "default_params_text", "SAFETY_NOTE"]
+
+SAFETY_NOTE = ("Caution: odometry, its covariance and slip flags are not safety functions; try the tuned file in a "
+               "clear area with an emergency stop at hand and defer to the machine's safety assessment.")
+JOINT_STATE = "sensor_msgs/msg/JointState"
+POSE_TYPES = ("nav_msgs/msg/Odometry", "geometry_msgs/msg/PoseStamped",
+              "geometry_msgs/msg/PoseWithCovarianceStamped", "geometry_msgs/msg/TransformStamped")
+
+
+class BagError(InputError):
+    """A bag cannot be read or lacks a needed topic."""
+
+
+# ------------------------------------------------------------------------------------------------
+# bag reading (rosbags)
+# ------------------------------------------------------------------------------------------------
+def _stamp_ns(header, fallback: int) -> int:
+    ns = int(header.stamp.sec) * 1_000_000_000 + int(header.stamp.nanosec)
+    return ns if ns > 0 else int(fallback)
+
+
+def _pose_of(msg, msgtype: str):
+    if msgtype == "nav_msgs/msg/Odometry" or msgtype == "geometry_msgs/msg/PoseWithCovarianceStamped":
+        return msg.pose.pose.position, msg.pose.pose.orientation
+    if msgtype == "geometry_msgs/msg/PoseStamped":
+        return msg.pose.position, msg.pose.orientation
+    return msg.transform.translation, msg.transform.rotation
+
+
+def load_bag(path: str | Path, truth_topic: str, joints_topic: str | None = None) -> tuple[JointSamples, PlanarPath]:
+    """Joint states and the truth path (x, y, yaw in the truth's header frame) of one bag.
+
+    The joint-state topic is ``joints_topic`` or the only sensor_msgs/JointState topic; the truth
+    topic may be nav_msgs/Odometry, geometry_msgs/PoseStamped, PoseWithCovarianceStamped or
+    TransformStamped. Header stamps are used (the record time where a stamp is zero).
+    """
+    from rosbags.highlevel import AnyReader
+    from rosbags.typesys import Stores, get_typestore
+
+    p = Path(path)
+    if not p.exists():
+        raise BagError(f"bag '{p}' does not exist; give the path of a rosbag2 directory or file.")
+    try:
+        reader = AnyReader([p], default_typestore=get_typestore(Stores.LATEST))
+        reader.open()
+    except Exception as exc:  # rosbags raises several types for unreadable bags
+        raise BagError(f"bag '{p}' cannot be read ({exc.__class__.__name__}); check that it is a complete "
+                       "rosbag2 recording.") from None
+    try:
+        topics = {c.topic: c.msgtype for c in reader.connections}
+        if joints_topic is None:
+            js = sorted(t for t, ty in topics.items() if ty == JOINT_STATE)
+            if len(js) != 1:
+                raise BagError(f"bag '{p}' has {len(js)} joint-state topics ({', '.join(js) or 'none'}); "
+                               "record one, or name it with --joints.")
+            joints_topic = js[0]
+        elif joints_topic not in topics:
+            raise BagError(f"bag '{p}' has no topic '{joints_topic}'; give the joint-state topic with --joints.")
+        if truth_topic not in topics:
+            poses = sorted(t for t, ty in topics.items() if ty in POSE_TYPES)
+            raise TruthError(f"bag '{p}' has no ground-truth topic '{truth_topic}' (pose topics in it: "
+                             f"{', '.join(poses) or 'none'}); record the truth and give its topic with --truth.")
+        if topics[truth_topic] not in POSE_TYPES:
+            raise TruthError(f"topic '{truth_topic}' in bag '{p}' is {topics[truth_topic]}, not a pose; give a "
+                             "nav_msgs/Odometry or geometry_msgs/PoseStamped topic with --truth.")
+        names_rows: list[tuple[str, ...]] = []
+        pos_rows: list[list[float]] = []
+        vel_rows: list[list[float]] = []
+        stamps: list[int] = []
+        malformed: list[bool] = []
+        t_stamp: list[int] = []
+        t_xyyaw: list[tuple[float, float, float]] = []
+        frame = ""
+        conns = [c for c in reader.connections if c.topic in (joints_topic, truth_topic)]
+        for conn, t_rec, raw in reader.messages(connections=conns):
+            msg = reader.deserialize(raw, conn.msgtype)
+            if conn.topic == joints_topic:
+                names = tuple(msg.name)
+                pos = list(np.asarray(msg.position, dtype=np.float64))
+                vel = list(np.asarray(msg.velocity, dtype=np.float64))
+                bad = len(pos) not in (0, len(names)) or len(vel) not in (0, len(names))
+                stamps.append(_stamp_ns(msg.header, t_rec))
+                names_rows.append(names)
+                pos_rows.append(pos if len(pos) == len(names) else [math.nan] * len(names))
+                vel_rows.append(vel if len(vel) == len(names) else [math.nan] * len(names))
+                malformed.append(bad)
+            else:
+                position, q = _pose_of(msg, conn.msgtype)
+                t_stamp.append(_stamp_ns(msg.header, t_rec))
+                t_xyyaw.append((float(position.x), float(position.y), quaternion_to_yaw(q.x, q.y, q.z, q.w)))
+                frame = frame or str(msg.header.frame_id)
+    finally:
+        reader.close()
+    all_names: list[str] = []
+    seen: set[str] = set()
+    for names in dict.fromkeys(names_rows):
+        for n in names:
+            if n not in seen:
+                seen.add(n)
+                all_names.append(n)
+    col = {n: i for i, n in enumerate(all_names)}
+    n_s, n_j = len(stamps), len(all_names)
+    position = np.full((n_s, n_j), np.nan)
+    velocity = np.full((n_s, n_j), np.nan)
+    present = np.zeros((n_s, n_j), dtype=bool)
+    for k, (names, pos, vel) in enumerate(zip(names_rows, pos_rows, vel_rows)):
+        idx = [col[n] for n in names]
+        position[k, idx] = pos
+        velocity[k, idx] = vel
+        present[k, idx] = True
+    samples = JointSamples(np.asarray(stamps, dtype=np.int64), tuple(all_names), position, velocity, present,
+                           np.asarray(malformed, dtype=bool))
+    tr = np.asarray(t_xyyaw, dtype=np.float64).reshape(-1, 3)
+    truth = PlanarPath(np.asarray(t_stamp, dtype=np.int64), tr[:, 0], tr[:, 1], tr[:, 2], frame)
+    return samples, truth
+
+
+# ------------------------------------------------------------------------------------------------
+# parameters files
+# ------------------------------------------------------------------------------------------------
+def default_params_text() -> str:
+    """Text of config/wheel_dr.yaml (installed or in the source tree), else a generated full file."""
+    here = Path(__file__).resolve()
+    for cand in (here.parents[1] / "config" / "wheel_dr.yaml",
+                 Path(sys.prefix) / "share" / "wheel_dr" / "config" / "wheel_dr.yaml"):
+        if cand.is_file():
+            return cand.read_text(encoding="utf-8")
+    return write_params_text(Settings())
+
+
+def _read_params(path: str | None) -> tuple[str, Settings, str]:
+    if path is None:
+        text, label = default_params_text(), "config/wheel_dr.yaml defaults"
+    else:
+        p = Path(path)
+        if not p.is_file():
+            raise WheelDrError(f"parameters file '{p}' does not exist; give the path of a YAML file such as "
+                               "config/wheel_dr.yaml.")
+        text, label = p.read_text(encoding="utf-8"), str(p)
+    settings = Settings.from_flat(parse_params_text(text, f"parameters file '{label}'"))
+    return text, settings, label
+
+
+def _rounded(values: dict[str, object]) -> dict[str, object]:
+    out: dict[str, object] = {}
+    for k, v in values.items():
+        if k in ("wheels.left_radius", "wheels.right_radius"):
+            out[k] = round(float(v), 7)
+        elif k == "wheels.track_width":
+            out[k] = round(float(v), 6)
+        elif k in ("noise.k_left", "noise.k_right"):
+            out[k] = float(f"{float(v):.4g}")
+        elif k == "noise.alphas":
+            out[k] = tuple(float(f"{float(a):.4g}") for a in v)  # type: ignore[union-attr]
+        else:
+            out[k] = v
+    return out
+
+
+# ------------------------------------------------------------------------------------------------
+# tables
+# ------------------------------------------------------------------------------------------------
+def _fmt(v: float, spec: str) -> str:
+    return "-" if v is None or (isinstance(v, float) and math.isnan(v)) else format(v, spec)
+
+
+def figures_table(before: Sequence[RunFigures], after: Sequence[RunFigures], title: str) -> list[str]:
+    """Lines of a before/after table (ATE m, drift %, mean NEES with its 95 % interval)."""
+    lines = [title,
+             f"  {'bag':<28} {'ATE before':>10} {'after':>8}  {'drift% before':>13} {'after':>7}  "
+             f"{'NEES before':>11} {'after':>7}  {'95% interval':>15}  segs"]
+    for b, a in zip(before, after):
+        inside = "ok" if a.nees_inside else "OUT"
+        lines.append(f"  {b.name[-28:]:<28} {_fmt(b.ate_m, '10.3f')} {_fmt(a.ate_m, '8.3f')}  "
+                     f"{_fmt(b.drift_pct, '13.2f')} {_fmt(a.drift_pct, '7.2f')}  {_fmt(b.nees_mean, '11.2f')} "
+                     f"{_fmt(a.nees_mean, '7.2f')}  [{_fmt(a.nees_lo, '.2f')}, {_fmt(a.nees_hi, '.2f')}] {inside:>3} "
+                     f"{a.n_segments:5d}")
+    return lines
+
+
+def result_lines(res: CalibrationResult, bag_names: Sequence[str]) -> list[str]:
+    """What was fitted, with standard errors, excitation and the before/after figures."""
+    lines = [f"Calibrated on {len(bag_names)} bag(s): {', '.join(bag_names)}; {res.n_segments} segments of "
+             f"{res.segment_length_m:g} m"]
+    before = res.before.to_flat()
+    units = {"wheels.left_radius": "m", "wheels.right_radius": "m", "wheels.track_width": "m"}
+    if res.systematic is not None:
+        for name, value, se in zip(GEOMETRY_NAMES, res.systematic.geometry, res.systematic.std_error):
+            old = float(before[name])
+            lines.append(f"  {name:<22} {old:.6f} -> {value:.6f} {units[name]}  (+- {se:.6f}, "
+                         f"{100 * (value / old - 1):+.3f} %)")
+        lines.append(f"  design condition number {res.systematic.condition:.1f}; residual variance "
+                     f"{res.systematic.residual_variance:.2f}")
+    if res.noise is not None:
+        names = ("noise.k_left", "noise.k_right") if res.noise.model == "per_wheel" else (
+            "alpha1", "alpha2", "alpha3", "alpha4")
+        old = ([before["noise.k_left"], before["noise.k_right"]] if res.noise.model == "per_wheel"
+               else list(before["noise.alphas"]))
+        lines.append(f"  noise model {res.noise.model} ({res.noise.n_segments} segments, maximum likelihood):")
+        for n, o, v, se in zip(names, old, res.noise.theta, res.noise.std_error):
+            lines.append(f"    {n:<20} {float(o):.4g} -> {v:.4g}  (+- {se:.2g})")
+    e = res.excitation
+    lines.append(f"  drive: {e.travel_m:.0f} m wheel travel, {e.straight_m:.0f} m straight, turns "
+                 f"{math.degrees(e.left_turn_rad):.0f} deg left / {math.degrees(e.right_turn_rad):.0f} deg right")
+    for p, a in zip(e.problems, e.advice):
+        lines.append(f"  warning: {p}; {a}.")
+    lines += [f"  note: {n}" for n in res.notes]
+    lines += figures_table(res.figures_before, res.figures_after, "Fitted bags (before -> after):")
+    if res.holdout_after:
+        lines += figures_table(res.holdout_before, res.holdout_after, "Held-out bags (not used in the fit):")
+    return lines
+
+
+def header_text(res: CalibrationResult, bag_names: Sequence[str], holdout_names: Sequence[str],
+                start_label: str) -> str:
+    """The comment block on top of TUNED.yaml."""
+    when = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+    lines = [f"Tuned by `wheel-dr calibrate` on {when}, starting from {start_label}.",
+             f"Fitted: {', '.join(res.values)}; every other value is as in the starting file."]
+    lines += result_lines(res, bag_names)
+    if holdout_names:
+        lines.append(f"Held-out bag(s): {', '.join(holdout_names)}")
+    lines.append(SAFETY_NOTE)
+    return "\n".join(lines)
+
+
+# ------------------------------------------------------------------------------------------------
+# commands
+# ------------------------------------------------------------------------------------------------
+def _prepare(paths: Sequence[str], args: argparse.Namespace, settings: Settings) -> list[CalibrationRun]:
+    runs = []
+    for path in paths:
+        samples, truth = load_bag(path, args.truth, args.joints)
+        runs.append(prepare_run(samples, truth, settings, Path(path).name))
+    return runs
+
+
+def _bags(args: argparse.Namespace) -> int:
+    if not args.bags:
+        raise CalibrationError("no bag given; name one or more bags (or use --square FILE for the square test).")
+    if not args.truth:
+        raise TruthError("no ground-truth topic given; name it with --truth TOPIC (nav_msgs/Odometry or "
+                         "geometry_msgs/PoseStamped), or use --square for the square test without truth.")
+    text, settings, label = _read_params(args.params)
+    runs = _prepare(args.bags, args, settings)
+    holdout = _prepare(args.holdout or [], args, settings)
+    res = calibrate(runs, settings, segment_length_m=args.segment_m, noise_segment_m=args.noise_segment_m,
+                    fit_geometry=not args.no_geometry, fit_noise_params=not args.no_noise,
+                    noise_model=args.noise_model, holdout=holdout)
+    names = [r.name for r in runs]
+    for line in result_lines(res, names):
+        print(line)
+    if args.write:
+        header = header_text(res, names, [r.name for r in holdout], label)
+        atomic_write_text(args.write, update_params_text(text, _rounded(res.values), header))
+        print(f"Wrote {args.write}: launch the node with --ros-args --params-file {args.write}")
+    if args.report:
+        _write_report(args.report, runs, holdout, res)
+    print(SAFETY_NOTE)
+    return 0
+
+
+def _write_report(out_dir: str, runs: Sequence[CalibrationRun], holdout: Sequence[CalibrationRun],
+                  res: CalibrationResult) -> None:
+    from .report.calibration_page import write_calibration_report  # optional page, see that module
+    path = write_calibration_report(out_dir, runs, holdout, res)
+    print(f"Report: {path}")
+
+
+def _square(args: argparse.Namespace) -> int:
+    text, settings, label = _read_params(args.params)
+    w = settings.wheels
+    nominal = (w.left_radius, w.right_radius, w.track_width)
+    if args.square == "synth":
+        from .sim.scenario import (QUOKKA_NOMINAL_RADIUS_M, QUOKKA_NOMINAL_TRACK_M, QUOKKA_TRUE_LEFT_RADIUS_M,
+                                   QUOKKA_TRUE_RIGHT_RADIUS_M, QUOKKA_TRUE_TRACK_M)
+        if args.params is None:
+            nominal = (QUOKKA_NOMINAL_RADIUS_M, QUOKKA_NOMINAL_RADIUS_M, QUOKKA_NOMINAL_TRACK_M)
+            settings = settings.with_values(dict(zip(GEOMETRY_NAMES, nominal)))
+            label = "config/wheel_dr.yaml defaults with the demo cart's nominal geometry"
+            text = update_params_text(text, dict(zip(GEOMETRY_NAMES, nominal)))
+        true = (QUOKKA_TRUE_LEFT_RADIUS_M, QUOKKA_TRUE_RIGHT_RADIUS_M, QUOKKA_TRUE_TRACK_M)
+        errors = simulate_square_test(args.side, nominal, true, runs=args.runs, k_left_m=2e-6, k_right_m=2e-6,
+                                      measure_sd_m=0.003, seed=args.seed)
+        source = (f"simulated square test (demo cart: true radii {true[0]} / {true[1]} m, track {true[2]} m; "
+                  f"{args.runs} runs each way, seed {args.seed})")
+        print(f"Square test driven in simulation: {source}")
+        print(square_csv_text(errors), end="")
+    else:
+        p = Path(args.square)
+        if not p.is_file():
+            raise WheelDrError(f"square-test file '{p}' does not exist; write a CSV with the header "
+                               f"'{','.join(CSV_COLUMNS)}' (or use --square synth).")
+        errors = parse_square_csv(p.read_text(encoding="utf-8"), f"square-test CSV '{p}'")
+        source = f"square-test CSV {p.name}"
+    first = umbmark(errors, args.side, nominal[2])
+    res = refine(first, *nominal)
+    rl, rr, b = corrected_geometry(res, *nominal, first_order=args.first_order)
+    lines = [f"UMBmark (Borenstein & Feng 1996), {args.side:g} m square, {res.n_cw} cw / {res.n_ccw} ccw runs, "
+             f"from {source}",
+             f"  centre of gravity cw  x {res.cg_cw[0]:+.4f} m  y {res.cg_cw[1]:+.4f} m",
+             f"  centre of gravity ccw x {res.cg_ccw[0]:+.4f} m  y {res.cg_ccw[1]:+.4f} m",
+             f"  E_max,syst {res.e_max_syst_m:.4f} m",
+             f"  alpha {math.degrees(res.alpha_rad):+.4f} deg  beta {math.degrees(res.beta_rad):+.4f} deg  "
+             f"R {res.radius_m:.2f} m",
+             f"  E_d {res.e_d:.6f}  E_b {res.e_b:.6f}   (paper's first-order formulas)",
+             f"  E_d {res.e_d_refined:.6f}  E_b {res.e_b_refined:.6f}   (exact square kinematics; "
+             f"{'not ' if args.first_order else ''}used for the correction)",
+             f"  wheels.left_radius  {nominal[0]:.6f} -> {rl:.6f} m",
+             f"  wheels.right_radius {nominal[1]:.6f} -> {rr:.6f} m",
+             f"  wheels.track_width  {nominal[2]:.6f} -> {b:.6f} m",
+             "  (the square test cannot see a common scale error of both radii: check the mean radius on a "
+             "measured straight run)"]
+    for line in lines:
+        print(line)
+    if args.write:
+        values = _rounded(dict(zip(GEOMETRY_NAMES, (rl, rr, b))))
+        when = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+        header = "\n".join([f"Tuned by `wheel-dr calibrate --square` on {when}, starting from {label}.",
+                            f"Fitted: {', '.join(values)}; every other value is as in the starting file."]
+                           + lines + [SAFETY_NOTE])
+        atomic_write_text(args.write, update_params_text(text, values, header))
+        print(f"Wrote {args.write}")
+    print(SAFETY_NOTE)
+    return 0
+
+
+def run_calibrate(args: argparse.Namespace) -> int:
+    """Entry of the subcommand; a WheelDrError becomes one sentence on stderr and exit status 2."""
+    try:
+        return _square(args) if args.square else _bags(args)
+    except WheelDrError as exc:
+        msg = str(exc)
+        print(f"wheel-dr calibrate: {msg[:1].upper()}{msg[1:]}", file=sys.stderr)
+        return 2
+
+
+def add_parser(subparsers) -> argparse.ArgumentParser:
+    """Register ``calibrate`` on the CLI's subparsers (wheel_dr/cli.py calls this)."""
+    p = subparsers.add_parser(
+        "calibrate", help="fit wheel radii, track and noise from bags with ground truth, or run the square test",
+        description="Fit the wheel radii and track (least squares on segment-relative motion against ground "
+                    "truth) and the noise parameters (maximum likelihood), and write them into a copy of the "
+                    "parameters file; or evaluate the UMBmark square test (Borenstein & Feng 1996). "
+                    + SAFETY_NOTE)
+    p.add_argument("bags", nargs="*", help="bags with joint states and ground truth, fitted jointly")
+    p.add_argument("--truth", help="ground-truth topic (nav_msgs/Odometry, geometry_msgs/PoseStamped, ...)")
+    p.add_argument("--joints", help="joint-state topic (default: the bag's only sensor_msgs/JointState topic)")
+    p.add_argument("--params", help="starting parameters file (default config/wheel_dr.yaml)")
+    p.add_argument("--write", metavar="TUNED.yaml", help="write the tuned parameters file here")
+    p.add_argument("--holdout", nargs="+", metavar="BAG", help="bags to report figures on, not used in the fit")
+    p.add_argument("--noise-model", choices=NOISE_MODELS, help="noise model to fit (default: the file's)")
+    p.add_argument("--no-noise", action="store_true", help="fit the geometry only")
+    p.add_argument("--no-geometry", action="store_true", help="fit the noise only (keep radii and track)")
+    p.add_argument("--segment-m", type=float, default=2.0,
+                   help="segment length (mean wheel travel, m) for the geometry fit and figures (default 2)")
+    p.add_argument("--noise-segment-m", type=float, default=0.2,
+                   help="segment length (m) for the noise fit (default 0.2; lengthen it when the truth is noisy)")
+    p.add_argument("--report", metavar="DIR", help="also write an HTML report page into DIR")
+    p.add_argument("--square", metavar="FILE|synth",
+                   help="UMBmark square test: CSV with columns direction,x_m,y_m (one row per run; direction cw "
+                        "or ccw; x_m, y_m = measured end position minus start, metres, x along the first leg, "
+                        "y to the left), or 'synth' to drive the test in the simulator")
+    p.add_argument("--side", type=float, default=4.0, help="side of the square (m, default 4 as in the paper)")
+    p.add_argument("--runs", type=int, default=5, help="runs per direction for --square synth (default 5)")
+    p.add_argument("--seed", type=int, default=1, help="random seed for --square synth")
+    p.add_argument("--first-order", action="store_true",
+                   help="correct with the paper's first-order E_d, E_b instead of the refined ones")
+    p.set_defaults(func=run_calibrate)
+    return p
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Run the subcommand on its own (``python -m wheel_dr.calibrate_cmd ...``)."""
+    parser = argparse.ArgumentParser(prog="wheel-dr")
+    sub = parser.add_subparsers(dest="command", required=True)
+    add_parser(sub)
+    args = parser.parse_args(["calibrate", *(sys.argv[1:] if argv is None else argv)])
+    return args.func(args)
+
+
+if __name__ == "__main__":
+    sys.exit(main())
