@@ -17,6 +17,7 @@ import numpy as np
 from wheel_dr.core import JointSamples, Settings
 
 __all__ = ["SlipEvent", "Drive", "Generated", "generate", "random_drive", "quokka_settings", "slip_figures",
+           "sim_round",
            "sharp_turns_drive", "traction_limit_drive", "noisy_gyro_drive",
            "QUOKKA_LEFT", "QUOKKA_RIGHT", "RAMP_S"]
 
@@ -270,3 +271,41 @@ def noisy_gyro_drive(seed: int, standstill: bool = True, duration_s: float = 60.
     d.gyro_noise_radps = 0.03
     d.gyro_bias_radps = 0.05
     return d
+
+
+# ------------------------------------------------------------------------------------------------
+# the same kind of round built with the project's drive simulator (an independent generator)
+# ------------------------------------------------------------------------------------------------
+def sim_round(seed: int, n_events: int = 4):
+    """A random round for ``wheel_dr.sim``: straights, arcs, turns, pauses at 50 Hz, gyro biased and
+    noisy, up to ``n_events`` slip events (slip ratio 0.4 to 0.6, spin or drag, one wheel) placed
+    in straights and arcs after the speed has settled. Returns the sim's Scenario."""
+    from wheel_dr.sim import Scenario, SlipEvent as SimSlip, arc, pause, segment_times, straight, turn_in_place
+
+    rng = np.random.default_rng(50_000 + seed)
+    segs = [pause(2.0)]
+    for _ in range(14):
+        c = rng.choice(["straight", "arc", "turn", "pause"], p=[0.45, 0.3, 0.15, 0.1])
+        if c == "straight":
+            segs.append(straight(float(rng.uniform(3, 6)), float(rng.uniform(0.5, 0.9))))
+        elif c == "arc":
+            segs.append(arc(float(rng.choice([-1, 1]) * rng.uniform(0.8, 2.0)), float(rng.uniform(0.6, 1.5)),
+                            float(rng.uniform(0.5, 0.7))))
+        elif c == "turn":
+            segs.append(turn_in_place(float(rng.choice([-1, 1]) * rng.uniform(1.0, 3.0)), 1.2))
+        else:
+            segs.append(pause(float(rng.uniform(1, 2))))
+    base = Scenario(name=f"slip_round_{seed}", segments=tuple(segs), rate_hz=50.0, k_left_m=2e-5, k_right_m=2e-5,
+                    gyro_bias_radps=0.01, gyro_noise_sd_radps=0.01, accel_mps2=1.0, accel_radps2=3.0)
+    times = segment_times(base)
+    cands = [i for i, s in enumerate(segs) if s.kind in ("straight", "arc")]
+    events = []
+    for i in rng.permutation(cands)[:n_events]:
+        a, b = times[i], times[i + 1]
+        if b - a < 2.5:
+            continue
+        d = float(rng.uniform(0.8, min(2.0, b - a - 1.5)))
+        t0 = float(rng.uniform(a + 1.0, b - d - 0.3))
+        events.append(SimSlip(t0, d, str(rng.choice(["left", "right"])), str(rng.choice(["spin", "drag"])),
+                              float(rng.uniform(0.4, 0.6))))
+    return base.with_values(slip_events=tuple(events))

@@ -72,6 +72,33 @@ def family(name: str, drives, seeds, values=None) -> dict[str, float]:
     return out
 
 
+def sim_family(seeds) -> None:
+    """Rounds from wheel_dr.sim (an independent generator), scored by wheel_dr.analysis.metrics."""
+    from slip_scenarios import sim_round
+    from wheel_dr.analysis.metrics import slip_heading_error, slip_scores
+    from wheel_dr.core import Settings
+    from wheel_dr.sim import simulate
+
+    rows, ratios = [], []
+    for seed in seeds:
+        sc = sim_round(seed)
+        sim = simulate(sc, seed)
+        s = Settings.from_flat(sc.nominal_params)
+        flag = run(sim.joint_samples(), s, gyro_z_radps=sim.gyro_z_radps)
+        gyro = run(sim.joint_samples(), s.with_values({"slip.response": "gyro"}), gyro_z_radps=sim.gyro_z_radps)
+        rows.append(slip_scores(flag.stamp_ns, flag.slip.slip, sim.slip_intervals_ns, grace_s=0.2))
+        truth = sim.true_theta_rad[flag.index]
+        e0 = slip_heading_error(flag.stamp_ns, flag.theta_rad, truth, sim.slip_intervals_ns)
+        e1 = slip_heading_error(gyro.stamp_ns, gyro.theta_rad, truth, sim.slip_intervals_ns)
+        ratios.append(e0["slip_heading_error_mean_deg"] / e1["slip_heading_error_mean_deg"])
+    print(f"simulator rounds (wheel_dr.sim, seeds {', '.join(map(str, seeds))}), scored by analysis.metrics:")
+    print(f"  {'events detected':28s} {sum(r['slip_events_detected'] for r in rows)} of {sum(r['slip_events'] for r in rows)}")
+    for key, agg in (("slip_coverage_after_grace", min), ("slip_false_flag_frac", max), ("slip_precision", min),
+                     ("slip_latency_mean_s", max), ("slip_latency_max_s", max)):
+        print(f"  {key + (' (min)' if agg is min else ' (max)'):28s} {agg(r[key] for r in rows):.4f}")
+    print(f"  {'heading ratio (min)':28s} {min(ratios):.1f}")
+
+
 def hard(name: str, drives, seeds) -> None:
     flagged, worst = [], 0.0
     for seed in seeds:
@@ -103,6 +130,9 @@ def speed() -> None:
     for f in ("dt_s", "ds_left_m", "ds_right_m", "restart", "joint_travel_m"):
         setattr(big, f, getattr(big, f)[:360_000])
     gyro = gen.gyro_z_radps[tv.index][idx][:360_000]
+    a = np.random.default_rng(0).random(360_000)
+    ref = min(_timed(lambda: a * a) for _ in range(20))
+    print(f"machine reference: one 360,000-element multiply takes {ref * 1e3:.2f} ms (load shows here)")
     for resp in ("flag", "gyro"):
         sr = s.with_values({"slip.response": resp})
         best = min(_timed(lambda: detect_slip(big, gyro, sr)) for _ in range(5))
@@ -128,6 +158,7 @@ def main() -> int:
     family("without IMU, 50 ms onset (traction only)", lambda sd: random_drive(sd, gyro=False), seeds)
     family("skid steer 2+2 joints, one joint slips, no IMU",
            lambda sd: random_drive(sd, joints_per_side=2, same_side_events=True, gyro=False), seeds)
+    sim_family((1, 2, 3, 4, 5, 6) if args.tuning else (11, 12, 13, 14, 15, 16, 17, 18))
     print()
     hs = seeds[:4]
     hard("hard case: sharp turns at speed", sharp_turns_drive, hs)

@@ -203,7 +203,7 @@ class SlipSettings:
                               "s", 0.0, 60.0)
     set_delay_s: float = _p(0.02, "Debounce: a detector's score must stay above 1 this long before its flag "
                             "sets.", "s", 0.0, 10.0)
-    clear_delay_s: float = _p(0.06, "A detector's score must stay below slip.clear_fraction this long before "
+    clear_delay_s: float = _p(0.04, "A detector's score must stay below slip.clear_fraction this long before "
                               "its flag clears.", "s", 0.0, 10.0)
     clear_fraction: float = _p(0.5, "Hysteresis: fraction of the threshold below which a detector counts as "
                                "clear (between it and 1 the flag keeps its state).", "", 0.0, 1.0,

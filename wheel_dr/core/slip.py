@@ -443,27 +443,35 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
         last_miss = np.maximum.accumulate(np.where(avail, -1, idx))
         cum_gi, cum_c11 = cum(gi), cum(c11)
 
-        def gyro_test(jw: np.ndarray, ok: np.ndarray, w_left: np.ndarray, w_right: np.ndarray):
-            t_w = (stamp - stamp[np.maximum(jw - 1, 0)]) * 1e-9
+        def gyro_test(at: np.ndarray | None, jw: np.ndarray, ok: np.ndarray, w_left: np.ndarray,
+                      w_right: np.ndarray):
+            """Score of the samples ``at`` (None: all) whose windows start at ``jw``."""
+            if at is None:
+                st, at1, at = stamp, slice(1, None), idx
+            else:
+                st, at1 = stamp[at], at + 1
+            t_w = (st - stamp[np.maximum(jw - 1, 0)]) * 1e-9
             dth_w = (w_right - w_left) / k.b
-            dth_gw = cum_gi[1:] - cum_gi[jw]
+            dth_gw = cum_gi[at1] - cum_gi[jw]
             d_w = dth_w - dth_gw
-            n_win = (idx - jw + 1).astype(np.float64)
-            var = (cum_c11[1:] - cum_c11[jw]) + k.gyro_var * (t_w * t_w / n_win) \
+            n_win = (at - jw + 1).astype(np.float64)
+            var = (cum_c11[at1] - cum_c11[jw]) + k.gyro_var * (t_w * t_w / n_win) \
                 + (k.rate_tol * t_w) * (k.rate_tol * t_w) + (k.scale_tol * dth_w) * (k.scale_tol * dth_w)
             with np.errstate(divide="ignore", invalid="ignore"):
                 z = np.where(ok, np.abs(d_w) / np.sqrt(np.where(ok, var, 1.0) * k.gate), 0.0)
             return z, d_w, dth_gw
 
         g_ok = clean & (last_miss < j)
-        zg, d, dth_g = gyro_test(j, g_ok, wl, wr)
+        zg, d, dth_g = gyro_test(None, j, g_ok, wl, wr)
         if k.long_ns > 0:
-            jl = np.searchsorted(stamp, stamp - k.long_ns, side="right")
-            ok_l = (jl >= 1) & (last_restart < jl) & (last_miss < jl)
-            wjl = np.column_stack([c[1:] - c[jl] for c in cum_joints])
-            zl, dl_w, _ = gyro_test(jl, ok_l, _side_sum(wjl, 0, nl), _side_sum(wjl, nl, nj))
-            agree = g_ok & (zg >= LONG_SHORT_SCORE) & ((d > 0.0) == (dl_w > 0.0))
-            zg = np.maximum(zg, np.where(agree, zl, 0.0))
+            # the long window only counts where the short one scores LONG_SHORT_SCORE or more
+            at = np.flatnonzero(g_ok & (zg >= LONG_SHORT_SCORE))
+            jl = np.searchsorted(stamp, stamp[at] - k.long_ns, side="right")
+            ok_l = (jl >= 1) & (last_restart[at] < jl) & (last_miss[at] < jl)
+            wjl = np.column_stack([c[at + 1] - c[jl] for c in cum_joints])
+            zl, dl_w, _ = gyro_test(at, jl, ok_l, _side_sum(wjl, 0, nl), _side_sum(wjl, nl, nj))
+            agree = (d[at] > 0.0) == (dl_w > 0.0)
+            zg[at] = np.maximum(zg[at], np.where(agree, zl, 0.0))
         # side: keep the base speed seen while quiet (forward fill)
         quiet = g_ok & clean_b & (zg < k.clear_fraction)
         qi = np.maximum.accumulate(np.where(quiet, np.arange(m), -1))
