@@ -11,7 +11,7 @@ from slip_scenarios import Drive, SlipEvent, generate, quokka_settings, random_d
 from wheel_dr.core import Estimator, Settings, run, wheel_travel
 from wheel_dr.core.noise import increment_noise
 from wheel_dr.core.slip import (DETECTOR_GYRO, DETECTOR_SAME_SIDE, DETECTOR_TRACTION, SlipMonitor, SlipStep,
-                                detect_slip, heading_increment_variance, latch)
+                                detect_slip, heading_increment_variance, latch, traction_latch)
 from wheel_dr.core.wheels import SampleStatus, TravelTracker
 
 
@@ -74,6 +74,45 @@ def test_latch_debounce_and_hysteresis_behave():
     want = np.zeros(20, dtype=bool)
     want[5:11] = True
     np.testing.assert_array_equal(got, want)
+
+
+def _reference_traction_latch(spike, stamp_ns, hold_ns):
+    """The documented traction rule, one sample at a time: a spike starts a slip of its sign; a
+    spike of the other sign (the run of it) ends it; no spike of its own sign for hold_ns ends it
+    too, and then an opposite spike within a further hold_ns is its late re-grip."""
+    sign, last, consumed, expect, until, out = 0, 0, 0, 0, 0, []
+    for e, t in zip(spike, stamp_ns):
+        if sign and t - last > hold_ns:
+            sign, expect, until = 0, -sign, last + 2 * hold_ns
+        if expect and t > until:
+            expect = 0
+        if e != consumed:
+            consumed = 0
+        if e and not consumed:
+            if not sign and e == expect:
+                consumed, expect = e, 0
+            elif not sign:
+                sign, last, expect = e, t, 0
+            elif e == sign:
+                last = t
+            else:
+                sign, consumed = 0, e
+        out.append(sign != 0)
+    return np.array(out)
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_traction_latch_follows_its_rule(seed):
+    rng = np.random.default_rng(100 + seed)
+    n = 4000
+    spike = np.zeros(n, dtype=np.int64)
+    for start in rng.integers(0, n - 5, 60):          # short runs of spikes of either sign
+        spike[start:start + rng.integers(1, 4)] = rng.choice([-1, 1])
+    stamp = np.cumsum(rng.integers(8_000_000, 25_000_000, n)).astype(np.int64)
+    for hold_ns in (0, 300_000_000, 2_000_000_000):
+        got = traction_latch(spike, stamp, hold_ns)
+        np.testing.assert_array_equal(got, _reference_traction_latch(spike, stamp, hold_ns))
+        assert got.any()
 
 
 # ------------------------------------------------------------------------------------------------
@@ -168,6 +207,26 @@ def test_gyro_detector_flags_the_slipping_side(side, kind):
     faster_right = (side == "right") == (kind == "spin")
     assert (wheel_turn > 0) == faster_right
     assert not sr.slip[t < 5.5].any()
+
+
+def test_long_window_catches_a_mild_sustained_slip():
+    """A right wheel 25 % fast at 0.6 m/s (0.15 m/s, 0.36 rad/s of false turn) stays under the
+    short window's gate; over the long window the same difference grows with the window while its
+    noise grows with its square root (the chi-square gate above), so it is flagged within 1 s."""
+    d = Drive([(3.0, 0.0, 0.0), (8.0, 0.6, 0.0), (1.0, 0.0, 0.0)],
+              events=[SlipEvent(5.5, 4.0, "right", "spin", 0.25)])
+    gen = generate(d, 21)
+    t_all = None
+    flags = {}
+    for long_s in (0.0, 1.0):
+        s = gen.settings.with_values({"slip.long_window_s": long_s})
+        traj = run(gen.samples, s, gyro_z_radps=gen.gyro_z_radps)
+        t_all = gen.t_s[traj.index]
+        flags[long_s] = traj.slip
+    inside = (t_all >= 6.5) & (t_all < 9.5)
+    assert not flags[0.0].slip.any()
+    assert flags[1.0].right[inside].mean() >= 0.95
+    assert not flags[1.0].slip[(t_all < 5.5) | (t_all > 9.8)].any()
 
 
 def test_traction_detector_catches_a_sudden_spin_without_imu():

@@ -8,8 +8,9 @@ Interface used by the estimator (the two forms are tested equal, sample by sampl
   one accepted sample at a time (``tracker.joint_travel_m`` holds the per-joint travel of the step).
 
 Wheel speeds and heading changes are compared over a sliding time window of ``slip.window_s``
-(the samples with stamp in (t - window, t]); a window that contains a chain restart (first sample,
-gap, encoder jump) is not evaluated. Every detector turns its statistic into a score ``z``
+(the samples with stamp in (t - window, t]), computed as differences of running sums; a window
+that contains a chain restart (first sample, gap, encoder jump) or reaches back to the first
+sample is not evaluated. Every detector turns its statistic into a score ``z``
 (1 at its threshold) and runs its own latch: the flag sets once ``z > 1`` has held for
 ``slip.set_delay_s`` (debounce) and clears once ``z < slip.clear_fraction`` has held for
 ``slip.clear_delay_s`` (hysteresis); in between it keeps its state. Samples a detector cannot
@@ -18,14 +19,19 @@ evaluate count as clear. The traction detector latches differently (below).
 Detectors (bits of ``detector``):
 
 * ``DETECTOR_GYRO`` (1), gyro against wheels: the wheels' heading change over the window,
-  sum (ds_r - ds_l) / b, against the gyro's, sum (w_z - bias) dt. Their difference d is gated by a
-  chi-square test with one degree of freedom (Bar-Shalom, Li & Kirubarajan 2001, sec. 5.4, the
-  gate on an innovation): ``z = |d| / sqrt(gate * var)`` with
-  ``var = sum C[1,1] + sigma_g^2 sum dt^2 + (tol_w T)^2 + (tol_s dtheta_wheels)^2``, where C[1,1]
+  (sum ds_r - sum ds_l) / b, against the gyro's, sum (w_z - bias) dt. Their difference d is gated
+  by a chi-square test with one degree of freedom (Bar-Shalom, Li & Kirubarajan 2001, sec. 5.4,
+  the gate on an innovation; ``slip.gyro_gate``): ``z = |d| / sqrt(gate * var)`` with
+  ``var = sum C[1,1] + sigma_g^2 T^2 / n + (tol_w T)^2 + (tol_s dtheta_wheels)^2``, where C[1,1]
   is the heading-increment variance of the core's noise model (``noise.increment_noise``),
-  sigma_g is ``slip.gyro_noise_radps``, tol_w ``slip.gyro_rate_tolerance_radps`` (timing and
-  mounting, common practice) and tol_s ``slip.gyro_scale_tolerance`` (gyro scale and wheel
-  calibration, common practice). The gyro bias is the mean z rate over the last
+  T the window's length (stamp of its last sample minus that of the sample before its first),
+  n its number of samples (sigma_g^2 T^2 / n = sigma_g^2 sum dt^2 at a steady rate), sigma_g
+  ``slip.gyro_noise_radps``, tol_w ``slip.gyro_rate_tolerance_radps`` (timing and mounting,
+  common practice) and tol_s ``slip.gyro_scale_tolerance`` (gyro scale and wheel calibration,
+  common practice). The same test over ``slip.long_window_s`` catches mild slips that last:
+  its score counts where the short window scores at least ``LONG_SHORT_SCORE`` with a
+  difference of the same sign (so it neither fires on its own nor drags a flag on after a
+  strong slip has ended). The gyro bias is the mean z rate over the last
   ``slip.gyro_bias_samples`` samples at which the base stood still (both wheel speeds below
   ``slip.still_speed_mps``), ``slip.gyro_bias_radps`` until ``BIAS_MIN_SAMPLES`` such samples.
   This is the disagreement test of gyrodometry (Borenstein & Feng, ICRA 1996) with a
@@ -35,8 +41,8 @@ Detectors (bits of ``detector``):
 * ``DETECTOR_TRACTION`` (2), traction plausibility: a wheel's surface acceleration (difference of
   window-mean speeds one window apart) beyond ``slip.traction_mu`` times standard gravity
   cannot come from rolling contact (common practice: a wheel cannot accelerate the base faster
-  than about mu g). Such a spike (no debounce: the acceleration is
-  already a difference of window means) marks the onset of spinning (positive) or dragging
+  than about mu g). Such a spike (no debounce: the acceleration is already a difference of
+  window means) marks the onset of spinning (positive) or dragging
   (negative); the side stays flagged until a spike of the opposite sign (the wheel taking grip
   again) or until ``slip.traction_hold_s`` after the last spike of its own sign. Where the gyro
   is read, a traction flag on one side only is dropped while the gyro detector has been clear for
