@@ -1,1 +1,8 @@
-"""wheel_dr.bags."""
+"""Reading and writing bags (rosbag2 mcap/sqlite3, ROS 1), topic discovery, URDF geometry, truth readers."""
+from __future__ import annotations
+
+from .urdf import UrdfGeometry, geometry_from_urdf, quokka_urdf
+from .writer import BAG_FORMATS, DEFAULT_TOPICS, SLIP_STATUS_NAME, write_bag
+
+__all__ = ["write_bag", "DEFAULT_TOPICS", "SLIP_STATUS_NAME", "BAG_FORMATS", "quokka_urdf",
+           "geometry_from_urdf", "UrdfGeometry"]

@@ -1,0 +1,160 @@
+"""URDF geometry: the demo cart's description, and wheel radii and track read back from any URDF.
+
+Reading rule (URDF specification, wiki.ros.org/urdf/XML): a wheel's radius is the ``radius`` of the
+``cylinder`` in its child link's collision (else visual) geometry; the track is the distance
+between the left and right wheel joints' origins along the base frame's y axis, with joint origins
+composed from ``xyz`` / ``rpy`` (fixed-axis roll, pitch, yaw) along the kinematic chain.
+"""
+from __future__ import annotations
+
+import math
+import xml.etree.ElementTree as ET
+from dataclasses import dataclass
+from typing import Sequence
+
+import numpy as np
+
+from ..core.errors import InputError
+from ..sim.scenario import QUOKKA_JOINTS, QUOKKA_NOMINAL_RADIUS_M, QUOKKA_NOMINAL_TRACK_M
+
+__all__ = ["UrdfGeometry", "quokka_urdf", "geometry_from_urdf"]
+
+
+@dataclass(frozen=True)
+class UrdfGeometry:
+    """Wheel geometry found in a URDF (metres) and the joints it came from."""
+
+    left_radius_m: float
+    right_radius_m: float
+    track_width_m: float
+    left_joints: tuple[str, ...]
+    right_joints: tuple[str, ...]
+    robot_name: str = ""
+
+
+def quokka_urdf(left_radius_m: float = QUOKKA_NOMINAL_RADIUS_M, right_radius_m: float = QUOKKA_NOMINAL_RADIUS_M,
+                track_width_m: float = QUOKKA_NOMINAL_TRACK_M,
+                joint_names: Sequence[str] = QUOKKA_JOINTS, base_frame: str = "base_link") -> str:
+    """URDF text of the demo "Quokka" cart (invented): box body, two driven wheels, a caster."""
+    left, right = joint_names
+    half = 0.5 * track_width_m
+
+    def wheel(joint: str, link: str, y: float, radius: float) -> str:
+        return f"""  <link name="{link}">
+    <visual><geometry><cylinder radius="{radius!r}" length="0.035"/></geometry></visual>
+    <collision><geometry><cylinder radius="{radius!r}" length="0.035"/></geometry></collision>
+    <inertial><mass value="0.6"/><inertia ixx="0.001" ixy="0" ixz="0" iyy="0.001" iyz="0" izz="0.002"/></inertial>
+  </link>
+  <joint name="{joint}" type="continuous">
+    <parent link="{base_frame}"/>
+    <child link="{link}"/>
+    <origin xyz="0 {y!r} 0" rpy="-1.5707963267948966 0 0"/>
+    <axis xyz="0 0 1"/>
+  </joint>
+"""
+    return f"""<?xml version="1.0"?>
+<!-- The "Quokka" delivery cart of the wheel_dr demo (invented; numbers are demo-only). -->
+<robot name="quokka">
+  <link name="{base_frame}">
+    <visual><geometry><box size="0.55 0.36 0.25"/></geometry></visual>
+    <collision><geometry><box size="0.55 0.36 0.25"/></geometry></collision>
+    <inertial><mass value="18"/><inertia ixx="0.3" ixy="0" ixz="0" iyy="0.5" iyz="0" izz="0.6"/></inertial>
+  </link>
+{wheel(left, "quokka_left_wheel", half, left_radius_m)}{wheel(right, "quokka_right_wheel", -half, right_radius_m)}  <link name="quokka_caster">
+    <visual><geometry><sphere radius="0.03"/></geometry></visual>
+  </link>
+  <joint name="quokka_caster_joint" type="fixed">
+    <parent link="{base_frame}"/>
+    <child link="quokka_caster"/>
+    <origin xyz="-0.22 0 -0.0525" rpy="0 0 0"/>
+  </joint>
+</robot>
+"""
+
+
+def _rpy_matrix(r: float, p: float, y: float) -> np.ndarray:
+    cr, sr, cp, sp, cy, sy = math.cos(r), math.sin(r), math.cos(p), math.sin(p), math.cos(y), math.sin(y)
+    return np.array([[cy * cp, cy * sp * sr - sy * cr, cy * sp * cr + sy * sr],
+                     [sy * cp, sy * sp * sr + cy * cr, sy * sp * cr - cy * sr],
+                     [-sp, cp * sr, cp * cr]])
+
+
+def _floats(text: str | None, n: int, what: str) -> list[float]:
+    if text is None:
+        return [0.0] * n
+    try:
+        vals = [float(v) for v in text.split()]
+    except ValueError:
+        vals = []
+    if len(vals) != n:
+        raise InputError(f"the URDF's {what} '{text}' is not {n} numbers; fix the robot description.")
+    return vals
+
+
+def _cylinder_radius(link: ET.Element | None) -> float | None:
+    if link is None:
+        return None
+    for tag in ("collision", "visual"):
+        for node in link.findall(tag):
+            cyl = node.find("geometry/cylinder")
+            if cyl is not None and cyl.get("radius") is not None:
+                try:
+                    return float(cyl.get("radius"))
+                except ValueError:
+                    return None
+    return None
+
+
+def geometry_from_urdf(text: str, left_joints: Sequence[str], right_joints: Sequence[str],
+                       base_frame: str = "base_link") -> UrdfGeometry:
+    """Wheel radii and track of the named joints in URDF ``text`` (see the module docstring).
+
+    Radii of several joints per side are averaged. Raises InputError naming what is missing.
+    """
+    try:
+        root = ET.fromstring(text)
+    except ET.ParseError:
+        raise InputError("the robot description is not valid URDF XML; give the geometry in the parameters "
+                         "file (wheels.left_radius, wheels.right_radius, wheels.track_width).") from None
+    links = {ln.get("name"): ln for ln in root.findall("link")}
+    joints = {j.get("name"): j for j in root.findall("joint")}
+    child_to_joint = {j.find("child").get("link"): j for j in joints.values() if j.find("child") is not None}
+
+    def to_base(link_name: str) -> tuple[np.ndarray, np.ndarray]:
+        rot, pos = np.eye(3), np.zeros(3)
+        seen = set()
+        name = link_name
+        while name != base_frame and name in child_to_joint and name not in seen:
+            seen.add(name)
+            j = child_to_joint[name]
+            origin = j.find("origin")
+            xyz = _floats(origin.get("xyz") if origin is not None else None, 3, f"joint '{j.get('name')}' xyz")
+            rpy = _floats(origin.get("rpy") if origin is not None else None, 3, f"joint '{j.get('name')}' rpy")
+            r = _rpy_matrix(*rpy)
+            rot, pos = r @ rot, r @ pos + np.asarray(xyz)
+            name = j.find("parent").get("link")
+        return rot, pos
+
+    def side(names: Sequence[str]) -> tuple[float, float]:
+        radii, ys = [], []
+        for n in names:
+            j = joints.get(n)
+            if j is None:
+                raise InputError(f"joint '{n}' is not in the robot description; fix wheels.left_joints / "
+                                 "wheels.right_joints or give the geometry in the parameters file.")
+            child = j.find("child").get("link")
+            radius = _cylinder_radius(links.get(child))
+            if radius is None or radius <= 0:
+                raise InputError(f"wheel link '{child}' of joint '{n}' has no cylinder radius in the robot "
+                                 "description; give wheels.left_radius / wheels.right_radius in the parameters file.")
+            radii.append(radius)
+            ys.append(float(to_base(child)[1][1]))
+        return float(np.mean(radii)), float(np.mean(ys))
+
+    lr, ly = side(left_joints)
+    rr, ry = side(right_joints)
+    track = abs(ly - ry)
+    if not track > 0:
+        raise InputError("the robot description puts the left and right wheels at the same y; give "
+                         "wheels.track_width in the parameters file.")
+    return UrdfGeometry(lr, rr, track, tuple(left_joints), tuple(right_joints), root.get("name", ""))

@@ -1,0 +1,316 @@
+"""The drive simulator: a Scenario in, encoder readings, gyro, true poses and true slip out (numpy only).
+
+Model (kinematic, REP 103 frames, SI units):
+
+* The base follows the scenario's route exactly; that is the ground truth. Each segment has
+  constant curvature and a trapezoidal progress profile (rest to rest, limited by the scenario's
+  acceleration; constant speed when the limit is 0), so the true pose is evaluated in closed form
+  at every stamp (no numerical integration): an arc of curvature k from heading th0 moves the
+  base by the chord p sinc(k p / 2) in direction th0 + k p / 2 (Siegwart et al. 2011, ch. 3).
+* The wheels' ground travel follows from the *true* track b: on an arc of curvature k the left
+  contact line travels p (1 - k b / 2), the right p (1 + k b / 2); turning on the spot by dth they
+  travel -+ b dth / 2.
+* Encoders: per step, measured wheel travel = ground travel x slip factor + Gaussian noise of
+  variance k_side |travel| (the core's per_wheel model); joint angle = cumulative measured travel /
+  true radius (rad). Joint velocity = backward difference of the reported angle / dt (0 first).
+* Slip (encoders misreport, the base still follows the route): factor 1 / (1 - s) for 'spin' and
+  (1 - s) for 'drag', s the slip ratio; applied to a step when the event is active at the step's
+  end stamp and that wheel's ground speed exceeds ``MOVING_MPS`` (only then is it labelled).
+* Gyro z = true yaw rate at the stamp + bias + white noise (sd per sample).
+
+Random streams (wheel noise left, right, gyro) are independent children of one SeedSequence(seed),
+so a given seed always gives the same result and switching one noise off leaves the others alone.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..analysis.path import PlanarPath
+from ..core.motion import wrap_angle
+from ..core.wheels import JointSamples
+from .scenario import Scenario, Segment
+
+__all__ = ["SimResult", "simulate", "segment_times", "segment_duration", "MOVING_MPS"]
+
+MOVING_MPS = 1e-3  # a wheel slower than this over the ground is "not moving": no slip applied or labelled
+
+
+@dataclass
+class SimResult:
+    """Output of ``simulate``; arrays are per joint-state sample (N,) unless noted.
+
+    ``position_rad`` / ``velocity_radps`` (N, 2) are what the encoders report (left, right columns
+    in ``joint_names`` order), including slip and random error. ``true_*`` poses are in the odom
+    frame at the joint stamps; ``true_yaw_rad`` is wrapped to (-pi, pi], ``true_theta_rad`` not.
+    ``slip_intervals_ns`` (K, 2) int64 are inclusive [first, last] stamps of the samples whose
+    step slipped, with ``slip_side`` ('left'/'right') and ``slip_kind`` ('spin'/'drag') per row;
+    ``slip_left`` / ``slip_right`` (N,) mark the same samples.
+    """
+
+    scenario: Scenario
+    seed: int
+    stamp_ns: np.ndarray
+    joint_names: tuple[str, str]
+    position_rad: np.ndarray
+    velocity_radps: np.ndarray
+    gyro_z_radps: np.ndarray
+    true_x_m: np.ndarray
+    true_y_m: np.ndarray
+    true_yaw_rad: np.ndarray
+    true_theta_rad: np.ndarray
+    true_v_mps: np.ndarray
+    true_w_radps: np.ndarray
+    true_travel_m: np.ndarray          # (N, 2) cumulative ground travel of the left / right wheel
+    slip_left: np.ndarray
+    slip_right: np.ndarray
+    slip_intervals_ns: np.ndarray
+    slip_side: np.ndarray
+    slip_kind: np.ndarray
+    true_left_radius_m: float
+    true_right_radius_m: float
+    true_track_m: float
+
+    def __len__(self) -> int:
+        return int(len(self.stamp_ns))
+
+    @property
+    def t_s(self) -> np.ndarray:
+        """Seconds since the first sample."""
+        return (self.stamp_ns - self.stamp_ns[0]) * 1e-9
+
+    @property
+    def slip_any(self) -> np.ndarray:
+        """(N,) any wheel slipping over the step ending at the sample."""
+        return self.slip_left | self.slip_right
+
+    @property
+    def distance_m(self) -> float:
+        """Distance the base centre travelled (m)."""
+        return float(np.sum(np.hypot(np.diff(self.true_x_m), np.diff(self.true_y_m))))
+
+    def joint_samples(self) -> JointSamples:
+        """The encoder readings as the core's JointSamples."""
+        return JointSamples(self.stamp_ns.copy(), tuple(self.joint_names), self.position_rad.copy(),
+                            self.velocity_radps.copy())
+
+    def truth_path(self) -> PlanarPath:
+        """The true poses as a PlanarPath in the odom frame."""
+        return PlanarPath(self.stamp_ns.copy(), self.true_x_m.copy(), self.true_y_m.copy(),
+                          self.true_yaw_rad.copy(), "odom")
+
+    def true_settings_values(self) -> dict[str, object]:
+        """Dotted parameters with the true geometry (see ``Scenario.true_params``)."""
+        return dict(self.scenario.true_params)
+
+
+def _profile_duration(extent: float, peak: float, accel: float) -> float:
+    if extent <= 0:
+        return 0.0
+    if accel <= 0:
+        return extent / peak
+    t_ramp = peak / accel
+    if accel * t_ramp * t_ramp >= extent:      # triangular profile: never reaches the peak
+        return 2.0 * math.sqrt(extent / accel)
+    return 2.0 * t_ramp + (extent - accel * t_ramp * t_ramp) / peak
+
+
+def _profile(t: np.ndarray, extent: float, peak: float, accel: float) -> tuple[np.ndarray, np.ndarray]:
+    """Progress p(t) and rate p'(t) of a rest-to-rest trapezoidal profile over ``extent``."""
+    total = _profile_duration(extent, peak, accel)
+    t = np.clip(t, 0.0, total)
+    if accel <= 0:
+        return peak * t, np.full_like(t, peak)
+    t_ramp = peak / accel
+    if accel * t_ramp * t_ramp >= extent:
+        t_ramp = math.sqrt(extent / accel)
+        peak = accel * t_ramp
+    cruise_end = total - t_ramp
+    d_ramp = 0.5 * accel * t_ramp * t_ramp
+    p = np.where(t < t_ramp, 0.5 * accel * t * t,
+                 np.where(t <= cruise_end, d_ramp + peak * (t - t_ramp),
+                          extent - 0.5 * accel * (total - t) ** 2))
+    rate = np.where(t < t_ramp, accel * t, np.where(t <= cruise_end, peak, accel * (total - t)))
+    return p, rate
+
+
+def _segment_params(seg: Segment, scenario: Scenario) -> tuple[float, float, float]:
+    """(extent, peak rate, acceleration) of a segment's progress variable."""
+    if seg.kind in ("straight", "arc"):
+        return seg.extent, seg.speed_mps, scenario.accel_mps2
+    if seg.kind == "turn":
+        return seg.extent, seg.turn_rate_radps, scenario.accel_radps2
+    return 0.0, 1.0, 0.0
+
+
+def segment_duration(seg: Segment, scenario: Scenario) -> float:
+    """Seconds the segment takes under the scenario's acceleration limits."""
+    if seg.kind == "pause":
+        return seg.duration_s
+    return _profile_duration(*_segment_params(seg, scenario))
+
+
+def segment_times(scenario: Scenario) -> np.ndarray:
+    """(S + 1,) start time of each segment in seconds since the first sample, then the route's end.
+
+    The route starts after ``lead_in_s`` of standing still and is followed by the same again.
+    """
+    times = [scenario.lead_in_s]
+    for seg in scenario.segments:
+        times.append(times[-1] + segment_duration(seg, scenario))
+    return np.asarray(times)
+
+
+def _runs(mask: np.ndarray) -> list[tuple[int, int]]:
+    """Inclusive (first, last) index pairs of the True runs of a boolean array."""
+    if not mask.any():
+        return []
+    d = np.diff(np.concatenate(([0], mask.astype(np.int8), [0])))
+    starts = np.flatnonzero(d == 1)
+    ends = np.flatnonzero(d == -1) - 1
+    return list(zip(starts.tolist(), ends.tolist()))
+
+
+def simulate(scenario: Scenario, seed: int = 0) -> SimResult:
+    """Simulate ``scenario`` with random streams from ``seed`` (deterministic; see the module docstring)."""
+    sc = scenario
+    b = sc.true_track_m
+    times = segment_times(sc)
+    total_s = times[-1] + sc.lead_in_s
+    n = int(math.floor(total_s * sc.rate_hz + 1e-9)) + 1
+    t = np.arange(n) / sc.rate_hz
+    stamp_ns = sc.start_stamp_ns + np.round(t * 1e9).astype(np.int64)
+
+    x = np.empty(n)
+    y = np.empty(n)
+    th = np.empty(n)
+    v = np.zeros(n)
+    w = np.zeros(n)
+    trav = np.empty((n, 2))
+    vw = np.zeros((n, 2))           # ground speed of the left / right wheel
+    x0, y0, th0 = (float(c) for c in sc.start_pose)
+    l0 = r0 = 0.0
+    seg_index = np.searchsorted(times, t, side="right") - 1   # -1 before the route, S after it
+    before = seg_index < 0
+    x[before], y[before], th[before], trav[before] = x0, y0, th0, (0.0, 0.0)
+    for k, seg in enumerate(sc.segments):
+        sel = seg_index == k
+        extent, peak, accel = _segment_params(seg, sc)
+        ts = t[sel] - times[k]
+        p, pd = _profile(ts, extent, peak, accel) if extent > 0 else (np.zeros(ts.shape), np.zeros(ts.shape))
+        p_end = extent
+        if seg.kind == "straight":
+            sgn = 1.0 if seg.length_m >= 0 else -1.0
+            x[sel] = x0 + sgn * p * math.cos(th0)
+            y[sel] = y0 + sgn * p * math.sin(th0)
+            th[sel] = th0
+            v[sel] = sgn * pd
+            trav[sel, 0] = l0 + sgn * p
+            trav[sel, 1] = r0 + sgn * p
+            vw[sel] = (sgn * pd)[:, None]
+            dx, dy, dth, dl, dr = sgn * p_end * math.cos(th0), sgn * p_end * math.sin(th0), 0.0, sgn * p_end, \
+                sgn * p_end
+        elif seg.kind == "arc":
+            kappa = math.copysign(1.0 / seg.radius_m, seg.angle_rad)
+            half = 0.5 * kappa * p
+            chord = p * np.sinc(half / math.pi)
+            x[sel] = x0 + chord * np.cos(th0 + half)
+            y[sel] = y0 + chord * np.sin(th0 + half)
+            th[sel] = th0 + kappa * p
+            v[sel] = pd
+            w[sel] = kappa * pd
+            trav[sel, 0] = l0 + p * (1.0 - 0.5 * kappa * b)
+            trav[sel, 1] = r0 + p * (1.0 + 0.5 * kappa * b)
+            vw[sel, 0] = pd * (1.0 - 0.5 * kappa * b)
+            vw[sel, 1] = pd * (1.0 + 0.5 * kappa * b)
+            h_end = 0.5 * kappa * p_end
+            c_end = p_end * float(np.sinc(h_end / math.pi))
+            dx, dy, dth = c_end * math.cos(th0 + h_end), c_end * math.sin(th0 + h_end), kappa * p_end
+            dl, dr = p_end * (1.0 - 0.5 * kappa * b), p_end * (1.0 + 0.5 * kappa * b)
+        elif seg.kind == "turn":
+            sgn = 1.0 if seg.angle_rad >= 0 else -1.0
+            x[sel], y[sel] = x0, y0
+            th[sel] = th0 + sgn * p
+            w[sel] = sgn * pd
+            trav[sel, 0] = l0 - sgn * p * 0.5 * b
+            trav[sel, 1] = r0 + sgn * p * 0.5 * b
+            vw[sel, 0] = -sgn * pd * 0.5 * b
+            vw[sel, 1] = sgn * pd * 0.5 * b
+            dx, dy, dth, dl, dr = 0.0, 0.0, sgn * p_end, -sgn * p_end * 0.5 * b, sgn * p_end * 0.5 * b
+        else:  # pause
+            x[sel], y[sel], th[sel], trav[sel] = x0, y0, th0, (l0, r0)
+            dx = dy = dth = dl = dr = 0.0
+        x0, y0, th0, l0, r0 = x0 + dx, y0 + dy, th0 + dth, l0 + dl, r0 + dr
+    after = seg_index >= len(sc.segments)
+    x[after], y[after], th[after], trav[after] = x0, y0, th0, (l0, r0)
+
+    # -- slip factors per step (the step ending at each sample) -----------------------------------
+    moving = np.abs(vw) > MOVING_MPS
+    factor = np.ones((n, 2))
+    masks: dict[tuple[int, str], np.ndarray] = {}
+
+    def apply(side_cols: tuple[int, ...], active: np.ndarray, kind: str, ratio: float) -> None:
+        f = 1.0 / (1.0 - ratio) if kind == "spin" else (1.0 - ratio)
+        for c in side_cols:
+            hit = active & moving[:, c]
+            factor[hit, c] *= f
+            key = (c, kind)
+            masks[key] = masks.get(key, np.zeros(n, dtype=bool)) | hit
+
+    for ev in sc.slip_events:
+        active = (t >= ev.start_s) & (t <= ev.start_s + ev.duration_s)
+        cols = {"left": (0,), "right": (1,), "both": (0, 1)}[ev.side]
+        apply(cols, active, ev.kind, ev.slip_ratio)
+    if sc.floor_patches:
+        half_b = 0.5 * b
+        cx = np.stack([x - np.sin(th) * half_b, x + np.sin(th) * half_b], axis=1)   # left, right contact
+        cy = np.stack([y + np.cos(th) * half_b, y - np.cos(th) * half_b], axis=1)
+        for patch in sc.floor_patches:
+            inside = ((cx >= patch.x_min_m) & (cx <= patch.x_max_m) & (cy >= patch.y_min_m)
+                      & (cy <= patch.y_max_m))
+            apply((0,), inside[:, 0], patch.kind, patch.slip_ratio)
+            apply((1,), inside[:, 1], patch.kind, patch.slip_ratio)
+    if n:
+        factor[0] = 1.0
+        for key in masks:
+            masks[key][0] = False
+
+    # -- encoders, gyro --------------------------------------------------------------------------
+    rng_left, rng_right, rng_gyro = (np.random.default_rng(s) for s in np.random.SeedSequence(seed).spawn(3))
+    d_true = np.zeros((n, 2))
+    d_true[1:] = np.diff(trav, axis=0)
+    d_meas = d_true * factor
+    for c, (k_m, rng) in enumerate(((sc.k_left_m, rng_left), (sc.k_right_m, rng_right))):
+        z = rng.standard_normal(n)
+        if k_m > 0:
+            d_meas[:, c] += np.sqrt(k_m * np.abs(d_meas[:, c])) * z
+    radius = np.array([sc.true_left_radius_m, sc.true_right_radius_m])
+    position = np.cumsum(d_meas, axis=0) / radius
+    velocity = np.zeros((n, 2))
+    if n > 1:
+        dt = np.diff(stamp_ns) * 1e-9
+        velocity[1:] = np.diff(position, axis=0) / dt[:, None]
+    gyro = w + sc.gyro_bias_radps + sc.gyro_noise_sd_radps * rng_gyro.standard_normal(n)
+
+    # -- slip truth intervals ---------------------------------------------------------------------
+    rows: list[tuple[int, int, str, str]] = []
+    for (c, kind), mask in masks.items():
+        for first, last in _runs(mask):
+            rows.append((int(stamp_ns[first]), int(stamp_ns[last]), ("left", "right")[c], kind))
+    rows.sort()
+    intervals = np.array([(r[0], r[1]) for r in rows], dtype=np.int64).reshape(-1, 2)
+    slip_left = np.zeros(n, dtype=bool)
+    slip_right = np.zeros(n, dtype=bool)
+    for (c, _), mask in masks.items():
+        (slip_left if c == 0 else slip_right)[:] |= mask
+
+    return SimResult(
+        scenario=sc, seed=int(seed), stamp_ns=stamp_ns, joint_names=tuple(sc.joint_names),
+        position_rad=position, velocity_radps=velocity, gyro_z_radps=gyro,
+        true_x_m=x, true_y_m=y, true_yaw_rad=wrap_angle(th), true_theta_rad=th, true_v_mps=v, true_w_radps=w,
+        true_travel_m=trav, slip_left=slip_left, slip_right=slip_right, slip_intervals_ns=intervals,
+        slip_side=np.array([r[2] for r in rows], dtype="<U5"), slip_kind=np.array([r[3] for r in rows], dtype="<U4"),
+        true_left_radius_m=sc.true_left_radius_m, true_right_radius_m=sc.true_right_radius_m,
+        true_track_m=sc.true_track_m)

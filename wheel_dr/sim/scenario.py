@@ -1,0 +1,270 @@
+"""Drive scenarios for the simulator: route segments, true and nominal geometry, noise, slip events.
+
+Everything here is plain data (frozen dataclasses). A scenario says what the base really does
+(the route, driven with the *true* geometry) and how its sensors misreport it (wheel random
+error, slip, gyro bias and noise). ``wheel_dr.sim.simulate`` turns it into arrays.
+
+Units are SI (REP 103): metres, radians, seconds; yaw counter-clockwise positive, body x forward,
+y left. The demo numbers (the "Quokka" cart in the "Ferncliff Seed Bank") are invented.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field, replace
+from typing import Sequence
+
+import numpy as np
+
+__all__ = [
+    "Segment",
+    "straight",
+    "arc",
+    "turn_in_place",
+    "pause",
+    "SlipEvent",
+    "FloorPatch",
+    "Scenario",
+    "QUOKKA_JOINTS",
+    "QUOKKA_NOMINAL_RADIUS_M",
+    "QUOKKA_NOMINAL_TRACK_M",
+    "QUOKKA_TRUE_LEFT_RADIUS_M",
+    "QUOKKA_TRUE_RIGHT_RADIUS_M",
+    "QUOKKA_TRUE_TRACK_M",
+    "DEMO_START_STAMP_NS",
+    "waypoint_route",
+]
+
+# The demo cart (invented numbers, demo only): nominal design values and the "true" ones
+# (a worn tyre and a bent axle mount).
+QUOKKA_JOINTS = ("quokka_left_wheel_joint", "quokka_right_wheel_joint")
+QUOKKA_NOMINAL_RADIUS_M = 0.0825
+QUOKKA_NOMINAL_TRACK_M = 0.412
+QUOKKA_TRUE_LEFT_RADIUS_M = 0.0829
+QUOKKA_TRUE_RIGHT_RADIUS_M = 0.0822
+QUOKKA_TRUE_TRACK_M = 0.4185
+
+DEMO_START_STAMP_NS = 1_800_000_000 * 1_000_000_000  # 2027-01-15 08:00 UTC, an arbitrary start
+
+SEGMENT_KINDS = ("straight", "arc", "turn", "pause")
+SLIP_KINDS = ("spin", "drag")
+SLIP_SIDES = ("left", "right", "both")
+
+
+@dataclass(frozen=True)
+class Segment:
+    """One piece of route with constant curvature.
+
+    * ``straight``: ``length_m`` (negative drives backwards) at ``speed_mps``;
+    * ``arc``: turn by ``angle_rad`` (positive = left, counter-clockwise) on a circle of
+      ``radius_m`` (> 0, of the base centre) at ``speed_mps`` along the arc;
+    * ``turn``: turn on the spot by ``angle_rad`` at ``turn_rate_radps``;
+    * ``pause``: stand still for ``duration_s``.
+
+    ``speed_mps`` / ``turn_rate_radps`` are peak magnitudes; the scenario's acceleration limits
+    shape a trapezoidal profile from rest to rest (or constant speed when they are 0).
+    """
+
+    kind: str
+    length_m: float = 0.0
+    angle_rad: float = 0.0
+    radius_m: float = 0.0
+    speed_mps: float = 0.5
+    turn_rate_radps: float = 0.8
+    duration_s: float = 0.0
+
+    def __post_init__(self) -> None:
+        if self.kind not in SEGMENT_KINDS:
+            raise ValueError(f"segment kind '{self.kind}' is not one of {', '.join(SEGMENT_KINDS)}.")
+        if self.kind == "arc" and not self.radius_m > 0:
+            raise ValueError("an arc segment needs radius_m > 0 (use kind 'turn' to turn on the spot).")
+        if self.kind in ("straight", "arc") and not self.speed_mps > 0:
+            raise ValueError("segment speed_mps must be > 0.")
+        if self.kind == "turn" and not self.turn_rate_radps > 0:
+            raise ValueError("segment turn_rate_radps must be > 0.")
+        if self.kind == "pause" and not self.duration_s >= 0:
+            raise ValueError("pause duration_s must be >= 0.")
+
+    @property
+    def extent(self) -> float:
+        """Length of the progress variable: metres (straight, arc) or radians (turn); 0 for a pause."""
+        if self.kind == "straight":
+            return abs(self.length_m)
+        if self.kind == "arc":
+            return abs(self.angle_rad) * self.radius_m
+        if self.kind == "turn":
+            return abs(self.angle_rad)
+        return 0.0
+
+
+def straight(length_m: float, speed_mps: float = 0.5) -> Segment:
+    """Drive ``length_m`` straight ahead (negative: backwards)."""
+    return Segment("straight", length_m=length_m, speed_mps=speed_mps)
+
+
+def arc(angle_rad: float, radius_m: float, speed_mps: float = 0.4) -> Segment:
+    """Turn by ``angle_rad`` (positive left) on a circle of ``radius_m``."""
+    return Segment("arc", angle_rad=angle_rad, radius_m=radius_m, speed_mps=speed_mps)
+
+
+def turn_in_place(angle_rad: float, turn_rate_radps: float = 0.8) -> Segment:
+    """Turn on the spot by ``angle_rad`` (positive left)."""
+    return Segment("turn", angle_rad=angle_rad, turn_rate_radps=turn_rate_radps)
+
+
+def pause(duration_s: float) -> Segment:
+    """Stand still for ``duration_s``."""
+    return Segment("pause", duration_s=duration_s)
+
+
+@dataclass(frozen=True)
+class SlipEvent:
+    """Slip placed by time: from ``start_s`` (since the first sample) for ``duration_s``.
+
+    ``kind`` 'spin': the wheel turns faster than the ground moves under it (encoder over-reads);
+    'drag': slower (encoder under-reads). ``slip_ratio`` s in [0, 0.95] uses the common-practice
+    longitudinal slip ratio s = |r w - v| / max(|r w|, |v|): spin r w = v / (1 - s),
+    drag r w = v (1 - s).
+    """
+
+    start_s: float
+    duration_s: float
+    side: str = "left"
+    kind: str = "spin"
+    slip_ratio: float = 0.3
+
+    def __post_init__(self) -> None:
+        _check_slip(self.side, self.kind, self.slip_ratio)
+
+
+@dataclass(frozen=True)
+class FloorPatch:
+    """Slip placed by a floor patch: an axis-aligned rectangle in the odom frame (metres).
+
+    A wheel slips (``kind``, ``slip_ratio`` as in ``SlipEvent``) while its contact point is inside.
+    """
+
+    x_min_m: float
+    x_max_m: float
+    y_min_m: float
+    y_max_m: float
+    kind: str = "spin"
+    slip_ratio: float = 0.3
+    name: str = "patch"
+
+    def __post_init__(self) -> None:
+        _check_slip("both", self.kind, self.slip_ratio)
+        if not (self.x_max_m > self.x_min_m and self.y_max_m > self.y_min_m):
+            raise ValueError("a floor patch needs x_max_m > x_min_m and y_max_m > y_min_m.")
+
+
+def _check_slip(side: str, kind: str, ratio: float) -> None:
+    if side not in SLIP_SIDES:
+        raise ValueError(f"slip side '{side}' is not one of {', '.join(SLIP_SIDES)}.")
+    if kind not in SLIP_KINDS:
+        raise ValueError(f"slip kind '{kind}' is not one of {', '.join(SLIP_KINDS)}.")
+    if not 0.0 <= ratio <= 0.95:
+        raise ValueError(f"slip_ratio {ratio} is outside [0, 0.95].")
+
+
+@dataclass(frozen=True)
+class Scenario:
+    """A complete simulated drive (see the module docstring). Units in the field names.
+
+    Geometry: ``true_*`` is what the base really has (it moves the base and turns the wheels);
+    ``nominal_*`` is the design value, written to the URDF and to nominal parameter files.
+    Random wheel error: each step's measured travel of a wheel is its true travel plus zero-mean
+    Gaussian noise of variance ``k_*_m`` * |travel| (the core's ``per_wheel`` model; 0 = none).
+    Gyro: z rate = true yaw rate + ``gyro_bias_radps`` + white noise of standard deviation
+    ``gyro_noise_sd_radps`` per sample. ``accel_mps2`` / ``accel_radps2`` limit the speed ramps
+    (0 = speed changes instantly, segments at constant speed).
+    """
+
+    name: str
+    segments: tuple[Segment, ...]
+    rate_hz: float = 100.0
+    true_left_radius_m: float = QUOKKA_TRUE_LEFT_RADIUS_M
+    true_right_radius_m: float = QUOKKA_TRUE_RIGHT_RADIUS_M
+    true_track_m: float = QUOKKA_TRUE_TRACK_M
+    nominal_left_radius_m: float = QUOKKA_NOMINAL_RADIUS_M
+    nominal_right_radius_m: float = QUOKKA_NOMINAL_RADIUS_M
+    nominal_track_m: float = QUOKKA_NOMINAL_TRACK_M
+    k_left_m: float = 0.0
+    k_right_m: float = 0.0
+    slip_events: tuple[SlipEvent, ...] = ()
+    floor_patches: tuple[FloorPatch, ...] = ()
+    gyro_bias_radps: float = 0.0
+    gyro_noise_sd_radps: float = 0.0
+    accel_mps2: float = 0.5
+    accel_radps2: float = 1.5
+    start_pose: tuple[float, float, float] = (0.0, 0.0, 0.0)
+    start_stamp_ns: int = DEMO_START_STAMP_NS
+    lead_in_s: float = 1.0
+    joint_names: tuple[str, str] = QUOKKA_JOINTS
+    description: str = ""
+    extra: dict = field(default_factory=dict, compare=False)
+
+    def __post_init__(self) -> None:
+        if not self.segments:
+            raise ValueError("a scenario needs at least one segment.")
+        if not self.rate_hz > 0:
+            raise ValueError("rate_hz must be > 0.")
+        for name in ("true_left_radius_m", "true_right_radius_m", "true_track_m", "nominal_left_radius_m",
+                     "nominal_right_radius_m", "nominal_track_m"):
+            if not getattr(self, name) > 0:
+                raise ValueError(f"{name} must be > 0.")
+        if self.k_left_m < 0 or self.k_right_m < 0 or self.gyro_noise_sd_radps < 0:
+            raise ValueError("noise levels must be >= 0.")
+
+    def with_values(self, **changes) -> "Scenario":
+        """A copy with some fields changed (``dataclasses.replace``)."""
+        return replace(self, **changes)
+
+    @property
+    def nominal_params(self) -> dict[str, object]:
+        """Dotted wheel_dr parameters for the nominal geometry and this scenario's joints."""
+        return {"wheels.left_joints": [self.joint_names[0]], "wheels.right_joints": [self.joint_names[1]],
+                "wheels.left_radius": self.nominal_left_radius_m, "wheels.right_radius": self.nominal_right_radius_m,
+                "wheels.track_width": self.nominal_track_m}
+
+    @property
+    def true_params(self) -> dict[str, object]:
+        """Dotted wheel_dr parameters for the true geometry (what a perfect calibration finds)."""
+        return {"wheels.left_joints": [self.joint_names[0]], "wheels.right_joints": [self.joint_names[1]],
+                "wheels.left_radius": self.true_left_radius_m, "wheels.right_radius": self.true_right_radius_m,
+                "wheels.track_width": self.true_track_m}
+
+
+def waypoint_route(points_xy: Sequence[tuple[float, float]], start_yaw_rad: float = 0.0,
+                   speed_mps: float = 0.5, corner_radius_m: float = 0.0,
+                   turn_rate_radps: float = 0.8) -> tuple[Segment, ...]:
+    """Segments that drive through ``points_xy`` in order, starting at the first point.
+
+    At each corner the base turns on the spot (``corner_radius_m`` 0) or, if > 0, the straight runs
+    are shortened and joined by an arc of that radius (which must fit in both neighbouring runs).
+    """
+    pts = np.asarray(points_xy, dtype=np.float64)
+    if len(pts) < 2:
+        raise ValueError("a waypoint route needs at least two points.")
+    d = np.diff(pts, axis=0)
+    lengths = np.hypot(d[:, 0], d[:, 1])
+    if np.any(lengths <= 0):
+        raise ValueError("consecutive waypoints must differ.")
+    headings = np.arctan2(d[:, 1], d[:, 0])
+    turns = [math.remainder(headings[0] - start_yaw_rad, 2 * math.pi)]
+    turns += [math.remainder(headings[i] - headings[i - 1], 2 * math.pi) for i in range(1, len(headings))]
+    cut = [corner_radius_m * abs(math.tan(t / 2)) if corner_radius_m > 0 else 0.0 for t in turns]
+    segs: list[Segment] = []
+    for i, length in enumerate(lengths):
+        if abs(turns[i]) > 1e-12:
+            if i == 0 or corner_radius_m <= 0:
+                segs.append(turn_in_place(turns[i], turn_rate_radps))
+            else:
+                segs.append(arc(turns[i], corner_radius_m, min(speed_mps, 0.4)))
+        before = cut[i] if i > 0 else 0.0
+        after = cut[i + 1] if i + 1 < len(lengths) else 0.0
+        run = length - before - after
+        if run < -1e-9:
+            raise ValueError(f"corner radius {corner_radius_m} m does not fit between waypoints {i} and {i + 1}.")
+        if run > 1e-9:
+            segs.append(straight(run, speed_mps))
+    return tuple(segs)
