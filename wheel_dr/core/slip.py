@@ -330,11 +330,11 @@ def _no_slip(m: int) -> SlipResult:
 # ------------------------------------------------------------------------------------------------
 # batch
 # ------------------------------------------------------------------------------------------------
-def _side_sum(w: np.ndarray, lo: int, hi: int) -> np.ndarray:
+def _side_sum(w: list[np.ndarray], lo: int, hi: int) -> np.ndarray:
     """Mean of columns lo..hi-1 by sequential additions (as the streaming form)."""
-    total = w[:, lo]
+    total = w[lo]
     for c in range(lo + 1, hi):
-        total = total + w[:, c]
+        total = total + w[c]
     return total / (hi - lo)
 
 
@@ -409,40 +409,42 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
     clean = has_b & (last_restart < j)
     t_eff = (stamp - stamp[bnd]) * 1e-9
     safe = np.where(clean, t_eff, 1.0)
-    wj = np.column_stack([c[1:] - c[j] for c in cum_joints])
-    vj = np.where(clean[:, None], wj / safe[:, None], 0.0)
+    # speeds per joint column; unclean windows (safe = 1) hold window sums that are never used
+    wj = [c[1:] - c[j] for c in cum_joints]
+    vj = [w / safe for w in wj]
     wl, wr = _side_sum(wj, 0, nl), _side_sum(wj, nl, nj)
-    vl = np.where(clean, wl / safe, 0.0)
-    vr = np.where(clean, wr / safe, 0.0)
+    vl, vr = wl / safe, wr / safe
     vb = 0.5 * (vl + vr)
     clean_b = has_b & clean[bnd]
 
     # traction: a / (mu g) per joint, a = difference of window-mean speeds one window apart;
     # per side the joint with the largest |a| (the first of equals)
     valid_a = clean & clean_b
-    za = np.where(valid_a[:, None], (vj - vj[bnd]) / safe[:, None] / k.mu_g, 0.0)
+    za = [np.where(valid_a, (v - v[bnd]) / safe / k.mu_g, 0.0) for v in vj]
 
-    def side_extreme(part: np.ndarray) -> np.ndarray:
-        if part.shape[1] == 1:
-            return part[:, 0]
-        pick = np.argmax(np.abs(part), axis=1)
-        return np.take_along_axis(part, pick[:, None], axis=1)[:, 0]
+    def side_extreme(part: list[np.ndarray]) -> np.ndarray:
+        if len(part) == 1:
+            return part[0]
+        stacked = np.column_stack(part)
+        pick = np.argmax(np.abs(stacked), axis=1)
+        return np.take_along_axis(stacked, pick[:, None], axis=1)[:, 0]
 
-    st_left, st_right = side_extreme(za[:, :nl]), side_extreme(za[:, nl:])
+    st_left, st_right = side_extreme(za[:nl]), side_extreme(za[nl:])
     zt_left, zt_right = np.abs(st_left), np.abs(st_right)
 
     # same side: spread / max(mean |v|, floor) / ratio
-    def same_side(cols: range) -> np.ndarray:
-        vs = vj[:, cols.start:cols.stop]
-        mean_abs = np.abs(vs[:, 0])
-        for c in range(1, vs.shape[1]):
-            mean_abs = mean_abs + np.abs(vs[:, c])
-        mean_abs = mean_abs / vs.shape[1]
-        spread = vs.max(axis=1) - vs.min(axis=1)
-        return np.where(clean, spread / np.maximum(mean_abs, k.ss_min) / k.ss_ratio, 0.0)
+    def same_side(lo: int, hi: int) -> np.ndarray:
+        vs = vj[lo:hi]
+        mean_abs = np.abs(vs[0])
+        hi_v, lo_v = vs[0], vs[0]
+        for v in vs[1:]:
+            mean_abs = mean_abs + np.abs(v)
+            hi_v, lo_v = np.maximum(hi_v, v), np.minimum(lo_v, v)
+        mean_abs = mean_abs / len(vs)
+        return np.where(clean, (hi_v - lo_v) / np.maximum(mean_abs, k.ss_min) / k.ss_ratio, 0.0)
 
-    zs_left = same_side(range(0, nl)) if nl >= 2 else None
-    zs_right = same_side(range(nl, nj)) if nj - nl >= 2 else None
+    zs_left = same_side(0, nl) if nl >= 2 else None
+    zs_right = same_side(nl, nj) if nj - nl >= 2 else None
 
     # gyro against wheels, over the window and (for mild sustained slips) the long window
     if has_gyro:
@@ -474,7 +476,7 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
             at = np.flatnonzero(g_ok & (zg >= LONG_SHORT_SCORE))
             jl = np.searchsorted(stamp, stamp[at] - k.long_ns, side="right")
             ok_l = (jl >= 1) & (last_restart[at] < jl) & (last_miss[at] < jl)
-            wjl = np.column_stack([c[at + 1] - c[jl] for c in cum_joints])
+            wjl = [c[at + 1] - c[jl] for c in cum_joints]
             zl, dl_w, _ = gyro_test(at, jl, ok_l, _side_sum(wjl, 0, nl), _side_sum(wjl, nl, nj))
             agree = (d[at] > 0.0) == (dl_w > 0.0)
             zg[at] = np.maximum(zg[at], np.where(agree, zl, 0.0))
@@ -665,10 +667,9 @@ class SlipMonitor:
         clean = bnd is not None and now[2] - b_tot[2] == 0
         safe = t_eff if clean else 1.0
         wj = [tj[i] - b_joints[i] for i in range(nj)]
-        vj = [wj[i] / safe if clean else 0.0 for i in range(nj)]
+        vj = [wj[i] / safe for i in range(nj)]
         wl, wr = _side_sum_one(wj, 0, nl), _side_sum_one(wj, nl, nj)
-        vl = wl / safe if clean else 0.0
-        vr = wr / safe if clean else 0.0
+        vl, vr = wl / safe, wr / safe
         vb = 0.5 * (vl + vr)
         entry.clean, entry.vj, entry.vb = clean, vj, vb
         clean_b = bnd is not None and bnd.clean
