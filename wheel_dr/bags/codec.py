@@ -160,7 +160,7 @@ def pose_layout(raw: bytes, msgtype: str, ros1: bool = False) -> Layout | None:
         return None
 
 
-def stack_raw(raws: Sequence[bytes], layout: Layout) -> np.ndarray | None:
+def stack_raw(raws: Sequence[bytes], layout: Layout, ros1: bool = False) -> np.ndarray | None:
     """(N, L) uint8 array of the messages if all share ``layout`` (length and fixed bytes), else None."""
     n = len(raws)
     if n == 0:
@@ -173,7 +173,7 @@ def stack_raw(raws: Sequence[bytes], layout: Layout) -> np.ndarray | None:
         block = arr[:, layout.fixed_from:layout.fixed_to]
         if not (block == block[0]).all():
             return None
-    if arr.shape[1] >= 4 and layout.sec_offset >= 4 and not (arr[:, :4] == arr[0, :4]).all():
+    if not ros1 and not (arr[:, :4] == arr[0, :4]).all():
         return None  # mixed encapsulation headers (CDR) -- not one layout
     return arr
 
@@ -196,7 +196,7 @@ def bulk_joint_states(raws: Sequence[bytes], ros1: bool = False):
     layout = joint_state_layout(raws[0], ros1)
     if layout is None:
         return None
-    arr = stack_raw(raws, layout)
+    arr = stack_raw(raws, layout, ros1)
     if arr is None:
         return None
     j = len(layout.names)
@@ -219,7 +219,7 @@ def bulk_imu_gyro_z(raws: Sequence[bytes], ros1: bool = False):
     layout = imu_layout(raws[0], ros1)
     if layout is None:
         return None
-    arr = stack_raw(raws, layout)
+    arr = stack_raw(raws, layout, ros1)
     if arr is None:
         return None
     off, _ = layout.fields["angular_velocity"]
@@ -233,7 +233,7 @@ def bulk_poses(raws: Sequence[bytes], msgtype: str, ros1: bool = False):
     layout = pose_layout(raws[0], msgtype, ros1)
     if layout is None:
         return None
-    arr = stack_raw(raws, layout)
+    arr = stack_raw(raws, layout, ros1)
     if arr is None or layout.fields["pose"][0] + 56 > layout.length:
         return None
     off, _ = layout.fields["pose"]
