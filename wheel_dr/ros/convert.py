@@ -11,6 +11,7 @@ Frames (REP 105): the pose is in ``frames.odom``, the twist in ``frames.base``. 
 from __future__ import annotations
 
 import math
+import struct
 from array import array
 from typing import Any, Mapping, Sequence
 
@@ -31,7 +32,10 @@ __all__ = [
     "parameter_descriptor",
     "parameter_value",
     "python_value",
-    "OdometryFrame",
+    "RawOdometryWriter",
+    "parse_joint_state",
+    "parse_imu_gyro_z",
+    "pose_cov_index",
     "flag_values",
     "pose_from_msg",
     "key_values",
@@ -113,78 +117,191 @@ def python_value(value: Any) -> Any:
     return value
 
 
-# --- odometry and TF --------------------------------------------------------------------------
-class OdometryFrame:
-    """Reusable nav_msgs/Odometry, TFMessage and flags messages filled from the estimator state.
+# --- serialised (CDR) fast path -----------------------------------------------------------------
+# The node takes joint states as serialised bytes and publishes pre-laid-out bytes: converting
+# between Python message objects and C costs more than the whole estimator step at 1 kHz. CDR
+# (OMG DDS-XTypes / CDR, little-endian encapsulation 0x0001): after the 4-byte encapsulation header,
+# every primitive is aligned to its size relative to the end of that header; strings and sequences
+# are a uint32 length followed by the elements (strings include their terminating NUL).
+_CDR_LE = b"\x00\x01"
+_u32 = struct.Struct("<I")
+_stamp = struct.Struct("<iI")
 
-    Messages are serialised when published, so one instance of each is refilled per sample
-    (allocating new ones costs more than the whole estimator step). ``tf_type`` is
-    tf2_msgs.msg.TFMessage, or None when TF is not available.
+
+def _align(pos: int, n: int) -> int:
+    """Next position aligned to ``n`` bytes, counted from the end of the 4-byte header."""
+    return pos + (-(pos - 4) % n)
+
+
+def parse_joint_state(raw: bytes) -> tuple[int, int, tuple[str, ...], tuple[float, ...], tuple[float, ...]]:
+    """Serialised sensor_msgs/JointState -> (stamp sec, nanosec, names, positions, velocities).
+
+    Efforts are not read. Raises ValueError (or struct.error) when the buffer is not a
+    little-endian CDR JointState.
+    """
+    if raw[:2] != _CDR_LE:
+        raise ValueError("joint state is not little-endian CDR")
+    sec, nanosec = _stamp.unpack_from(raw, 4)
+    n = _u32.unpack_from(raw, 12)[0]
+    pos = _align(16 + n, 4)
+    count = _u32.unpack_from(raw, pos)[0]
+    pos += 4
+    names = []
+    for _ in range(count):
+        pos = _align(pos, 4)
+        n = _u32.unpack_from(raw, pos)[0]
+        names.append(raw[pos + 4:pos + 3 + n].decode("utf-8"))
+        pos += 4 + n
+    arrays = []
+    for _ in range(2):  # position, velocity
+        pos = _align(pos, 4)
+        count = _u32.unpack_from(raw, pos)[0]
+        pos += 4
+        if count:
+            pos = _align(pos, 8)
+            arrays.append(struct.unpack_from(f"<{count}d", raw, pos))
+            pos += 8 * count
+        else:
+            arrays.append(())
+    return sec, nanosec, tuple(names), arrays[0], arrays[1]
+
+
+_IMU_WZ = struct.Struct("<d")
+
+
+def parse_imu_gyro_z(raw: bytes) -> tuple[float, bool]:
+    """Serialised sensor_msgs/Imu -> (angular_velocity.z rad/s, angular velocity provided).
+
+    sensor_msgs/Imu: angular_velocity_covariance[0] == -1 means no angular velocity.
+    After header: orientation (4 doubles), its covariance (9), angular_velocity (3), its covariance (9).
+    """
+    if raw[:2] != _CDR_LE:
+        raise ValueError("imu message is not little-endian CDR")
+    n = _u32.unpack_from(raw, 12)[0]
+    pos = _align(16 + n, 8)
+    wz = _IMU_WZ.unpack_from(raw, pos + 8 * 15)[0]
+    cov0 = _IMU_WZ.unpack_from(raw, pos + 8 * 16)[0]
+    return wz, cov0 != -1.0
+
+
+def pose_cov_index(layout: Any, size: int) -> tuple[np.ndarray, np.ndarray]:
+    """Where the core's 6x6 layout function puts each entry of a 3x3 (or 2x2) block, and the fixed rest.
+
+    Returns (flat 6x6 indices of the block's row-major entries, the 36 values for a zero block).
+    Derived by calling ``layout`` (``pose_covariance_6x6`` with size 3 / ``twist_covariance_6x6``
+    with size 2) so the layout stays defined in wheel_dr.core.conventions only.
+    """
+    base = np.asarray(layout(np.zeros((size, size))), dtype=np.float64)
+    marks = np.arange(1.0, size * size + 1.0).reshape(size, size) * 1e7 + 0.5
+    filled = np.asarray(layout(marks), dtype=np.float64) - base
+    idx = np.array([int(np.flatnonzero(filled == v)[0]) for v in marks.ravel()])
+    return idx, base
+
+
+def _find(raw: bytes, fmt: str, values: Sequence[Any]) -> int:
+    needle = struct.pack(fmt, *values)
+    at = raw.find(needle)
+    if at < 0 or raw.find(needle, at + 1) >= 0:
+        raise ValueError("could not locate a field in the serialised template")
+    return at
+
+
+class RawOdometryWriter:
+    """Serialised nav_msgs/Odometry, tf2_msgs/TFMessage (one transform) and flags, laid out once.
+
+    A template of each message is serialised by rclpy with marker values; the byte offsets of the
+    stamp and of the numeric blocks are found from the markers, so the layout is rclpy's own. Per
+    sample only those bytes are overwritten. Pose (odom frame), twist (base frame) and the 6x6
+    covariances follow ``pose_covariance_6x6`` / ``twist_covariance_6x6``; the quaternion is
+    ``yaw_to_quaternion`` (REP 103).
     """
 
     def __init__(self, odom_frame: str, base_frame: str, tf_type: type | None = None) -> None:
         from geometry_msgs.msg import TransformStamped
         from nav_msgs.msg import Odometry
+        from rclpy.serialization import serialize_message
         from std_msgs.msg import Float64MultiArray, MultiArrayDimension
 
-        self.odom = Odometry()
-        self.transform = TransformStamped()
-        self.tf = None
+        s1, s2 = 1_234_567_891, 987_654_321
+        mark = [1e9 + 0.25 * k for k in range(85)]
+        odom = Odometry()
+        odom.header.frame_id, odom.child_frame_id = odom_frame, base_frame
+        odom.header.stamp.sec, odom.header.stamp.nanosec = s1, s2
+        p = odom.pose.pose
+        p.position.x, p.position.y, p.position.z = mark[0:3]
+        p.orientation.x, p.orientation.y, p.orientation.z, p.orientation.w = mark[3:7]
+        odom.pose.covariance = mark[7:43]
+        t = odom.twist.twist
+        t.linear.x, t.linear.y, t.linear.z, t.angular.x, t.angular.y, t.angular.z = mark[43:49]
+        odom.twist.covariance = mark[49:85]
+        raw = bytes(serialize_message(odom))
+        if raw[:2] != _CDR_LE:
+            raise ValueError("this middleware does not serialise little-endian CDR")
+        self._odom = bytearray(raw)
+        self._odom_stamp = _find(raw, "<iI", (s1, s2))
+        self._odom_block = _find(raw, "<85d", mark)
+        self._values = np.zeros(85)
+        self._pose_idx, pose_base = pose_cov_index(pose_covariance_6x6, 3)
+        self._twist_idx, twist_base = pose_cov_index(twist_covariance_6x6, 2)
+        self._values[7:43] = pose_base
+        self._values[49:85] = twist_base
+        self._pose_idx = self._pose_idx + 7
+        self._twist_idx = self._twist_idx + 49
+
+        self._tf = None
         if tf_type is not None:
-            self.tf = tf_type()
-            self.tf.transforms = [self.transform]
-        self.flags = Float64MultiArray()
-        self.flags.layout.dim = [MultiArrayDimension(label=FLAGS_LABEL, size=len(FLAG_FIELDS),
-                                                     stride=len(FLAG_FIELDS))]
-        self.flags.layout.data_offset = 0
-        self._pose_cov = np.zeros(36)
-        self._twist_cov = np.zeros(36)
-        self.set_frames(odom_frame, base_frame)
+            tr = TransformStamped()
+            tr.header.frame_id, tr.child_frame_id = odom_frame, base_frame
+            tr.header.stamp.sec, tr.header.stamp.nanosec = s1, s2
+            tt = tr.transform
+            tt.translation.x, tt.translation.y, tt.translation.z = mark[0:3]
+            tt.rotation.x, tt.rotation.y, tt.rotation.z, tt.rotation.w = mark[3:7]
+            msg = tf_type()
+            msg.transforms = [tr]
+            raw = bytes(serialize_message(msg))
+            self._tf = bytearray(raw)
+            self._tf_stamp = _find(raw, "<iI", (s1, s2))
+            self._tf_block = _find(raw, "<7d", mark[0:7])
 
-    def set_frames(self, odom_frame: str, base_frame: str) -> None:
-        """Frame names: header.frame_id = odom frame, child_frame_id = base frame (REP 105)."""
-        self.odom.header.frame_id = odom_frame
-        self.odom.child_frame_id = base_frame
-        self.transform.header.frame_id = odom_frame
-        self.transform.child_frame_id = base_frame
+        flags = Float64MultiArray()
+        flags.layout.dim = [MultiArrayDimension(label=FLAGS_LABEL, size=len(FLAG_FIELDS), stride=len(FLAG_FIELDS))]
+        flags.data = mark[:len(FLAG_FIELDS)]
+        raw = bytes(serialize_message(flags))
+        self._flags = bytearray(raw)
+        self._flags_block = _find(raw, f"<{len(FLAG_FIELDS)}d", mark[:len(FLAG_FIELDS)])
+        self._flags_fmt = struct.Struct(f"<{len(FLAG_FIELDS)}d")
 
-    def fill(self, stamp_sec: int, stamp_nanosec: int, x_m: float, y_m: float, yaw_rad: float,
-             cov_xyyaw: np.ndarray, v_mps: float, w_radps: float, twist_cov_vw: np.ndarray) -> None:
-        """Fill odometry and transform from a pose (odom frame), twist (base frame) and covariances.
+    @property
+    def has_tf(self) -> bool:
+        return self._tf is not None
 
-        The quaternion is a rotation by ``yaw_rad`` about z (REP 103); covariances are laid out by
-        ``pose_covariance_6x6`` / ``twist_covariance_6x6``.
-        """
-        odom = self.odom
-        stamp = odom.header.stamp
-        stamp.sec = stamp_sec
-        stamp.nanosec = stamp_nanosec
+    def odometry(self, stamp_sec: int, stamp_nanosec: int, x_m: float, y_m: float, yaw_rad: float,
+                 cov_xyyaw: np.ndarray, v_mps: float, w_radps: float, twist_cov_vw: np.ndarray) -> bytes:
+        """Serialised Odometry (and, via ``tf()``, the matching transform) for one estimator state."""
+        v = self._values
         qx, qy, qz, qw = yaw_to_quaternion(yaw_rad)
-        pose = odom.pose.pose
-        pose.position.x = x_m
-        pose.position.y = y_m
-        q = pose.orientation
-        q.z = qz
-        q.w = qw
-        self._pose_cov[:] = pose_covariance_6x6(cov_xyyaw)
-        odom.pose.covariance = self._pose_cov
-        twist = odom.twist.twist
-        twist.linear.x = v_mps
-        twist.angular.z = w_radps
-        self._twist_cov[:] = twist_covariance_6x6(twist_cov_vw)
-        odom.twist.covariance = self._twist_cov
-        tr = self.transform
-        tr.header.stamp.sec = stamp_sec
-        tr.header.stamp.nanosec = stamp_nanosec
-        t = tr.transform
-        t.translation.x = x_m
-        t.translation.y = y_m
-        t.rotation.z = qz
-        t.rotation.w = qw
+        v[0], v[1], v[5], v[6] = x_m, y_m, qz, qw
+        v[self._pose_idx] = cov_xyyaw.ravel()
+        v[43], v[48] = v_mps, w_radps
+        v[self._twist_idx] = twist_cov_vw.ravel()
+        buf = self._odom
+        _stamp.pack_into(buf, self._odom_stamp, stamp_sec, stamp_nanosec)
+        at = self._odom_block
+        buf[at:at + 680] = v.tobytes()
+        if self._tf is not None:
+            _stamp.pack_into(self._tf, self._tf_stamp, stamp_sec, stamp_nanosec)
+            at = self._tf_block
+            self._tf[at:at + 56] = v[:7].tobytes()
+        return bytes(buf)
 
-    def fill_flags(self, values: Sequence[float]) -> None:
-        """Put one sample's flag values (``flag_values``) into the flags message."""
-        self.flags.data = array("d", values)
+    def tf(self) -> bytes:
+        """Serialised TFMessage of the last ``odometry`` call."""
+        return bytes(self._tf)
+
+    def flags(self, values: Sequence[float]) -> bytes:
+        """Serialised flags message with the FLAG_FIELDS ``values``."""
+        self._flags_fmt.pack_into(self._flags, self._flags_block, *values)
+        return bytes(self._flags)
 
 
 def flag_values(stamp_sec: int, stamp_nanosec: int, status: int, slip: Any | None) -> list[float]:

@@ -49,15 +49,14 @@ from ..core.estimator import Estimator
 from ..core.settings import Settings
 from ..core.wheels import RESTART_KINDS, SKIP_KINDS, SampleStatus
 from ..params import NODE_NAME
-from .convert import (OdometryFrame, flag_values, key_values, ns_to_sec_nanosec, parameter_descriptor,
-                      parameter_value, pose_from_msg, python_value)
+from .convert import (RawOdometryWriter, flag_values, key_values, parameter_descriptor, parameter_value,
+                      parse_imu_gyro_z, parse_joint_state, pose_from_msg, python_value)
 
 __all__ = ["OdometryNode", "main", "READ_ONLY_PARAMETERS", "LOG_THROTTLE_S", "ROS_OWNED_PREFIXES"]
 
 READ_ONLY_PARAMETERS = frozenset({"frames.odom", "frames.base"})  # TF consumers expect fixed frames
 LOG_THROTTLE_S = 5.0           # a kind of bad input is logged at most once per this many seconds
 JOINT_STATE_DEPTH = 100        # sensor-data QoS (best effort, volatile) with room for 100 ms at 1 kHz
-MAX_TAKE_PER_WAKE = 200        # messages taken per wake-up before the loop waits again
 WAIT_TIMEOUT_NS = 100_000_000  # the input loop checks for a stop request at least this often
 LATENCY_BIN_US = 1             # latency histogram resolution
 LATENCY_MAX_US = 50_000        # and range (longer latencies go to the last bin)
@@ -132,7 +131,8 @@ class OdometryNode:
         self.settings = settings
         self.estimator = Estimator(settings)
         self.lock = threading.Lock()
-        self._frame = OdometryFrame(settings.frames.odom, settings.frames.base, tf_type)
+        self._tf_type = tf_type
+        self._writer = RawOdometryWriter(settings.frames.odom, settings.frames.base, tf_type)
         self._last_log: dict[str, float] = {}
         self.received = 0
         self.imu_received = 0
@@ -158,7 +158,6 @@ class OdometryNode:
                 self.pub_tf = node.create_publisher(tf_type, "/tf", QoSProfile(depth=100))
             except Exception as exc:  # a broken type support: keep running without TF
                 self.tf_problem = f"{exc.__class__.__name__}: {exc}"
-                self._frame.tf = None
         if self.tf_problem is not None:
             self.log.warning(f"TF output disabled: tf2_msgs cannot be used in this process ({self.tf_problem}); "
                              "odometry, flags and diagnostics are still published. On a robot, source the ROS 2 "
@@ -172,10 +171,11 @@ class OdometryNode:
                             durability=qos_profile_sensor_data.durability,
                             history=qos_profile_sensor_data.history)
         self._input_group = _never_group()
+        # raw=True: the input loop gets serialised bytes and parses only the fields it needs.
         self.sub_js = node.create_subscription(JointState, "joint_states", self._on_joint_state_cb, js_qos,
-                                               callback_group=self._input_group)
+                                               callback_group=self._input_group, raw=True)
         self.sub_imu = node.create_subscription(Imu, "imu", self._on_imu_cb, js_qos,
-                                                callback_group=self._input_group)
+                                                callback_group=self._input_group, raw=True)
         self._JointState = JointState
         self._Imu = Imu
         self._DiagnosticArray = DiagnosticArray
@@ -209,13 +209,12 @@ class OdometryNode:
     def _on_imu_cb(self, msg: Any, info: Any = None) -> None:
         self.on_imu(msg)
 
-    def on_imu(self, msg: Any) -> None:
+    def on_imu(self, raw: bytes) -> None:
         """Keep the latest gyro z rate (rad/s, IMU frame assumed aligned with the base z axis)."""
         try:
             self.imu_received += 1
-            wz = float(msg.angular_velocity.z)
-            # sensor_msgs/Imu: angular_velocity_covariance[0] == -1 means no angular velocity.
-            if msg.angular_velocity_covariance[0] == -1.0 or not math.isfinite(wz):
+            wz, provided = parse_imu_gyro_z(raw)
+            if not provided or not math.isfinite(wz):
                 self._gyro_z = None
                 return
             self._gyro_z = wz
@@ -225,43 +224,40 @@ class OdometryNode:
             self._throttled("imu_error", "warning", f"imu message could not be used ({exc.__class__.__name__}: "
                                                     f"{exc}); it is ignored.")
 
-    def on_joint_state(self, msg: Any, received_ns: int) -> None:
-        """One joint-state message: estimator step, then odometry, TF and flags. Never raises."""
+    def on_joint_state(self, raw: bytes, received_ns: int) -> None:
+        """One serialised joint-state message: estimator step, then odometry, TF and flags. Never raises."""
         try:
-            self._joint_state(msg, received_ns or time.time_ns())
+            self._joint_state(raw, received_ns or time.time_ns())
         except Exception as exc:  # never die on a bad message
             self.handler_errors += 1
             self._throttled("handler_error", "error", f"joint_states message could not be processed "
                                                       f"({exc.__class__.__name__}: {exc}); it is skipped.")
 
-    def _joint_state(self, msg: Any, received_ns: int) -> None:
+    def _joint_state(self, raw: bytes, received_ns: int) -> None:
         self.received += 1
         self._period_received += 1
-        stamp = msg.header.stamp
-        sec, nanosec = stamp.sec, stamp.nanosec
+        sec, nanosec, names, positions, velocities = parse_joint_state(raw)
         stamp_ns = sec * 1_000_000_000 + nanosec
         gyro = self._gyro_z
-        frame = self._frame
         with self.lock:
+            writer = self._writer
             est = self.estimator
             if gyro is not None and time.monotonic() - self._gyro_mono > self.settings.limits.max_gap_s:
                 gyro = None  # stale IMU
-            status = est.step(stamp_ns, msg.name, msg.position, msg.velocity, gyro)
+            status = est.step(stamp_ns, names, positions, velocities, gyro)
             if status < 10:
-                frame.fill(sec, nanosec, est.x_m, est.y_m, est.yaw_rad, est.cov, est.v_mps, est.w_radps,
-                           est.twist_cov)
-                self.pub_odom.publish(frame.odom)
+                self.pub_odom.publish(writer.odometry(sec, nanosec, est.x_m, est.y_m, est.yaw_rad, est.cov,
+                                                      est.v_mps, est.w_radps, est.twist_cov))
                 self._latency.add(time.time_ns() - received_ns)
-                if frame.tf is not None and self.settings.output.publish_tf and self.pub_tf is not None:
-                    self.pub_tf.publish(frame.tf)
+                if self.pub_tf is not None and writer.has_tf and self.settings.output.publish_tf:
+                    self.pub_tf.publish(writer.tf())
                 slip = est.last_slip
                 if slip is not None and slip.slip:
                     self._period_slip += 1
                     self._last_slip = (stamp_ns, float(slip.score), int(slip.detector))
             else:
                 slip = None
-        frame.fill_flags(flag_values(sec, nanosec, int(status), slip))
-        self.pub_flags.publish(frame.flags)
+        self.pub_flags.publish(writer.flags(flag_values(sec, nanosec, int(status), slip)))
         if status != SampleStatus.USED and status != SampleStatus.CHAIN_START:
             self._note_status(status)
 
@@ -293,20 +289,20 @@ class OdometryNode:
             take_js, take_imu = js.handle.take_message, imu.handle.take_message
             while not stop.is_set() and context.ok():
                 wait_set.clear_entities()
-                wait_set.add_subscription(js.handle)
-                wait_set.add_subscription(imu.handle)
+                i_js = wait_set.add_subscription(js.handle)
+                i_imu = wait_set.add_subscription(imu.handle)
                 wait_set.add_guard_condition(self._wake.handle)
                 wait_set.wait(WAIT_TIMEOUT_NS)
-                for _ in range(MAX_TAKE_PER_WAKE):
-                    got = take_imu(Imu, False)
-                    if got is None:
-                        break
-                    self.on_imu(got[0])
-                for _ in range(MAX_TAKE_PER_WAKE):
-                    got = take_js(JointState, False)
-                    if got is None:
-                        break
-                    self.on_joint_state(got[0], int(got[1].get("received_timestamp", 0)))
+                # Level-triggered: one message per ready subscription per wake-up; more waiting ones
+                # make the next wait return at once (saves an empty take per message).
+                if wait_set.is_ready("subscription", i_imu):
+                    got = take_imu(Imu, True)
+                    if got is not None:
+                        self.on_imu(got[0])
+                if wait_set.is_ready("subscription", i_js):
+                    got = take_js(JointState, True)
+                    if got is not None:
+                        self.on_joint_state(got[0], int(got[1].get("received_timestamp", 0)))
 
     def wake(self) -> None:
         """Make the input loop look at its stop flag now."""
@@ -358,7 +354,8 @@ class OdometryNode:
         with self.lock:
             self.settings = new
             self.estimator.update_settings(new)
-            self._frame.set_frames(new.frames.odom, new.frames.base)
+            if new.frames != self.settings.frames:
+                self._writer = RawOdometryWriter(new.frames.odom, new.frames.base, self._tf_type)
         if new.output.diagnostics_period_s != old_period:
             self._diag_timer.cancel()
             self.node.destroy_timer(self._diag_timer)
