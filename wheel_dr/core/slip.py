@@ -148,8 +148,8 @@ class _Constants:
         self.clear_fraction = s.clear_fraction
         self.gate = s.gyro_gate
         self.gyro_var = s.gyro_noise_radps * s.gyro_noise_radps
-        self.rate_tol = s.gyro_rate_tolerance_radps
-        self.scale_tol = s.gyro_scale_tolerance
+        self.rate_tol2 = s.gyro_rate_tolerance_radps * s.gyro_rate_tolerance_radps
+        self.scale_tol2 = s.gyro_scale_tolerance * s.gyro_scale_tolerance
         self.bias_prior = s.gyro_bias_radps
         self.bias_samples = s.gyro_bias_samples
         self.still = s.still_speed_mps
@@ -190,12 +190,22 @@ def _c11(dl: np.ndarray, dr: np.ndarray, k: _Constants) -> np.ndarray:
 
 
 def _held(cond: np.ndarray, stamp_ns: np.ndarray, delay_ns: int) -> np.ndarray:
-    """True where ``cond`` has been true for at least ``delay_ns`` (since the first sample of its run)."""
+    """True where ``cond`` has been true for at least ``delay_ns`` (since the first sample of its run).
+
+    Works on the runs of ``cond``: each run is held from the first sample whose stamp is at least
+    ``delay_ns`` after the run's first one, to its end.
+    """
     m = len(cond)
-    prev = np.concatenate(([False], cond[:-1]))
-    start = cond & ~prev
-    first = np.maximum.accumulate(np.where(start, np.arange(m), 0))
-    return cond & (stamp_ns - stamp_ns[first] >= delay_ns)
+    if delay_ns <= 0 or m == 0:
+        return cond.copy()
+    edges = np.flatnonzero(np.diff(cond.view(np.int8), prepend=0, append=0))
+    starts, ends = edges[0::2], edges[1::2]            # runs are [start, end)
+    held_from = np.searchsorted(stamp_ns, stamp_ns[starts] + delay_ns, side="left")
+    keep = held_from < ends
+    marks = np.zeros(m + 1, dtype=np.int64)
+    np.add.at(marks, held_from[keep], 1)
+    np.add.at(marks, ends[keep], -1)
+    return np.cumsum(marks[:-1]) > 0
 
 
 def latch(score: np.ndarray, stamp_ns: np.ndarray, set_delay_ns: int, clear_delay_ns: int,
@@ -376,13 +386,13 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
         avail = np.isfinite(g)
         g = np.where(avail, g, 0.0)
         still = avail & ~restart & (np.abs(dl) <= k.still * dt) & (np.abs(dr) <= k.still * dt)
+        # bias after the c-th standstill sample: mean of the last min(c, N) of them; held between
         still_total = _cum(g[still])
-        count = np.cumsum(still)
-        n_used = np.minimum(count, k.bias_samples)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            bias = np.where(count >= BIAS_MIN_SAMPLES,
-                            (still_total[count] - still_total[count - n_used]) / np.maximum(n_used, 1),
-                            k.bias_prior)
+        c = np.arange(1, len(still_total))
+        n_used = np.minimum(c, k.bias_samples)
+        at_still = np.concatenate(((k.bias_prior,), (still_total[c] - still_total[c - n_used]) / n_used))
+        at_still[1:BIAS_MIN_SAMPLES] = k.bias_prior
+        bias = at_still[np.cumsum(still)]
         gi = np.where(avail, (g - bias) * dt, 0.0)      # bias-corrected gyro heading increment
     else:
         avail = np.zeros(m, dtype=bool)
@@ -455,18 +465,17 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
                       w_right: np.ndarray):
             """Score of the samples ``at`` (None: all) whose windows start at ``jw``."""
             if at is None:
-                st, at1, at = stamp, slice(1, None), idx
+                t_w, at1, at = t_eff, slice(1, None), idx
             else:
-                st, at1 = stamp[at], at + 1
-            t_w = (st - stamp[np.maximum(jw - 1, 0)]) * 1e-9
+                t_w, at1 = (stamp[at] - stamp[np.maximum(jw - 1, 0)]) * 1e-9, at + 1
             dth_w = (w_right - w_left) / k.b
             dth_gw = cum_gi[at1] - cum_gi[jw]
             d_w = dth_w - dth_gw
             n_win = (at - jw + 1).astype(np.float64)
-            var = (cum_c11[at1] - cum_c11[jw]) + k.gyro_var * (t_w * t_w / n_win) \
-                + (k.rate_tol * t_w) * (k.rate_tol * t_w) + (k.scale_tol * dth_w) * (k.scale_tol * dth_w)
+            var = (cum_c11[at1] - cum_c11[jw]) + (t_w * t_w) * (k.gyro_var / n_win + k.rate_tol2) \
+                + k.scale_tol2 * (dth_w * dth_w)
             with np.errstate(divide="ignore", invalid="ignore"):
-                z = np.where(ok, np.abs(d_w) / np.sqrt(np.where(ok, var, 1.0) * k.gate), 0.0)
+                z = np.where(ok, np.abs(d_w) / np.sqrt(var * k.gate), 0.0)
             return z, d_w, dth_gw
 
         g_ok = clean & (last_miss < j)
@@ -597,8 +606,8 @@ class SlipMonitor:
         d_w = dth_w - dth_gw
         if not ok:
             return 0.0, d_w, dth_gw
-        var = (now[1] - b_tot[1]) + k.gyro_var * (t_w * t_w / float(n)) \
-            + (k.rate_tol * t_w) * (k.rate_tol * t_w) + (k.scale_tol * dth_w) * (k.scale_tol * dth_w)
+        var = (now[1] - b_tot[1]) + (t_w * t_w) * (k.gyro_var / float(n) + k.rate_tol2) \
+            + k.scale_tol2 * (dth_w * dth_w)
         return abs(d_w) / math.sqrt(var * k.gate), d_w, dth_gw   # var > 0: gyro noise > 0, window dt > 0
 
     def step(self, tracker: TravelTracker, status: SampleStatus, dt_s: float, ds_left_m: float,
