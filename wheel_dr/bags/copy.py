@@ -1,0 +1,123 @@
+"""A copy of a bag with wheel_dr's recomputed odometry added on a new topic (nav_msgs/Odometry)."""
+from __future__ import annotations
+
+import os
+import shutil
+import tempfile
+from pathlib import Path
+
+import numpy as np
+from rosbags.highlevel import AnyReader
+from rosbags.rosbag1 import Writer as Writer1
+from rosbags.rosbag2 import StoragePlugin, Writer as Writer2
+from rosbags.typesys import Stores, get_typestore
+
+from ..core.conventions import pose_covariance_6x6, twist_covariance_6x6
+from ..core.errors import InputError
+from ..core.settings import Settings
+from .codec import pose_layout
+from .reader import BagError, _open, _resolve, _why
+from .writer import _fill, _header
+
+__all__ = ["copy_with_odometry"]
+
+
+def _odometry_rows(traj, settings: Settings, ts, ros1: bool) -> list[bytes]:
+    """Serialised nav_msgs/Odometry, one per trajectory entry (pose and covariance in odom, twist in base)."""
+    g = ts.types
+    vec = g["geometry_msgs/msg/Vector3"]
+    msg = g["nav_msgs/msg/Odometry"](
+        header=_header(ts, int(traj.stamp_ns[0]), settings.frames.odom, ros1), child_frame_id=settings.frames.base,
+        pose=g["geometry_msgs/msg/PoseWithCovariance"](
+            pose=g["geometry_msgs/msg/Pose"](position=g["geometry_msgs/msg/Point"](x=0.0, y=0.0, z=0.0),
+                                             orientation=g["geometry_msgs/msg/Quaternion"](x=0.0, y=0.0, z=0.0, w=1.0)),
+            covariance=np.zeros(36)),
+        twist=g["geometry_msgs/msg/TwistWithCovariance"](
+            twist=g["geometry_msgs/msg/Twist"](linear=vec(x=0.0, y=0.0, z=0.0), angular=vec(x=0.0, y=0.0, z=0.0)),
+            covariance=np.zeros(36)))
+    ser = ts.serialize_ros1 if ros1 else ts.serialize_cdr
+    template = bytes(ser(msg, "nav_msgs/msg/Odometry"))
+    lay = pose_layout(template, "nav_msgs/msg/Odometry", ros1)
+    p0 = lay.fields["pose"][0]
+    pc0 = p0 + 56
+    t0 = pc0 + 288
+    tc0 = t0 + 48
+    n = len(traj)
+    half = 0.5 * np.asarray(traj.yaw_rad)
+    cols = {p0: traj.x_m, p0 + 8: traj.y_m, p0 + 40: np.sin(half), p0 + 48: np.cos(half), t0: traj.v_mps,
+            t0 + 40: traj.w_radps}
+    # covariances: unobserved entries are constant, fill them per column
+    base_pose = np.array(pose_covariance_6x6(np.zeros((3, 3))))
+    base_twist = np.array(twist_covariance_6x6(np.zeros((2, 2))))
+    pose_idx = {0: (0, 0), 1: (0, 1), 5: (0, 2), 6: (1, 0), 7: (1, 1), 11: (1, 2), 30: (2, 0), 31: (2, 1), 35: (2, 2)}
+    twist_idx = {0: (0, 0), 5: (0, 1), 30: (1, 0), 35: (1, 1)}
+    for k in range(36):
+        cols[pc0 + 8 * k] = traj.cov[:, pose_idx[k][0], pose_idx[k][1]] if k in pose_idx else np.full(n, base_pose[k])
+        cols[tc0 + 8 * k] = (traj.twist_cov[:, twist_idx[k][0], twist_idx[k][1]] if k in twist_idx
+                             else np.full(n, base_twist[k]))
+    rows = _fill(template, n, np.asarray(traj.stamp_ns, dtype=np.int64), lay.sec_offset, lay.nsec_offset, ros1, cols)
+    return [r.tobytes() for r in rows]
+
+
+def copy_with_odometry(src: str | os.PathLike, dst: str | os.PathLike, traj, settings: Settings,
+                       topic: str = "/wheel_dr/odom", overwrite: bool = False) -> Path:
+    """Copy every message of bag ``src`` into ``dst`` (same format and storage) and add ``topic``.
+
+    Written under a temporary name and renamed when complete.
+    """
+    source = _resolve(src)
+    target = Path(dst)
+    if target.resolve() == source.resolve():
+        raise InputError(f"--bag-out '{target}' is the input bag; give a new path for the copy.")
+    if target.exists() and not overwrite:
+        raise InputError(f"output '{target}' already exists; remove it, pass --overwrite or choose another name.")
+    reader = _open(source)
+    ros1 = not reader.is2
+    if ros1 and target.suffix != ".bag":
+        reader.close()
+        raise InputError(f"the input is a ROS 1 bag, so the copy must be a file ending in .bag; name it '{target}.bag'.")
+    if any(c.topic == topic for c in reader.connections):
+        reader.close()
+        raise InputError(f"bag '{source}' already has a topic {topic}; choose another with --odom-topic.")
+    ts = get_typestore(Stores.ROS1_NOETIC if ros1 else Stores.LATEST)
+    rows = _odometry_rows(traj, settings, ts, ros1)
+    target.parent.mkdir(parents=True, exist_ok=True)
+    tmpdir = Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent))
+    tmp = tmpdir / target.name
+    try:
+        if ros1:
+            writer = Writer1(tmp)
+        else:
+            storage = "mcap" if any(source.glob("*.mcap")) else "sqlite3"
+            writer = Writer2(tmp, version=9, storage_plugin=StoragePlugin.MCAP if storage == "mcap" else StoragePlugin.SQLITE3)
+        with writer:
+            mapping = {}
+            for c in reader.connections:
+                if ros1:
+                    mapping[c.id] = writer.add_connection(c.topic, c.msgtype, msgdef=c.msgdef.data, md5sum=c.digest,
+                                                          callerid=c.ext.callerid, latching=c.ext.latching)
+                else:
+                    mapping[c.id] = writer.add_connection(c.topic, c.msgtype, msgdef=c.msgdef.data, rihs01=c.digest,
+                                                          serialization_format=c.ext.serialization_format,
+                                                          offered_qos_profiles=c.ext.offered_qos_profiles)
+            odom = writer.add_connection(topic, "nav_msgs/msg/Odometry", typestore=ts)
+            stamps = np.asarray(traj.stamp_ns, dtype=np.int64).tolist()
+            k = 0
+            try:
+                for c, t, raw in reader.messages():
+                    while k < len(stamps) and stamps[k] <= t:
+                        writer.write(odom, stamps[k], rows[k])
+                        k += 1
+                    writer.write(mapping[c.id], t, raw)
+            except Exception as exc:
+                raise BagError(f"bag '{source}' cannot be read to the end ({_why(exc)}); re-copy or re-record "
+                               "it.") from None
+            for j in range(k, len(stamps)):
+                writer.write(odom, stamps[j], rows[j])
+        if target.exists():
+            shutil.rmtree(target) if target.is_dir() else target.unlink()
+        os.replace(tmp, target)
+    finally:
+        reader.close()
+        shutil.rmtree(tmpdir, ignore_errors=True)
+    return target
