@@ -16,134 +16,34 @@ import sys
 from pathlib import Path
 from typing import Sequence
 
-import numpy as np
 
 from .analysis.calibration import (GEOMETRY_NAMES, CalibrationError, CalibrationResult, CalibrationRun,
                                    RunFigures, TruthError, calibrate, prepare_run)
 from .analysis.path import PlanarPath
 from .analysis.umbmark import (CSV_COLUMNS, corrected_geometry, parse_square_csv, refine, simulate_square_test,
                                square_csv_text, umbmark)
-from .core.conventions import quaternion_to_yaw
-from .core.errors import InputError, WheelDrError
+from .core.errors import WheelDrError
 from .core.settings import NOISE_MODELS, Settings
 from .core.wheels import JointSamples
 from .params import atomic_write_text, parse_params_text, update_params_text, write_params_text
 
-__all__ = ["add_parser", "run_calibrate", "main", "load_bag", "default_params_text", "SAFETY_NOTE"]
+__all__ = ["add_parser", "run_calibrate", "main", "load_bag", "default_params_text", "SAFETY_NOTE", "figures_table",
+           "result_lines", "header_text"]
 
 SAFETY_NOTE = ("Caution: odometry, its covariance and slip flags are not safety functions; try the tuned file in a "
                "clear area with an emergency stop at hand and defer to the machine's safety assessment.")
-JOINT_STATE = "sensor_msgs/msg/JointState"
-POSE_TYPES = ("nav_msgs/msg/Odometry", "geometry_msgs/msg/PoseStamped",
-              "geometry_msgs/msg/PoseWithCovarianceStamped", "geometry_msgs/msg/TransformStamped")
 
 
-class BagError(InputError):
-    """A bag cannot be read or lacks a needed topic."""
+def load_bag(path: str | Path, truth: str, joint_topic: str | None = None) -> tuple[JointSamples, PlanarPath]:
+    """Joint states and the ground-truth path of one bag (``wheel_dr.bags.read_run``: ``truth`` is a
+    topic, a TF pair PARENT->CHILD or a TUM file). Raises TruthError when the bag has no truth."""
+    from .bags import read_run
 
-
-# ------------------------------------------------------------------------------------------------
-# bag reading (rosbags)
-# ------------------------------------------------------------------------------------------------
-def _stamp_ns(header, fallback: int) -> int:
-    ns = int(header.stamp.sec) * 1_000_000_000 + int(header.stamp.nanosec)
-    return ns if ns > 0 else int(fallback)
-
-
-def _pose_of(msg, msgtype: str):
-    if msgtype == "nav_msgs/msg/Odometry" or msgtype == "geometry_msgs/msg/PoseWithCovarianceStamped":
-        return msg.pose.pose.position, msg.pose.pose.orientation
-    if msgtype == "geometry_msgs/msg/PoseStamped":
-        return msg.pose.position, msg.pose.orientation
-    return msg.transform.translation, msg.transform.rotation
-
-
-def load_bag(path: str | Path, truth_topic: str, joints_topic: str | None = None) -> tuple[JointSamples, PlanarPath]:
-    """Joint states and the truth path (x, y, yaw in the truth's header frame) of one bag.
-
-    The joint-state topic is ``joints_topic`` or the only sensor_msgs/JointState topic; the truth
-    topic may be nav_msgs/Odometry, geometry_msgs/PoseStamped, PoseWithCovarianceStamped or
-    TransformStamped. Header stamps are used (the record time where a stamp is zero).
-    """
-    from rosbags.highlevel import AnyReader
-    from rosbags.typesys import Stores, get_typestore
-
-    p = Path(path)
-    if not p.exists():
-        raise BagError(f"bag '{p}' does not exist; give the path of a rosbag2 directory or file.")
-    try:
-        reader = AnyReader([p], default_typestore=get_typestore(Stores.LATEST))
-        reader.open()
-    except Exception as exc:  # rosbags raises several types for unreadable bags
-        raise BagError(f"bag '{p}' cannot be read ({exc.__class__.__name__}); check that it is a complete "
-                       "rosbag2 recording.") from None
-    try:
-        topics = {c.topic: c.msgtype for c in reader.connections}
-        if joints_topic is None:
-            js = sorted(t for t, ty in topics.items() if ty == JOINT_STATE)
-            if len(js) != 1:
-                raise BagError(f"bag '{p}' has {len(js)} joint-state topics ({', '.join(js) or 'none'}); "
-                               "record one, or name it with --joints.")
-            joints_topic = js[0]
-        elif joints_topic not in topics:
-            raise BagError(f"bag '{p}' has no topic '{joints_topic}'; give the joint-state topic with --joints.")
-        if truth_topic not in topics:
-            poses = sorted(t for t, ty in topics.items() if ty in POSE_TYPES)
-            raise TruthError(f"bag '{p}' has no ground-truth topic '{truth_topic}' (pose topics in it: "
-                             f"{', '.join(poses) or 'none'}); record the truth and give its topic with --truth.")
-        if topics[truth_topic] not in POSE_TYPES:
-            raise TruthError(f"topic '{truth_topic}' in bag '{p}' is {topics[truth_topic]}, not a pose; give a "
-                             "nav_msgs/Odometry or geometry_msgs/PoseStamped topic with --truth.")
-        names_rows: list[tuple[str, ...]] = []
-        pos_rows: list[list[float]] = []
-        vel_rows: list[list[float]] = []
-        stamps: list[int] = []
-        malformed: list[bool] = []
-        t_stamp: list[int] = []
-        t_xyyaw: list[tuple[float, float, float]] = []
-        frame = ""
-        conns = [c for c in reader.connections if c.topic in (joints_topic, truth_topic)]
-        for conn, t_rec, raw in reader.messages(connections=conns):
-            msg = reader.deserialize(raw, conn.msgtype)
-            if conn.topic == joints_topic:
-                names = tuple(msg.name)
-                pos = list(np.asarray(msg.position, dtype=np.float64))
-                vel = list(np.asarray(msg.velocity, dtype=np.float64))
-                bad = len(pos) not in (0, len(names)) or len(vel) not in (0, len(names))
-                stamps.append(_stamp_ns(msg.header, t_rec))
-                names_rows.append(names)
-                pos_rows.append(pos if len(pos) == len(names) else [math.nan] * len(names))
-                vel_rows.append(vel if len(vel) == len(names) else [math.nan] * len(names))
-                malformed.append(bad)
-            else:
-                position, q = _pose_of(msg, conn.msgtype)
-                t_stamp.append(_stamp_ns(msg.header, t_rec))
-                t_xyyaw.append((float(position.x), float(position.y), quaternion_to_yaw(q.x, q.y, q.z, q.w)))
-                frame = frame or str(msg.header.frame_id)
-    finally:
-        reader.close()
-    all_names: list[str] = []
-    seen: set[str] = set()
-    for names in dict.fromkeys(names_rows):
-        for n in names:
-            if n not in seen:
-                seen.add(n)
-                all_names.append(n)
-    col = {n: i for i, n in enumerate(all_names)}
-    n_s, n_j = len(stamps), len(all_names)
-    position = np.full((n_s, n_j), np.nan)
-    velocity = np.full((n_s, n_j), np.nan)
-    present = np.zeros((n_s, n_j), dtype=bool)
-    for k, (names, pos, vel) in enumerate(zip(names_rows, pos_rows, vel_rows)):
-        idx = [col[n] for n in names]
-        position[k, idx] = pos
-        velocity[k, idx] = vel
-        present[k, idx] = True
-    samples = JointSamples(np.asarray(stamps, dtype=np.int64), tuple(all_names), position, velocity, present,
-                           np.asarray(malformed, dtype=bool))
-    tr = np.asarray(t_xyyaw, dtype=np.float64).reshape(-1, 3)
-    truth = PlanarPath(np.asarray(t_stamp, dtype=np.int64), tr[:, 0], tr[:, 1], tr[:, 2], frame)
-    return samples, truth
+    data = read_run(path, joint_topic=joint_topic, truth=truth, need_truth=True, use_imu=False)
+    if data.truth is None or len(data.truth) == 0:
+        raise TruthError(f"bag '{path}' has no ground truth for --truth {truth}; record the truth topic (for "
+                         "example nav_msgs/Odometry from motion capture) during the drive.")
+    return data.samples, data.truth
 
 
 # ------------------------------------------------------------------------------------------------
@@ -261,7 +161,7 @@ def header_text(res: CalibrationResult, bag_names: Sequence[str], holdout_names:
 def _prepare(paths: Sequence[str], args: argparse.Namespace, settings: Settings) -> list[CalibrationRun]:
     runs = []
     for path in paths:
-        samples, truth = load_bag(path, args.truth, args.joints)
+        samples, truth = load_bag(path, args.truth, args.joint_topic)
         runs.append(prepare_run(samples, truth, settings, Path(path).name))
     return runs
 
@@ -270,7 +170,7 @@ def _bags(args: argparse.Namespace) -> int:
     if not args.bags:
         raise CalibrationError("no bag given; name one or more bags (or use --square FILE for the square test).")
     if not args.truth:
-        raise TruthError("no ground-truth topic given; name it with --truth TOPIC (nav_msgs/Odometry or "
+        raise TruthError("no ground truth given; name its topic with --truth TOPIC (nav_msgs/Odometry or "
                          "geometry_msgs/PoseStamped), or use --square for the square test without truth.")
     text, settings, label = _read_params(args.params)
     runs = _prepare(args.bags, args, settings)
@@ -375,8 +275,9 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                     "parameters file; or evaluate the UMBmark square test (Borenstein & Feng 1996). "
                     + SAFETY_NOTE)
     p.add_argument("bags", nargs="*", help="bags with joint states and ground truth, fitted jointly")
-    p.add_argument("--truth", help="ground-truth topic (nav_msgs/Odometry, geometry_msgs/PoseStamped, ...)")
-    p.add_argument("--joints", help="joint-state topic (default: the bag's only sensor_msgs/JointState topic)")
+    p.add_argument("--truth", help="ground truth: a topic (nav_msgs/Odometry, geometry_msgs/PoseStamped, ...), "
+                                   "a TF pair PARENT->CHILD in the bag, or a TUM trajectory file")
+    p.add_argument("--joint-topic", help="joint-state topic (default: the bag's only sensor_msgs/JointState topic)")
     p.add_argument("--params", help="starting parameters file (default config/wheel_dr.yaml)")
     p.add_argument("--write", metavar="TUNED.yaml", help="write the tuned parameters file here")
     p.add_argument("--holdout", nargs="+", metavar="BAG", help="bags to report figures on, not used in the fit")

@@ -76,6 +76,7 @@ __all__ = [
 GEOMETRY_NAMES = ("wheels.left_radius", "wheels.right_radius", "wheels.track_width")
 NOISE_NAMES = {"per_wheel": ("noise.k_left", "noise.k_right"), "motion_model": ("noise.alphas",)}
 
+EXACT_TRUTH_NS = 50_000       # a truth stamp this close to a joint stamp is taken as "at" it (50 us)
 OUTLIER_QUANTILE = 0.999      # chi-square(3) quantile beyond which a segment is set aside
 _MIN_VARIANCE = 1e-14         # added to the diagonal of segment covariances (m^2, rad^2)
 
@@ -102,7 +103,9 @@ class CalibrationRun:
     ``dphi_*_rad`` are wheel angle increments (rad, mean over each side's joints), ``restart`` marks
     dropped increments (chain start, gap, jump). ``truth_*`` is the truth interpolated at the
     accepted stamps (x, y m and unwrapped yaw rad in the truth's own frame), ``truth_valid`` where
-    that interpolation is trustworthy (inside the truth's span, no long truth gap).
+    that interpolation is trustworthy (inside the truth's span, no long truth gap). When the truth
+    was recorded at joint stamps (every k-th sample, say), only those samples are valid, so that
+    segments start and end on true poses rather than interpolated ones.
     """
 
     name: str
@@ -161,8 +164,15 @@ def prepare_run(samples: JointSamples, truth: PlanarPath, settings: Settings, na
     inside = (st >= ts[0]) & (st <= ts[-1])
     hi = np.clip(np.searchsorted(ts, st, side="left"), 1, len(ts) - 1)
     gap_s = (ts[hi] - ts[hi - 1]) * 1e-9
-    exact = ts[np.clip(np.searchsorted(ts, st), 0, len(ts) - 1)] == st
+    near = np.clip(np.searchsorted(ts, st), 0, len(ts) - 1)
+    prev = np.clip(near - 1, 0, len(ts) - 1)
+    offset_ns = np.minimum(np.abs(ts[near] - st), np.abs(ts[prev] - st))
+    exact = offset_ns <= EXACT_TRUTH_NS
     valid = inside & ((gap_s <= max_truth_gap_s) | exact)
+    if exact.sum() >= max(100, 0.02 * len(st)):
+        # truth recorded at (a subset of) the joint stamps: end segments only there, so that no
+        # interpolation error (chord of an arc, speed changes between truth samples) enters
+        valid &= exact
     if valid.sum() < 2:
         raise TruthError(
             f"the ground truth{label} does not overlap the joint states in time (truth {ts[0] * 1e-9:.1f} to "
@@ -208,14 +218,11 @@ def make_segments(run: CalibrationRun, segment_length_m: float = 2.0) -> Segment
 
     i = next_valid(0)
     while i < n:
-        j = int(np.searchsorted(m, m[i] + segment_length_m, side="left"))
+        j = next_valid(int(np.searchsorted(m, m[i] + segment_length_m, side="left")))
         if j >= n:
             break
         if rc[j] != rc[i]:                          # a restart inside (i, j]: start again there
             i = next_valid(int(np.searchsorted(rc, rc[i] + 1, side="left")))
-            continue
-        if not valid[j]:
-            i = next_valid(j)
             continue
         starts.append(i)
         ends.append(j)
