@@ -209,6 +209,20 @@ def test_gyro_detector_flags_the_slipping_side(side, kind):
     assert not sr.slip[t < 5.5].any()
 
 
+@pytest.mark.parametrize("side,kind", [("left", "spin"), ("right", "drag")])
+def test_slip_while_reversing_is_flagged_on_its_side(side, kind):
+    """Backwards (REP 103: negative v), in an arc and straight: signs must not confuse the side."""
+    d = Drive([(3.0, 0.0, 0.0), (8.0, -0.6, 0.3), (2.0, 0.0, 0.0), (6.0, -0.7, 0.0), (1.0, 0.0, 0.0)],
+              events=[SlipEvent(5.5, 2.0, side, kind, 0.7), SlipEvent(15.0, 1.5, side, kind, 0.7)])
+    gen = generate(d, 5)
+    traj = run(gen.samples, gen.settings, gyro_z_radps=gen.gyro_z_radps)
+    t = gen.t_s[traj.index]
+    inside = ((t >= 5.7) & (t < 7.5)) | ((t >= 15.2) & (t < 16.5))
+    mine, other = (traj.slip.left, traj.slip.right) if side == "left" else (traj.slip.right, traj.slip.left)
+    assert mine[inside].all()
+    assert not other.any()
+
+
 def test_long_window_catches_a_mild_sustained_slip():
     """A right wheel 25 % fast at 0.6 m/s (0.15 m/s, 0.36 rad/s of false turn) stays under the
     short window's gate; over the long window the same difference grows with the window while its
