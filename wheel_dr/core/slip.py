@@ -37,7 +37,7 @@ Detectors (bits of ``detector``):
   This is the disagreement test of gyrodometry (Borenstein & Feng, ICRA 1996) with a
   statistical threshold. The side is the hypothesis that best keeps the base speed seen before
   the discrepancy: if the right wheel slips, the true speed is v_l + w_gyro b / 2; if the left,
-  v_r - w_gyro b / 2.
+  v_r - w_gyro b / 2; it is judged while the score is over 1 and kept while it is under.
 * ``DETECTOR_TRACTION`` (2), traction plausibility: a wheel's surface acceleration (difference of
   window-mean speeds one window apart) beyond ``slip.traction_mu`` times standard gravity
   cannot come from rolling contact (common practice: a wheel cannot accelerate the base faster
@@ -495,6 +495,10 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
         q = np.where(qi >= 0, vb[bnd][np.maximum(qi, 0)], 0.0)
         wg = dth_g / safe
         gyro_left = np.abs(vr - wg * k.half_b - q) < np.abs(vl + wg * k.half_b - q)
+        # the side is judged while the score is over the threshold and kept while it is under
+        # (the windows of a slip's tail mix slipping and gripping samples)
+        li = np.maximum.accumulate(np.where(zg > 1.0, idx, -1))
+        gyro_left = np.where(li >= 0, gyro_left[np.maximum(li, 0)], gyro_left)
     else:
         g_ok = np.zeros(m, dtype=bool)
         zg = np.zeros(m)
@@ -587,6 +591,7 @@ class SlipMonitor:
         self._still_totals: deque[float] = deque([0.0], maxlen=k.bias_samples + 1)
         self._q = 0.0
         self._quiet_since: int | None = None
+        self._gyro_left: bool | None = None
         self._lat_g, self._lat_tl, self._lat_tr = _Latch(k), _TractionLatch(k), _TractionLatch(k)
         self._lat_sl, self._lat_sr = _Latch(k), _Latch(k)
 
@@ -728,6 +733,10 @@ class SlipMonitor:
         q = self._q
         wg = dth_g / safe
         gyro_left = abs(vr - wg * k.half_b - q) < abs(vl + wg * k.half_b - q)
+        if zg > 1.0:
+            self._gyro_left = gyro_left
+        elif self._gyro_left is not None:
+            gyro_left = self._gyro_left
 
         on_g = self._lat_g.update(zg, stamp)
         on_tl = self._lat_tl.update(st_left, stamp)
