@@ -337,6 +337,8 @@ def main(argv: list[str] | None = None) -> int:
     except WheelDrError as exc:
         print(f"wheel-dr {args.command}: error: {exc}", file=sys.stderr)
         return 2
+    except BrokenPipeError:
+        return 141
     except KeyboardInterrupt:
         print(f"wheel-dr {args.command}: interrupted; outputs not completed were not written.", file=sys.stderr)
         return 130
