@@ -16,6 +16,8 @@ import sys
 from pathlib import Path
 from typing import Sequence
 
+import numpy as np
+
 
 from .analysis.calibration import (GEOMETRY_NAMES, CalibrationError, CalibrationResult, CalibrationRun,
                                    RunFigures, TruthError, calibrate, prepare_run)
@@ -28,7 +30,7 @@ from .core.wheels import JointSamples
 from .params import atomic_write_text, parse_params_text, update_params_text, write_params_text
 
 __all__ = ["add_parser", "run_calibrate", "main", "load_bag", "default_params_text", "SAFETY_NOTE", "figures_table",
-           "result_lines", "header_text"]
+           "result_lines", "header_text", "calibration_section"]
 
 SAFETY_NOTE = ("Caution: odometry, its covariance and slip flags are not safety functions; try the tuned file in a "
                "clear area with an emergency stop at hand and defer to the machine's safety assessment.")
@@ -158,12 +160,14 @@ def header_text(res: CalibrationResult, bag_names: Sequence[str], holdout_names:
 # ------------------------------------------------------------------------------------------------
 # commands
 # ------------------------------------------------------------------------------------------------
-def _prepare(paths: Sequence[str], args: argparse.Namespace, settings: Settings) -> list[CalibrationRun]:
-    runs = []
+def _prepare(paths: Sequence[str], args: argparse.Namespace,
+             settings: Settings) -> list[tuple[str, JointSamples, PlanarPath, CalibrationRun]]:
+    out = []
     for path in paths:
         samples, truth = load_bag(path, args.truth, args.joint_topic)
-        runs.append(prepare_run(samples, truth, settings, Path(path).name))
-    return runs
+        name = Path(path).name
+        out.append((name, samples, truth, prepare_run(samples, truth, settings, name)))
+    return out
 
 
 def _bags(args: argparse.Namespace) -> int:
@@ -173,8 +177,10 @@ def _bags(args: argparse.Namespace) -> int:
         raise TruthError("no ground truth given; name its topic with --truth TOPIC (nav_msgs/Odometry or "
                          "geometry_msgs/PoseStamped), or use --square for the square test without truth.")
     text, settings, label = _read_params(args.params)
-    runs = _prepare(args.bags, args, settings)
-    holdout = _prepare(args.holdout or [], args, settings)
+    prepared = _prepare(args.bags, args, settings)
+    held = _prepare(args.holdout or [], args, settings)
+    runs = [r for *_, r in prepared]
+    holdout = [r for *_, r in held]
     res = calibrate(runs, settings, segment_length_m=args.segment_m, noise_segment_m=args.noise_segment_m,
                     fit_geometry=not args.no_geometry, fit_noise_params=not args.no_noise,
                     noise_model=args.noise_model, holdout=holdout)
@@ -186,15 +192,88 @@ def _bags(args: argparse.Namespace) -> int:
         atomic_write_text(args.write, update_params_text(text, _rounded(res.values), header))
         print(f"Wrote {args.write}: launch the node with --ros-args --params-file {args.write}")
     if args.report:
-        _write_report(args.report, runs, holdout, res)
+        _write_report(args.report, prepared, held, res)
     print(SAFETY_NOTE)
     return 0
 
 
-def _write_report(out_dir: str, runs: Sequence[CalibrationRun], holdout: Sequence[CalibrationRun],
-                  res: CalibrationResult) -> None:
-    from .report.calibration_page import write_calibration_report  # optional page, see that module
-    path = write_calibration_report(out_dir, runs, holdout, res)
+def calibration_section(res: CalibrationResult, runs: Sequence[CalibrationRun], bag_names: Sequence[str],
+                        holdout: Sequence[CalibrationRun] = ()) -> tuple[str, str, list]:
+    """A report section (title, HTML fragment, figures) for ``wheel_dr.report.write_report``'s
+    ``extra_sections``: the fitted values with standard errors, the before/after figures and a plot of
+    the segment errors before and after (yaw error against the segment's turn: its slope is the track
+    error; forward error against the segment's forward travel: its slope is the mean radius error)."""
+    import html
+
+    import matplotlib
+    matplotlib.use("Agg")
+    from matplotlib.figure import Figure
+
+    from .analysis.calibration import geometry_of, make_segments, segment_errors, _relative
+
+    esc = html.escape
+    rows = "".join(f"<tr><td>{esc(line.strip())}</td></tr>" for line in result_lines(res, bag_names)
+                   if not line.startswith(("Fitted bags", "Held-out", "  bag ")) and "[" not in line)
+
+    def table(before: Sequence[RunFigures], after: Sequence[RunFigures], caption: str) -> str:
+        head = ("<tr><th>bag</th><th>ATE m before</th><th>after</th><th>drift % before</th><th>after</th>"
+                "<th>NEES before</th><th>after</th><th>95 % interval</th><th>segments</th></tr>")
+        body = "".join(
+            f"<tr><td>{esc(b.name)}</td><td>{_fmt(b.ate_m, '.3f')}</td><td>{_fmt(a.ate_m, '.3f')}</td>"
+            f"<td>{_fmt(b.drift_pct, '.2f')}</td><td>{_fmt(a.drift_pct, '.2f')}</td>"
+            f"<td>{_fmt(b.nees_mean, '.2f')}</td><td>{_fmt(a.nees_mean, '.2f')}</td>"
+            f"<td>[{_fmt(a.nees_lo, '.2f')}, {_fmt(a.nees_hi, '.2f')}] {'inside' if a.nees_inside else 'outside'}</td>"
+            f"<td>{a.n_segments}</td></tr>" for b, a in zip(before, after))
+        return f"<table><caption>{esc(caption)}</caption>{head}{body}</table>"
+
+    frag = (f"<p>Radii and track by least squares on segment-relative motion against ground truth, noise by "
+            f"maximum likelihood of segment errors under the propagated covariance. {esc(SAFETY_NOTE)}</p>"
+            f"<table>{rows}</table>" + table(res.figures_before, res.figures_after, "Fitted bags")
+            + (table(res.holdout_before, res.holdout_after, "Held-out bags (not used in the fit)")
+               if res.holdout_after else ""))
+    fig = Figure(figsize=(10, 4))
+    ax1, ax2 = fig.subplots(1, 2)
+    scheme = res.before.integration
+    for label, settings, colour in (("before", res.before, "tab:red"), ("after", res.after, "tab:blue")):
+        turn, eyaw, fwd, ex = [], [], [], []
+        for run in list(runs) + list(holdout):
+            seg = make_segments(run, res.segment_length_m)
+            if len(seg) == 0:
+                continue
+            err = segment_errors(run, seg, geometry_of(settings), scheme)
+            tru = _relative(run.truth_x_m, run.truth_y_m, run.truth_yaw_rad, seg.start, seg.end)
+            turn.append(tru[:, 2])
+            eyaw.append(err[:, 2])
+            fwd.append(tru[:, 0])
+            ex.append(err[:, 0])
+        if turn:
+            ax1.plot(np.degrees(np.concatenate(turn)), np.degrees(np.concatenate(eyaw)), ".", ms=3, color=colour,
+                     label=label)
+            ax2.plot(np.concatenate(fwd), 100 * np.concatenate(ex), ".", ms=3, color=colour, label=label)
+    ax1.set(xlabel="segment turn (deg, truth)", ylabel="yaw error (deg)", title="heading error per segment")
+    ax2.set(xlabel="segment forward motion (m, truth)", ylabel="forward error (cm)",
+            title="forward error per segment")
+    for ax in (ax1, ax2):
+        ax.grid(True, alpha=0.3)
+        ax.legend()
+    fig.tight_layout()
+    return "Calibration", frag, [fig]
+
+
+def _write_report(out_dir: str, prepared: Sequence[tuple[str, JointSamples, PlanarPath, CalibrationRun]],
+                  held: Sequence[tuple[str, JointSamples, PlanarPath, CalibrationRun]], res: CalibrationResult) -> None:
+    from .analysis.metrics import evaluate
+    from .core.estimator import run as run_estimator
+    from .report import write_report
+
+    evaluations = []
+    for name, samples, truth, _ in list(prepared) + list(held):
+        for label, settings in (("before calibration", res.before), ("after calibration", res.after)):
+            traj = run_estimator(samples, settings)
+            evaluations.append(evaluate(traj, truth, settings, bag=name, name=label))
+    section = calibration_section(res, [r for *_, r in prepared], [n for n, *_ in prepared], [r for *_, r in held])
+    path = write_report(out_dir, evaluations, title="wheel_dr calibration", extra_sections=[section],
+                        notes=[SAFETY_NOTE])
     print(f"Report: {path}")
 
 
