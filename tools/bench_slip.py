@@ -75,7 +75,7 @@ def family(name: str, drives, seeds, values=None) -> dict[str, float]:
 def sim_family(seeds) -> None:
     """Rounds from wheel_dr.sim (an independent generator), scored by wheel_dr.analysis.metrics."""
     from slip_scenarios import sim_round
-    from wheel_dr.analysis.metrics import slip_heading_error, slip_scores
+    from wheel_dr.analysis.metrics import slip_heading_error, slip_scores, slip_side_scores
     from wheel_dr.core import Settings
     from wheel_dr.sim import simulate
 
@@ -87,6 +87,8 @@ def sim_family(seeds) -> None:
         flag = run(sim.joint_samples(), s, gyro_z_radps=sim.gyro_z_radps)
         gyro = run(sim.joint_samples(), s.with_values({"slip.response": "gyro"}), gyro_z_radps=sim.gyro_z_radps)
         rows.append(slip_scores(flag.stamp_ns, flag.slip.slip, sim.slip_intervals_ns, grace_s=0.2))
+        rows[-1].update(slip_side_scores(flag.stamp_ns, flag.slip.left, flag.slip.right, sim.slip_intervals_ns,
+                                         list(sim.slip_side)))
         truth = sim.true_theta_rad[flag.index]
         e0 = slip_heading_error(flag.stamp_ns, flag.theta_rad, truth, sim.slip_intervals_ns)
         e1 = slip_heading_error(gyro.stamp_ns, gyro.theta_rad, truth, sim.slip_intervals_ns)
@@ -94,7 +96,7 @@ def sim_family(seeds) -> None:
     print(f"simulator rounds (wheel_dr.sim, seeds {', '.join(map(str, seeds))}), scored by analysis.metrics:")
     print(f"  {'events detected':28s} {sum(r['slip_events_detected'] for r in rows)} of {sum(r['slip_events'] for r in rows)}")
     for key, agg in (("slip_coverage_after_grace", min), ("slip_false_flag_frac", max), ("slip_precision", min),
-                     ("slip_latency_mean_s", max), ("slip_latency_max_s", max)):
+                     ("slip_latency_mean_s", max), ("slip_latency_max_s", max), ("slip_side_correct_frac", min)):
         print(f"  {key + (' (min)' if agg is min else ' (max)'):28s} {agg(r[key] for r in rows):.4f}")
     print(f"  {'heading ratio (min)':28s} {min(ratios):.1f}")
 
