@@ -10,9 +10,10 @@ this process with sensor_msgs/JointState at ``--rate`` Hz for ``--seconds`` s, a
 * latency, measured inside the node: from the middleware's receipt timestamp of each joint-state
   message (rmw ``received_timestamp``) to the return of the odometry ``publish`` call, p50 / p99 /
   max over the driven window (the node's /diagnostics ``latency_*`` values, 1 µs bins);
-* latency end to end (``--e2e``, default on): joint-state stamp = wall clock at publish here, to
-  the arrival of the matching odometry here; includes both DDS hops and this process's own
-  Python executor, so it is an upper bound of what the node adds;
+* latency end to end (default on; ``--no-e2e`` leaves odom without a subscriber): joint-state stamp
+  = wall clock at publish here, to the arrival of the matching odometry here (taken serialised in
+  a lean wait loop, like the node's input); includes both DDS hops and this process's scheduling,
+  so it is an upper bound of what the node adds;
 * CPU of the node's process as % of one core, from utime + stime in /proc/<pid>/stat over the
   driven window.
 
@@ -67,12 +68,29 @@ def _percentile(values: list[float], q: float) -> float:
     return float(np.percentile(np.asarray(values), q)) if values else float("nan")
 
 
+def _dedicated_group():
+    """A callback group the executor never serves (its subscription is read by a wait loop)."""
+    from rclpy.callback_groups import CallbackGroup
+
+    class _Dedicated(CallbackGroup):
+        def can_execute(self, entity):
+            return False
+
+        def beginning_execution(self, entity):
+            return False
+
+        def ending_execution(self, entity):
+            return None
+
+    return _Dedicated()
+
+
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--rate", type=float, default=1000.0, help="joint-state rate, Hz (default 1000)")
     ap.add_argument("--seconds", type=float, default=10.0, help="driven window, s (default 10)")
     ap.add_argument("--no-e2e", dest="e2e", action="store_false",
-                    help="do not subscribe to odom here (less load on this machine)")
+                    help="leave odom without a subscriber (less load here; the node then sends nothing out)")
     ap.add_argument("--profile", metavar="FILE", help="run the node under cProfile (main thread) and "
                     "write its stats to FILE (slows the node: figures are then not representative)")
     args = ap.parse_args(argv)
@@ -116,16 +134,11 @@ def main(argv: list[str] | None = None) -> int:
                 with lock:
                     diag.append({kv.key: kv.value for kv in st.values})
 
-    def on_odom(msg: Odometry) -> None:
-        now = time.time_ns()
-        st = msg.header.stamp
-        with lock:
-            odom_seen[0] += 1
-            e2e_ns.append(now - (st.sec * 1_000_000_000 + st.nanosec))
-
     node.create_subscription(DiagnosticArray, "/diagnostics", on_diag, 50)
+    odom_sub = None
     if args.e2e:
-        node.create_subscription(Odometry, "/bench/odom", on_odom, QoSProfile(depth=2000))
+        odom_sub = node.create_subscription(Odometry, "/bench/odom", lambda _: None, QoSProfile(depth=2000),
+                                            raw=True, callback_group=_dedicated_group())
     pub = node.create_publisher(JointState, "/bench_js", QoSProfile(
         depth=100, reliability=qos_profile_sensor_data.reliability, durability=qos_profile_sensor_data.durability))
     executor = SingleThreadedExecutor(context=ctx)
@@ -136,8 +149,33 @@ def main(argv: list[str] | None = None) -> int:
         while not stop.is_set():
             executor.spin_once(timeout_sec=0.05)
 
+    def take_odom() -> None:
+        """Serialised odometry in a wait loop of its own; the stamp is bytes 4..12 of the CDR."""
+        import struct
+
+        from rclpy.impl.implementation_singleton import rclpy_implementation as _rclpy
+
+        stamp = struct.Struct("<iI")
+        wait_set = _rclpy.WaitSet(1, 0, 0, 0, 0, 0, ctx.handle)
+        with odom_sub.handle:
+            while not stop.is_set():
+                wait_set.clear_entities()
+                wait_set.add_subscription(odom_sub.handle)
+                wait_set.wait(50_000_000)
+                got = odom_sub.handle.take_message(Odometry, True)
+                if got is not None:
+                    now = time.time_ns()
+                    sec, nanosec = stamp.unpack_from(got[0], 4)
+                    with lock:
+                        odom_seen[0] += 1
+                        e2e_ns.append(now - (sec * 1_000_000_000 + nanosec))
+
     spinner = threading.Thread(target=spin, daemon=True)
     spinner.start()
+    taker = None
+    if odom_sub is not None:
+        taker = threading.Thread(target=take_odom, daemon=True)
+        taker.start()
     msg = JointState()
     msg.name = [LEFT, RIGHT]
     w_l, w_r = 4.0, 6.0  # rad/s: Quokka turning left at 0.4 rad/s
@@ -184,6 +222,8 @@ def main(argv: list[str] | None = None) -> int:
     finally:
         stop.set()
         spinner.join(timeout=2)
+        if taker is not None:
+            taker.join(timeout=2)
         executor.shutdown()
         node.destroy_node()
         ctx.try_shutdown()

@@ -33,6 +33,7 @@ machine's safety assessment.
 """
 from __future__ import annotations
 
+import gc
 import math
 import os
 import signal
@@ -58,6 +59,7 @@ READ_ONLY_PARAMETERS = frozenset({"frames.odom", "frames.base"})  # TF consumers
 LOG_THROTTLE_S = 5.0           # a kind of bad input is logged at most once per this many seconds
 JOINT_STATE_DEPTH = 100        # sensor-data QoS (best effort, volatile) with room for 100 ms at 1 kHz
 WAIT_TIMEOUT_NS = 100_000_000  # the input loop checks for a stop request at least this often
+GIL_SWITCH_INTERVAL_S = 0.0005  # Python's default is 5 ms, longer than a 1 kHz sample period
 LATENCY_BIN_US = 1             # latency histogram resolution
 LATENCY_MAX_US = 50_000        # and range (longer latencies go to the last bin)
 # Parameters that belong to ROS 2 itself, not to wheel_dr's settings.
@@ -608,6 +610,10 @@ def _main(argv: list[str], stop: threading.Event, holder: dict[str, OdometryNode
         thread.start()
         if stop.is_set():
             return 0
+        # The executor thread (diagnostics, services) must not hold the interpreter lock for long
+        # while a joint state waits; start-up objects are moved out of the garbage collector's way.
+        sys.setswitchinterval(GIL_SWITCH_INTERVAL_S)
+        gc.freeze()
         odo.spin_inputs(stop)
         return 0
     finally:
