@@ -124,7 +124,8 @@ class Progress:
         self.width = width
         self.start = time.perf_counter()
         self.tty = bool(getattr(self.stream, "isatty", lambda: False)())
-        self._draw("")
+        if self.tty:
+            self._draw("")
 
     def _draw(self, what: str) -> None:
         frac = self.done / self.total
