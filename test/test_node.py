@@ -76,7 +76,7 @@ def _wait(pred: Callable[[], Any], timeout_s: float, what: str) -> Any:
 class Probe:
     """The test side: an rclpy node in this process that drives and watches the node under test."""
 
-    def __init__(self) -> None:
+    def __init__(self, ns: str = NS, js_topic: str = JS_TOPIC) -> None:
         import rclpy
         from diagnostic_msgs.msg import DiagnosticArray
         from geometry_msgs.msg import PoseWithCovarianceStamped
@@ -86,7 +86,7 @@ class Probe:
         from rclpy.node import Node
         from rclpy.qos import QoSProfile, qos_profile_sensor_data
         from rosgraph_msgs.msg import Clock
-        from sensor_msgs.msg import JointState
+        from sensor_msgs.msg import Imu, JointState
         from std_msgs.msg import Float64MultiArray
         from tf2_msgs.msg import TFMessage
 
@@ -100,12 +100,15 @@ class Probe:
         self.flags: list[Any] = []
         self.diag: list[Any] = []
         n = self.node
-        n.create_subscription(Odometry, f"{NS}/odom", self._keep(self.odom), 1000)
+        self.ns = ns
+        n.create_subscription(Odometry, f"{ns}/odom", self._keep(self.odom), 1000)
         n.create_subscription(TFMessage, "/tf", self._keep(self.tf), QoSProfile(depth=1000))
-        n.create_subscription(Float64MultiArray, f"{NS}/odom_flags", self._keep(self.flags), 1000)
+        n.create_subscription(Float64MultiArray, f"{ns}/odom_flags", self._keep(self.flags), 1000)
         n.create_subscription(DiagnosticArray, "/diagnostics", self._keep_diag, 100)
-        self.pub_js = n.create_publisher(JointState, JS_TOPIC, qos_profile_sensor_data)
-        self.pub_reanchor = n.create_publisher(PoseWithCovarianceStamped, f"{NS}/wheel_dr_node/reanchor", 10)
+        self.pub_js = n.create_publisher(JointState, js_topic, qos_profile_sensor_data)
+        self.pub_imu = n.create_publisher(Imu, f"{ns}/imu", qos_profile_sensor_data)
+        self.Imu = Imu
+        self.pub_reanchor = n.create_publisher(PoseWithCovarianceStamped, f"{ns}/wheel_dr_node/reanchor", 10)
         self.pub_clock = n.create_publisher(Clock, "/clock", 10)
         self._Clock = Clock
         self._clock_start = time.monotonic()
@@ -130,7 +133,7 @@ class Probe:
 
     def _keep_diag(self, msg: Any) -> None:
         for status in msg.status:
-            if status.name.startswith(f"{NS}/wheel_dr_node"):
+            if status.name.startswith(f"{self.ns}/wheel_dr_node"):
                 values = {kv.key: kv.value for kv in status.values}
                 level = status.level[0] if isinstance(status.level, bytes) else int(status.level)
                 with self.lock:
@@ -538,6 +541,14 @@ def test_diagnostics_report_counters_rate_settings_and_sim_time(node_run: dict[s
     assert rates and all(60.0 < r < 130.0 for r in rates), rates
     assert all(d[1] == 0 for d in during[1:-1]), [d[2] for d in during]
     assert float(during[-1][3]["latency_total_p50_us"]) > 0
+    # IMU input (sensor_msgs/Imu) is read: five messages, five counted.
+    imu_before = int(probe.next_diag()[3]["imu_received"])
+    for k in range(5):
+        imu = probe.Imu()
+        imu.angular_velocity.z = 0.1 * k
+        probe.pub_imu.publish(imu)
+        time.sleep(0.01)
+    _wait(lambda: int(probe.next_diag()[3]["imu_received"]) - imu_before == 5, 10, "five IMU messages counted")
 
 
 def test_sigterm_ends_the_node_cleanly(node_run: dict[str, Any]) -> None:
@@ -573,21 +584,32 @@ def test_invalid_params_file_one_line_nonzero_exit(tmp_path: Path, ros_env: dict
 
 
 def test_without_tf2_msgs_the_node_runs_with_tf_disabled(tmp_path: Path, ros_env: dict[str, str]) -> None:
-    """Where tf2_msgs cannot be imported the node warns once, keeps running, and SIGINT ends it with 0."""
+    """Where tf2_msgs cannot be imported the node warns once and the rest works (odometry and flags
+    come back; here with the executor-served input fallback, WHEEL_DR_INPUT_LOOP=executor, so that
+    path is exercised too); SIGINT ends it with exit code 0."""
     env = dict(ros_env)
     env["PYTHONPATH"] = ":".join(p for p in env.get("PYTHONPATH", "").split(":") if ".ros_ws" not in p)
+    env["WHEEL_DR_INPUT_LOOP"] = "executor"
     log = tmp_path / "node.log"
     with log.open("w") as fh:
-        proc = subprocess.Popen([NODE_EXE, "--ros-args", "-r", "__node:=wheel_dr_no_tf",
-                                 "-r", "__ns:=/no_tf"], env=env, stdout=fh, stderr=subprocess.STDOUT)
+        proc = subprocess.Popen([NODE_EXE, "--ros-args", "-r", "__ns:=/no_tf"], env=env, stdout=fh,
+                                stderr=subprocess.STDOUT)
+        probe = Probe(ns="/no_tf", js_topic="/no_tf/joint_states")
         try:
-            _wait(lambda: "wheel_dr odometry" in log.read_text() or proc.poll() is not None, 30, "start-up")
-            time.sleep(0.5)
+            _wait(lambda: probe.pub_js.get_subscription_count() > 0 or proc.poll() is not None, 30, "start-up")
+            _wait(lambda: probe.node.count_publishers("/no_tf/odom_flags") > 0, 10, "the flags publisher")
+            names = ["left_wheel_joint", "right_wheel_joint"]   # the default parameters' joints
+            samples = probe.arc(0.2, 1.0, 2.0)
+            probe.send([probe.js(s, names, p) for s, p in samples])
+            odom = probe.odom_at(samples[-1][0])
+            assert odom.header.frame_id == "odom" and odom.pose.pose.position.x > 0
             assert proc.poll() is None, log.read_text()
         finally:
+            probe.close()
             proc.send_signal(signal.SIGINT)
             rc = proc.wait(timeout=15)
     text = log.read_text()
     assert rc == 0, text
     assert text.count("TF output disabled") == 1 and "TF off" in text
+    assert "served by the general executor" in text
     assert "Traceback" not in text

@@ -63,6 +63,7 @@ GIL_SWITCH_INTERVAL_S = 0.0005  # Python's default is 5 ms, longer than a 1 kHz 
 LATENCY_BIN_US = 1             # latency histogram resolution
 LATENCY_MAX_US = 50_000        # and range (longer latencies go to the last bin)
 # Parameters that belong to ROS 2 itself, not to wheel_dr's settings.
+INPUT_LOOP_ENV = "WHEEL_DR_INPUT_LOOP"  # "executor": serve the inputs from the executor (fallback, slower)
 ROS_OWNED_PREFIXES = ("use_sim_time", "qos_overrides.", "start_type_description_service")
 
 _SKIP_TEXT = {
@@ -204,12 +205,12 @@ class OdometryNode:
             pass
 
     # -- inputs ----------------------------------------------------------------------------------
-    def _on_joint_state_cb(self, msg: Any, info: Any = None) -> None:
+    def _on_joint_state_cb(self, raw: bytes, info: Any) -> None:
         """Executor form of the joint-state input (used only when the dedicated loop is unavailable)."""
-        self.on_joint_state(msg, int(info["received_timestamp"]) if info else 0)
+        self.on_joint_state(raw, int(info.get("received_timestamp", 0)))
 
-    def _on_imu_cb(self, msg: Any, info: Any = None) -> None:
-        self.on_imu(msg)
+    def _on_imu_cb(self, raw: bytes) -> None:
+        self.on_imu(raw)
 
     def on_imu(self, raw: bytes) -> None:
         """Keep the latest gyro z rate (rad/s, IMU frame assumed aligned with the base z axis)."""
@@ -274,20 +275,30 @@ class OdometryNode:
                                      f"{count} such samples so far (logged at most every {LOG_THROTTLE_S:g} s).")
 
     # -- the dedicated input loop ---------------------------------------------------------------------
-    def spin_inputs(self, stop: threading.Event) -> None:
-        """Serve joint_states and imu until ``stop`` is set or the context shuts down (main thread)."""
-        from rclpy.guard_condition import GuardCondition
-        from rclpy.impl.implementation_singleton import rclpy_implementation as _rclpy
+    def spin_inputs(self, stop: threading.Event) -> bool:
+        """Serve joint_states and imu until ``stop`` is set or the context shuts down (main thread).
 
-        context = self.node.context
-        self._wake = GuardCondition(None, None, context=context)
+        Returns False at once, without serving anything, when the dedicated loop cannot be set up
+        (``WHEEL_DR_INPUT_LOOP=executor`` or an rclpy without the wait-set primitive); the caller
+        then hands the inputs to the executor (``serve_inputs_from_executor``).
+        """
+        if os.environ.get(INPUT_LOOP_ENV) == "executor":
+            return False
+        try:
+            from rclpy.guard_condition import GuardCondition
+            from rclpy.impl.implementation_singleton import rclpy_implementation as _rclpy
+
+            context = self.node.context
+            self._wake = GuardCondition(None, None, context=context)
+            wait_set = _rclpy.WaitSet(2, 1, 0, 0, 0, 0, context.handle)
+        except (ImportError, AttributeError, TypeError):
+            return False
         js, imu = self.sub_js, self.sub_imu
         JointState, Imu = self._JointState, self._Imu
         with ExitStack() as stack:
             stack.enter_context(js.handle)
             stack.enter_context(imu.handle)
             stack.enter_context(self._wake.handle)
-            wait_set = _rclpy.WaitSet(2, 1, 0, 0, 0, 0, context.handle)
             take_js, take_imu = js.handle.take_message, imu.handle.take_message
             while not stop.is_set() and context.ok():
                 wait_set.clear_entities()
@@ -305,6 +316,13 @@ class OdometryNode:
                     got = take_js(JointState, True)
                     if got is not None:
                         self.on_joint_state(got[0], int(got[1].get("received_timestamp", 0)))
+        return True
+
+    def serve_inputs_from_executor(self) -> None:
+        """Let the executor serve joint_states and imu (slower fallback of the dedicated loop)."""
+        self._input_group.served_by_executor = True
+        self.log.warning("joint_states are served by the general executor (fallback; about twice the CPU "
+                         "per message of the dedicated input loop).")
 
     def wake(self) -> None:
         """Make the input loop look at its stop flag now."""
@@ -434,15 +452,18 @@ class OdometryNode:
 
 
 def _never_group() -> Any:
-    """A callback group the executor never serves: its entities are served by the input loop."""
+    """A callback group the executor does not serve (its entities are served by the input loop)
+    until ``served_by_executor`` is set (the fallback)."""
     from rclpy.callback_groups import CallbackGroup
 
     class _DedicatedLoopGroup(CallbackGroup):
+        served_by_executor = False
+
         def can_execute(self, entity: Any) -> bool:
-            return False
+            return self.served_by_executor
 
         def beginning_execution(self, entity: Any) -> bool:
-            return False
+            return self.served_by_executor
 
         def ending_execution(self, entity: Any) -> None:
             return None
@@ -614,7 +635,10 @@ def _main(argv: list[str], stop: threading.Event, holder: dict[str, OdometryNode
         # while a joint state waits; start-up objects are moved out of the garbage collector's way.
         sys.setswitchinterval(GIL_SWITCH_INTERVAL_S)
         gc.freeze()
-        odo.spin_inputs(stop)
+        if not odo.spin_inputs(stop):
+            odo.serve_inputs_from_executor()
+            while not stop.wait(0.1):
+                pass
         return 0
     finally:
         stop.set()
