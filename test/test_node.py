@@ -8,7 +8,6 @@ Numbers are the invented "Quokka" demo cart's (nominal radii 0.0825 m, track 0.4
 """
 from __future__ import annotations
 
-import json
 import math
 import signal
 import subprocess
@@ -407,7 +406,7 @@ def test_reset_and_reanchor(node_run: dict[str, Any]) -> None:
 
 
 def _set_parameter(probe: Probe, name: str, value: Any) -> Any:
-    from rcl_interfaces.msg import Parameter, ParameterValue
+    from rcl_interfaces.msg import Parameter
     from rcl_interfaces.srv import SetParameters
     from rclpy.parameter import Parameter as RclParameter
 

@@ -36,7 +36,7 @@ from pathlib import Path
 REPO = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(REPO))
 
-from wheel_dr.ros.env import isolated_dds_env, ros_environment, workspace_paths  # noqa: E402
+from wheel_dr.ros.env import isolated_dds_env, ros_environment  # noqa: E402
 
 __all__ = ["main"]
 
