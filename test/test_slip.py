@@ -76,27 +76,32 @@ def test_latch_debounce_and_hysteresis_behave():
     np.testing.assert_array_equal(got, want)
 
 
-def _reference_traction_latch(spike, stamp_ns, hold_ns):
-    """The documented traction rule, one sample at a time: a spike starts a slip of its sign; a
-    spike of the other sign (the run of it) ends it; no spike of its own sign for hold_ns ends it
-    too, and then an opposite spike within a further hold_ns is its late re-grip."""
+def _reference_traction_latch(z, stamp_ns, hold_ns, release, busy):
+    """The documented traction rule, one sample at a time: a spike (|z| > 1) starts a slip of its
+    sign; an opposite score beyond ``release`` ends it (and the rest of that opposite run starts
+    nothing); no spike of its own sign for hold_ns ends it too, and then an opposite spike within
+    a further hold_ns is its late re-grip; a spike where another detector is busy starts nothing."""
     sign, last, consumed, expect, until, out = 0, 0, 0, 0, 0, []
-    for e, t in zip(spike, stamp_ns):
+    for zi, t, b in zip(z, stamp_ns, busy):
+        weak = 0 if abs(zi) <= release else (1 if zi > 0 else -1)
+        strong = weak if abs(zi) > 1.0 else 0
         if sign and t - last > hold_ns:
             sign, expect, until = 0, -sign, last + 2 * hold_ns
         if expect and t > until:
             expect = 0
-        if e != consumed:
+        if weak != consumed:
             consumed = 0
-        if e and not consumed:
-            if not sign and e == expect:
-                consumed, expect = e, 0
-            elif not sign:
-                sign, last, expect = e, t, 0
-            elif e == sign:
+        if weak and not consumed:
+            if not sign and strong and strong == expect:
+                consumed, expect = strong, 0
+            elif not sign and strong and b:
+                consumed = strong
+            elif not sign and strong:
+                sign, last, expect = strong, t, 0
+            elif sign and strong == sign:
                 last = t
-            else:
-                sign, consumed = 0, e
+            elif sign and weak == -sign:
+                sign, consumed = 0, weak
         out.append(sign != 0)
     return np.array(out)
 
@@ -105,14 +110,20 @@ def _reference_traction_latch(spike, stamp_ns, hold_ns):
 def test_traction_latch_follows_its_rule(seed):
     rng = np.random.default_rng(100 + seed)
     n = 4000
-    spike = np.zeros(n, dtype=np.int64)
-    for start in rng.integers(0, n - 5, 60):          # short runs of spikes of either sign
-        spike[start:start + rng.integers(1, 4)] = rng.choice([-1, 1])
+    z = rng.normal(0.0, 0.2, n)
+    for start in rng.integers(0, n - 5, 80):          # short runs of strong or weak scores of either sign
+        z[start:start + rng.integers(1, 4)] = rng.choice([-1, 1]) * rng.choice([0.7, 1.5, 3.0])
     stamp = np.cumsum(rng.integers(8_000_000, 25_000_000, n)).astype(np.int64)
+    busy = np.zeros(n, dtype=bool)
+    for start in rng.integers(0, n - 50, 10):
+        busy[start:start + 40] = True
     for hold_ns in (0, 300_000_000, 2_000_000_000):
-        got = traction_latch(spike, stamp, hold_ns)
-        np.testing.assert_array_equal(got, _reference_traction_latch(spike, stamp, hold_ns))
-        assert got.any()
+        for release in (0.5, 0.9):
+            for b in (None, busy):
+                got = traction_latch(z, stamp, hold_ns, release, b)
+                want = _reference_traction_latch(z, stamp, hold_ns, release, np.zeros(n, bool) if b is None else b)
+                np.testing.assert_array_equal(got, want)
+                assert got.any() and not got.all()
 
 
 # ------------------------------------------------------------------------------------------------

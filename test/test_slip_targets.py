@@ -82,6 +82,7 @@ def test_skid_steer_same_side_disagreement_without_imu():
         traj = run(gen.samples, gen.settings)
         fig = slip_figures(gen, traj.slip.slip, gen.t_s[traj.index])
         assert fig["coverage"] >= 0.95 and fig["latency_max_s"] < 0.2, (seed, fig)
+        assert fig["false_strict"] <= 0.01, (seed, fig)
 
 
 @pytest.mark.parametrize("seed", HARD_SEEDS)

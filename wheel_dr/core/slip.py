@@ -43,8 +43,10 @@ Detectors (bits of ``detector``):
   cannot come from rolling contact (common practice: a wheel cannot accelerate the base faster
   than about mu g). Such a spike (no debounce: the acceleration is already a difference of
   window means) marks the onset of spinning (positive) or dragging
-  (negative); the side stays flagged until a spike of the opposite sign (the wheel taking grip
-  again) or until ``slip.traction_hold_s`` after the last spike of its own sign. Where the gyro
+  (negative); the side stays flagged until an opposite acceleration beyond
+  ``slip.clear_fraction`` of the limit (the wheel taking grip again; hysteresis) or until
+  ``slip.traction_hold_s`` after the last spike of its own sign. It does not start on a side
+  that another detector already flags (the spike belongs to that slip). Where the gyro
   is read, a traction flag on one side only is dropped while the gyro detector has been clear for
   ``slip.clear_delay_s`` (a one-sided slip would turn the wheels' heading). Runs without an IMU.
 * ``DETECTOR_SAME_SIDE`` (4), where a side has two or more joints: the spread of their window
@@ -225,40 +227,52 @@ def latch(score: np.ndarray, stamp_ns: np.ndarray, set_delay_ns: int, clear_dela
     return np.where(last >= 0, on[np.maximum(last, 0)], False)
 
 
-def traction_latch(spike: np.ndarray, stamp_ns: np.ndarray, hold_ns: int) -> np.ndarray:
-    """Flag from a traction spike until a spike of the opposite sign or ``hold_ns`` after the last
-    spike of its own sign. ``spike`` is +1 / -1 where a spike is seen, else 0.
+def traction_latch(signed_z: np.ndarray, stamp_ns: np.ndarray, hold_ns: int, release: float,
+                   busy: np.ndarray | None = None) -> np.ndarray:
+    """Traction flag from signed scores (a / (mu g)): a spike (|z| > 1) starts a slip of its sign
+    (not where ``busy``: the side is flagged by another detector);
+    an opposite score beyond ``release`` (the wheel taking grip again, hysteresis) ends it, as
+    does ``hold_ns`` without a spike of its own sign. When a slip times out, an opposite spike
+    within a further ``hold_ns`` is its late re-grip and starts nothing. The samples of the
+    opposite run that ended a slip cannot start the next one.
 
-    A run of equal spikes is one spike; the run that ends a slip cannot start the next one. When a
-    slip times out, an opposite spike within a further ``hold_ns`` is its late re-grip and starts
-    nothing. The loop visits runs only (few), not samples; ``_TractionLatch`` is the same rule per sample.
+    A loop over the samples with |z| > ``release`` only (few in normal driving); the streaming
+    twin ``_TractionLatch`` applies the same rule to every sample.
     """
-    m = len(spike)
+    m = len(signed_z)
     out = np.zeros(m, dtype=bool)
     if m == 0:
         return out
-    prev = np.concatenate(([0], spike[:-1]))
-    starts = np.flatnonzero((spike != 0) & (spike != prev))
-    ends = np.flatnonzero((spike != 0) & (spike != np.concatenate((spike[1:], [0]))))
-    sign, on_at, last_ns, expect, expect_until = 0, 0, 0, 0, 0
-    for a, e in zip(starts.tolist(), ends.tolist()):
-        sg = int(spike[a])
-        t_a = int(stamp_ns[a])
-        if sign != 0 and t_a - last_ns > hold_ns:               # timed out before this run
+    events = np.flatnonzero(np.abs(signed_z) > release)
+    sign, on_at, last_ns, consumed, expect, expect_until, prev_i = 0, 0, 0, 0, 0, 0, -2
+    for i in events.tolist():
+        z = float(signed_z[i])
+        t = int(stamp_ns[i])
+        weak = 1 if z > 0.0 else -1
+        strong = weak if abs(z) > 1.0 else 0
+        if sign != 0 and t - last_ns > hold_ns:                   # timed out before this sample
             out[on_at:int(np.searchsorted(stamp_ns, last_ns + hold_ns, side="right"))] = True
             sign, expect, expect_until = 0, -sign, last_ns + 2 * hold_ns
-        if expect != 0 and t_a > expect_until:
+        if expect != 0 and t > expect_until:
             expect = 0
+        if i != prev_i + 1 or weak != consumed:                   # the consumed run has ended
+            consumed = 0
+        prev_i = i
+        if consumed:
+            continue
         if sign == 0:
-            if sg == expect:                                    # late re-grip of a timed-out slip
-                expect = 0
-            else:
-                sign, on_at, last_ns, expect = sg, a, int(stamp_ns[e]), 0
-        elif sg == sign:
-            last_ns = int(stamp_ns[e])
-        else:                                                   # the wheel takes grip again
-            out[on_at:a] = True
-            sign = 0
+            if strong != 0:
+                if strong == expect:                               # late re-grip of a timed-out slip
+                    consumed, expect = strong, 0
+                elif busy is not None and busy[i]:                  # another detector has this slip
+                    consumed = strong
+                else:
+                    sign, on_at, last_ns, expect = strong, i, t, 0
+        elif strong == sign:
+            last_ns = t
+        elif weak == -sign:                                        # the wheel takes grip again
+            out[on_at:i] = True
+            sign, consumed = 0, weak
     if sign != 0:
         out[on_at:int(np.searchsorted(stamp_ns, last_ns + hold_ns, side="right"))] = True
     return out
@@ -277,26 +291,38 @@ class _TractionLatch:
         self._expect = 0
         self._expect_until = 0
 
-    def update(self, signed_z: float, stamp_ns: int) -> bool:
-        hold = self._k.hold_ns
-        spike = 1 if signed_z > 1.0 else (-1 if signed_z < -1.0 else 0)
+    def update(self, signed_z: float, stamp_ns: int, busy: bool = False) -> bool:
+        k = self._k
+        hold = k.hold_ns
+        weak = (1 if signed_z > 0.0 else -1) if abs(signed_z) > k.clear_fraction else 0
+        strong = weak if abs(signed_z) > 1.0 else 0
+        if weak == 0:
+            self._consumed = 0
+            if self._sign != 0 and stamp_ns - self._last_ns > hold:
+                self._expect, self._expect_until = -self._sign, self._last_ns + 2 * hold
+                self._sign = 0
+            return self._sign != 0
         if self._sign != 0 and stamp_ns - self._last_ns > hold:
             self._expect, self._expect_until = -self._sign, self._last_ns + 2 * hold
             self._sign = 0
         if self._expect != 0 and stamp_ns > self._expect_until:
             self._expect = 0
-        if spike == 0 or spike != self._consumed:
+        if weak != self._consumed:
             self._consumed = 0
-        if spike != 0 and self._consumed == 0:
-            if self._sign == 0:
-                if spike == self._expect:
-                    self._consumed, self._expect = spike, 0
+        if self._consumed:
+            return self._sign != 0
+        if self._sign == 0:
+            if strong != 0:
+                if strong == self._expect:
+                    self._consumed, self._expect = strong, 0
+                elif busy:
+                    self._consumed = strong
                 else:
-                    self._sign, self._last_ns, self._expect = spike, stamp_ns, 0
-            elif spike == self._sign:
-                self._last_ns = stamp_ns
-            else:
-                self._sign, self._consumed = 0, spike
+                    self._sign, self._last_ns, self._expect = strong, stamp_ns, 0
+        elif strong == self._sign:
+            self._last_ns = stamp_ns
+        elif weak == -self._sign:
+            self._sign, self._consumed = 0, weak
         return self._sign != 0
 
 
@@ -508,18 +534,19 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
     def lat(z: np.ndarray) -> np.ndarray:
         return latch(z, stamp, k.set_ns, k.clear_ns, k.clear_fraction)
 
-    on_g = lat(zg) if has_gyro else np.zeros(m, dtype=bool)
-    def trac(signed: np.ndarray) -> np.ndarray:
-        return traction_latch(np.where(signed > 1.0, 1, np.where(signed < -1.0, -1, 0)), stamp, k.hold_ns)
-
-    on_tl, on_tr = trac(st_left), trac(st_right)
+    no = np.zeros(m, dtype=bool)
+    on_g = lat(zg) if has_gyro else no
+    on_sl = lat(zs_left) if zs_left is not None else no
+    on_sr = lat(zs_right) if zs_right is not None else no
+    # a traction slip does not start on a side another detector already flags (its spikes are
+    # that slip's own onset or re-grip)
+    busy_left, busy_right = on_sl | (on_g & gyro_left), on_sr | (on_g & ~gyro_left)
+    on_tl = traction_latch(st_left, stamp, k.hold_ns, k.clear_fraction, busy_left)
+    on_tr = traction_latch(st_right, stamp, k.hold_ns, k.clear_fraction, busy_right)
     # a one-sided slip turns the wheels' heading: a gyro clearly quiet for clear_delay_s vetoes it
     if has_gyro:
         veto = _held(g_ok & (zg < k.clear_fraction), stamp, k.clear_ns) & ~(on_tl & on_tr)
         on_tl, on_tr = on_tl & ~veto, on_tr & ~veto
-    no = np.zeros(m, dtype=bool)
-    on_sl = lat(zs_left) if zs_left is not None else no
-    on_sr = lat(zs_right) if zs_right is not None else no
     left = on_tl | on_sl | (on_g & gyro_left)
     right = on_tr | on_sr | (on_g & ~gyro_left)
     flagged = left | right
@@ -739,8 +766,10 @@ class SlipMonitor:
             gyro_left = self._gyro_left
 
         on_g = self._lat_g.update(zg, stamp)
-        on_tl = self._lat_tl.update(st_left, stamp)
-        on_tr = self._lat_tr.update(st_right, stamp)
+        on_sl = self._lat_sl.update(zs_left, stamp) if zs_left is not None else False
+        on_sr = self._lat_sr.update(zs_right, stamp) if zs_right is not None else False
+        on_tl = self._lat_tl.update(st_left, stamp, on_sl or (on_g and gyro_left))
+        on_tr = self._lat_tr.update(st_right, stamp, on_sr or (on_g and not gyro_left))
         if g_ok and zg < k.clear_fraction:
             if self._quiet_since is None:
                 self._quiet_since = stamp
@@ -748,8 +777,6 @@ class SlipMonitor:
             self._quiet_since = None
         if self._quiet_since is not None and stamp - self._quiet_since >= k.clear_ns and not (on_tl and on_tr):
             on_tl = on_tr = False
-        on_sl = self._lat_sl.update(zs_left, stamp) if zs_left is not None else False
-        on_sr = self._lat_sr.update(zs_right, stamp) if zs_right is not None else False
         left = on_tl or on_sl or (on_g and gyro_left)
         right = on_tr or on_sr or (on_g and not gyro_left)
         flagged = left or right
