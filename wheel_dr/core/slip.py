@@ -98,6 +98,7 @@ DETECTOR_NAMES = {DETECTOR_GYRO: "gyro", DETECTOR_TRACTION: "traction", DETECTOR
 
 STANDARD_GRAVITY_MPS2 = 9.80665  # standard acceleration of gravity (3rd CGPM, 1901)
 BIAS_MIN_SAMPLES = 10            # standing-still samples needed before the gyro bias estimate is used
+_BLOCK = 32768                   # samples per block of the batch window work
 LONG_SHORT_SCORE = 0.25          # the long window counts while the short one's score is at least this
 
 
@@ -443,82 +444,95 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
     last_restart = np.maximum.accumulate(np.where(restart, idx, -1))
     cum_joints = [cum(joints[:, c]) for c in range(nj)]
     clean = has_b & (last_restart < j)
+    clean_b = has_b & clean[bnd]
+    valid_a = clean & clean_b
     t_eff = (stamp - stamp[bnd]) * 1e-9
     safe = np.where(clean, t_eff, 1.0)
-    # speeds per joint column; unclean windows (safe = 1) hold window sums that are never used
-    wj = [c[1:] - c[j] for c in cum_joints]
-    vj = [w / safe for w in wj]
-    wl, wr = _side_sum(wj, 0, nl), _side_sum(wj, nl, nj)
-    vl, vr = wl / safe, wr / safe
-    vb = 0.5 * (vl + vr)
-    clean_b = has_b & clean[bnd]
-
-    # traction: a / (mu g) per joint, a = difference of window-mean speeds one window apart;
-    # per side the joint with the largest |a| (the first of equals)
-    valid_a = clean & clean_b
-    za = [np.where(valid_a, (v - v[bnd]) / safe / k.mu_g, 0.0) for v in vj]
+    if has_gyro:
+        last_miss = np.maximum.accumulate(np.where(avail, -1, idx))
+        cum_gi, cum_c11 = cum(gi), cum(c11)
+        g_ok = clean & (last_miss < j)
 
     def side_extreme(part: list[np.ndarray]) -> np.ndarray:
+        """Per sample the value of largest magnitude (the first of equals)."""
         if len(part) == 1:
             return part[0]
         stacked = np.column_stack(part)
         pick = np.argmax(np.abs(stacked), axis=1)
         return np.take_along_axis(stacked, pick[:, None], axis=1)[:, 0]
 
-    st_left, st_right = side_extreme(za[:nl]), side_extreme(za[nl:])
-    zt_left, zt_right = np.abs(st_left), np.abs(st_right)
-
-    # same side: spread / max(mean |v|, floor) / ratio
-    def same_side(lo: int, hi: int) -> np.ndarray:
-        vs = vj[lo:hi]
+    def same_side(vs: list[np.ndarray], ok: np.ndarray) -> np.ndarray:
+        """Spread / max(mean |v|, floor) / ratio of one side's joint speeds."""
         mean_abs = np.abs(vs[0])
         hi_v, lo_v = vs[0], vs[0]
         for v in vs[1:]:
             mean_abs = mean_abs + np.abs(v)
             hi_v, lo_v = np.maximum(hi_v, v), np.minimum(lo_v, v)
         mean_abs = mean_abs / len(vs)
-        return np.where(clean, (hi_v - lo_v) / np.maximum(mean_abs, k.ss_min) / k.ss_ratio, 0.0)
+        return np.where(ok, (hi_v - lo_v) / np.maximum(mean_abs, k.ss_min) / k.ss_ratio, 0.0)
 
-    zs_left = same_side(0, nl) if nl >= 2 else None
-    zs_right = same_side(nl, nj) if nj - nl >= 2 else None
+    def gyro_test(at: np.ndarray, at1, t_w: np.ndarray, jw: np.ndarray, ok: np.ndarray, w_left: np.ndarray,
+                  w_right: np.ndarray):
+        """Gyro score of the samples ``at`` (running-sum rows ``at1``) whose windows start at ``jw``."""
+        dth_w = (w_right - w_left) / k.b
+        dth_gw = cum_gi[at1] - cum_gi[jw]
+        d_w = dth_w - dth_gw
+        n_win = (at - jw + 1).astype(np.float64)
+        var = (cum_c11[at1] - cum_c11[jw]) + (t_w * t_w) * (k.gyro_var / n_win + k.rate_tol2) \
+            + k.scale_tol2 * (dth_w * dth_w)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            z = np.where(ok, np.abs(d_w) / np.sqrt(var * k.gate), 0.0)
+        return z, d_w, dth_gw
 
-    # gyro against wheels, over the window and (for mild sustained slips) the long window
+    # the per-sample window work runs in blocks that stay in cache (a block reads the speeds of
+    # earlier samples from the full arrays, which are filled in order)
+    vj = [np.empty(m) for _ in range(nj)]
+    vl, vr, vb = np.empty(m), np.empty(m), np.empty(m)
+    st_left, st_right = np.empty(m), np.empty(m)
+    zs_left = np.empty(m) if nl >= 2 else None
+    zs_right = np.empty(m) if nj - nl >= 2 else None
+    zg, dth_g = np.zeros(m), np.zeros(m)
+    for lo in range(0, m, _BLOCK):
+        hi = min(m, lo + _BLOCK)
+        blk = slice(lo, hi)
+        jj, bb, sf = j[blk], bnd[blk], safe[blk]
+        # speeds per joint; unclean windows (safe = 1) hold window sums that are never used
+        wj = [c[lo + 1:hi + 1] - c[jj] for c in cum_joints]
+        for col in range(nj):
+            vj[col][blk] = wj[col] / sf
+        wl, wr = _side_sum(wj, 0, nl), _side_sum(wj, nl, nj)
+        vl[blk], vr[blk] = wl / sf, wr / sf
+        vb[blk] = 0.5 * (vl[blk] + vr[blk])
+        # traction: a / (mu g) per joint, a = difference of window-mean speeds one window apart
+        ok_a = valid_a[blk]
+        za = [np.where(ok_a, (v[blk] - v[bb]) / sf / k.mu_g, 0.0) for v in vj]
+        st_left[blk], st_right[blk] = side_extreme(za[:nl]), side_extreme(za[nl:])
+        if zs_left is not None:
+            zs_left[blk] = same_side([v[blk] for v in vj[:nl]], clean[blk])
+        if zs_right is not None:
+            zs_right[blk] = same_side([v[blk] for v in vj[nl:]], clean[blk])
+        # gyro against wheels, over the window and (for mild sustained slips) the long window
+        if has_gyro:
+            z, d, dg = gyro_test(idx[blk], slice(lo + 1, hi + 1), t_eff[blk], jj, g_ok[blk], wl, wr)
+            if k.long_ns > 0:
+                # the long window only counts where the short one scores LONG_SHORT_SCORE or more
+                sub = np.flatnonzero(g_ok[blk] & (z >= LONG_SHORT_SCORE))
+                at = sub + lo
+                jl = np.searchsorted(stamp, stamp[at] - k.long_ns, side="right")
+                ok_l = (jl >= 1) & (last_restart[at] < jl) & (last_miss[at] < jl)
+                wjl = [c[at + 1] - c[jl] for c in cum_joints]
+                t_l = (stamp[at] - stamp[np.maximum(jl - 1, 0)]) * 1e-9
+                zl, dl_w, _ = gyro_test(at, at + 1, t_l, jl, ok_l, _side_sum(wjl, 0, nl), _side_sum(wjl, nl, nj))
+                agree = (d[sub] > 0.0) == (dl_w > 0.0)
+                z[sub] = np.maximum(z[sub], np.where(agree, zl, 0.0))
+            zg[blk], dth_g[blk] = z, dg
+    zt_left, zt_right = np.abs(st_left), np.abs(st_right)
+
     if has_gyro:
-        last_miss = np.maximum.accumulate(np.where(avail, -1, idx))
-        cum_gi, cum_c11 = cum(gi), cum(c11)
-
-        def gyro_test(at: np.ndarray | None, jw: np.ndarray, ok: np.ndarray, w_left: np.ndarray,
-                      w_right: np.ndarray):
-            """Score of the samples ``at`` (None: all) whose windows start at ``jw``."""
-            if at is None:
-                t_w, at1, at = t_eff, slice(1, None), idx
-            else:
-                t_w, at1 = (stamp[at] - stamp[np.maximum(jw - 1, 0)]) * 1e-9, at + 1
-            dth_w = (w_right - w_left) / k.b
-            dth_gw = cum_gi[at1] - cum_gi[jw]
-            d_w = dth_w - dth_gw
-            n_win = (at - jw + 1).astype(np.float64)
-            var = (cum_c11[at1] - cum_c11[jw]) + (t_w * t_w) * (k.gyro_var / n_win + k.rate_tol2) \
-                + k.scale_tol2 * (dth_w * dth_w)
-            with np.errstate(divide="ignore", invalid="ignore"):
-                z = np.where(ok, np.abs(d_w) / np.sqrt(var * k.gate), 0.0)
-            return z, d_w, dth_gw
-
-        g_ok = clean & (last_miss < j)
-        zg, d, dth_g = gyro_test(None, j, g_ok, wl, wr)
-        if k.long_ns > 0:
-            # the long window only counts where the short one scores LONG_SHORT_SCORE or more
-            at = np.flatnonzero(g_ok & (zg >= LONG_SHORT_SCORE))
-            jl = np.searchsorted(stamp, stamp[at] - k.long_ns, side="right")
-            ok_l = (jl >= 1) & (last_restart[at] < jl) & (last_miss[at] < jl)
-            wjl = [c[at + 1] - c[jl] for c in cum_joints]
-            zl, dl_w, _ = gyro_test(at, jl, ok_l, _side_sum(wjl, 0, nl), _side_sum(wjl, nl, nj))
-            agree = (d[at] > 0.0) == (dl_w > 0.0)
-            zg[at] = np.maximum(zg[at], np.where(agree, zl, 0.0))
         # side: keep the base speed seen while quiet (forward fill)
         quiet = g_ok & clean_b & (zg < k.clear_fraction)
-        qi = np.maximum.accumulate(np.where(quiet, np.arange(m), -1))
-        q = np.where(qi >= 0, vb[bnd][np.maximum(qi, 0)], 0.0)
+        qi = np.maximum.accumulate(np.where(quiet, idx, -1))
+        q = np.where(qi >= 0, vb[bnd[np.maximum(qi, 0)]], 0.0)
         wg = dth_g / safe
         gyro_left = np.abs(vr - wg * k.half_b - q) < np.abs(vl + wg * k.half_b - q)
         # the side is judged while the score is over the threshold and kept while it is under
