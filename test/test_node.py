@@ -195,6 +195,19 @@ class Probe:
         self.stamp_ns += (n - 1) * DT_NS
         return out
 
+    def handshake(self, names: list[str], timeout_s: float = 20.0) -> None:
+        """Send still samples until the node's flags for one come back: both sides have matched."""
+        end = time.monotonic() + timeout_s
+        while time.monotonic() < end:
+            self.stamp_ns += DT_NS
+            self.pub_js.publish(self.js(self.stamp_ns, names, [0.0] * len(names)))
+            sec, nanosec = divmod(self.stamp_ns, 1_000_000_000)
+            time.sleep(0.05)
+            with self.lock:
+                if any(f.data[0] == sec and f.data[1] == nanosec for f in self.flags[-20:]):
+                    return
+        raise AssertionError("the node did not answer joint states")
+
     def next_diag(self, timeout_s: float = 5.0) -> tuple[int, int, str, dict[str, str]]:
         """The first diagnostics status published after this call."""
         with self.lock:
@@ -243,6 +256,7 @@ def node_run(tmp_path_factory: pytest.TempPathFactory, ros_env: dict[str, str]) 
               "the node to subscribe to /my_js")
         assert proc.poll() is None, f"node exited: {log_path.read_text()}"
         _wait(lambda: probe.node.count_publishers(f"{NS}/odom_flags") > 0, 10, "the node's flags publisher")
+        probe.handshake([LEFT, RIGHT])
         yield {"proc": proc, "probe": probe, "log": log_path}
     finally:
         probe.close()
@@ -342,6 +356,20 @@ def test_tf_equals_the_odometry_pose(node_run: dict[str, Any]) -> None:
         assert (r.x, r.y, r.z, r.w) == (q.x, q.y, q.z, q.w)
         checked += 1
     assert checked == len(samples)
+    # output.publish_tf switches TF off at run time; odometry goes on.
+    assert _set_parameter(probe, "output.publish_tf", False).successful
+    try:
+        quiet = probe.arc(0.1, 1.0, 1.0)
+        _drive(probe, quiet)
+        probe.odom_at(quiet[-1][0])
+        time.sleep(0.2)
+        stamps = {divmod(st, 1_000_000_000) for st, _ in quiet}
+        with probe.lock:
+            sent = [t for m in probe.tf for t in m.transforms
+                    if (t.header.stamp.sec, t.header.stamp.nanosec) in stamps]
+        assert not sent, "TF published although output.publish_tf is false"
+    finally:
+        assert _set_parameter(probe, "output.publish_tf", True).successful
 
 
 def test_flags_message_layout_and_status(node_run: dict[str, Any]) -> None:
@@ -389,10 +417,11 @@ def test_reset_and_reanchor(node_run: dict[str, Any]) -> None:
     wrong.pose.pose.position.x = 50.0
     wrong.pose.pose.orientation.w = 1.0
     _wait(lambda: probe.pub_reanchor.get_subscription_count() > 0, 10, "the re-anchor subscription")
+    log = node_run["log"]
     probe.pub_reanchor.publish(anchor)
-    time.sleep(0.3)
+    _wait(lambda: "re-anchored at x=3.000 m, y=-2.000 m" in log.read_text(), 10, "the re-anchor")
     probe.pub_reanchor.publish(wrong)
-    time.sleep(0.3)
+    _wait(lambda: "re-anchor refused" in log.read_text(), 10, "the refused re-anchor")
     probe.stamp_ns += DT_NS
     _drive(probe, [(probe.stamp_ns, last_angles)])
     o = probe.odom_at(probe.stamp_ns)
@@ -598,6 +627,7 @@ def test_without_tf2_msgs_the_node_runs_with_tf_disabled(tmp_path: Path, ros_env
             _wait(lambda: probe.pub_js.get_subscription_count() > 0 or proc.poll() is not None, 30, "start-up")
             _wait(lambda: probe.node.count_publishers("/no_tf/odom_flags") > 0, 10, "the flags publisher")
             names = ["left_wheel_joint", "right_wheel_joint"]   # the default parameters' joints
+            probe.handshake(names)
             samples = probe.arc(0.2, 1.0, 2.0)
             probe.send([probe.js(s, names, p) for s, p in samples])
             odom = probe.odom_at(samples[-1][0])
