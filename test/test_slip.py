@@ -354,3 +354,20 @@ def test_monitor_never_raises_on_bad_gyro_values():
         out = mon.step(tracker, status, dt, dl, dr, g)
         assert isinstance(out, SlipStep) and math.isfinite(out.score)
     assert status == SampleStatus.USED
+
+
+def test_batch_blocks_do_not_change_the_result(monkeypatch):
+    """The batch form works in blocks; block edges (forward fills carried across) change nothing."""
+    import wheel_dr.core.slip as slip_module
+
+    gen = generate(random_drive(7, duration_s=60.0), 7)
+    tv = wheel_travel(gen.samples, gen.settings)
+    gyro = gen.gyro_z_radps[tv.index].copy()
+    gyro[1000:1100] = np.nan
+    whole = detect_slip(tv, gyro, gen.settings)
+    assert whole.slip.any()
+    for block in (333, 1000):
+        monkeypatch.setattr(slip_module, "_BLOCK", block)
+        parts = detect_slip(tv, gyro, gen.settings)
+        for field in ("slip", "left", "right", "detector", "score"):
+            np.testing.assert_array_equal(getattr(parts, field), getattr(whole, field), err_msg=field)

@@ -421,10 +421,10 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
         at_still[1:BIAS_MIN_SAMPLES] = k.bias_prior
         bias = at_still[np.cumsum(still)]
         gi = np.where(avail, (g - bias) * dt, 0.0)      # bias-corrected gyro heading increment
+        c11 = _c11(dl, dr, k)
     else:
         avail = np.zeros(m, dtype=bool)
         gi = np.zeros(m)
-    c11 = _c11(dl, dr, k)
 
     # sliding windows (stamp_i in (t_k - window, t_k]) by running sums; boundary sample = j - 1
     j = np.searchsorted(stamp, stamp - k.window_ns, side="right")
@@ -444,10 +444,7 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
     last_restart = np.maximum.accumulate(np.where(restart, idx, -1))
     cum_joints = [cum(joints[:, c]) for c in range(nj)]
     clean = has_b & (last_restart < j)
-    clean_b = has_b & clean[bnd]
-    valid_a = clean & clean_b
-    t_eff = (stamp - stamp[bnd]) * 1e-9
-    safe = np.where(clean, t_eff, 1.0)
+    vb = np.empty(m)
     if has_gyro:
         last_miss = np.maximum.accumulate(np.where(avail, -1, idx))
         cum_gi, cum_c11 = cum(gi), cum(c11)
@@ -487,15 +484,20 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
     # the per-sample window work runs in blocks that stay in cache (a block reads the speeds of
     # earlier samples from the full arrays, which are filled in order)
     vj = [np.empty(m) for _ in range(nj)]
-    vl, vr, vb = np.empty(m), np.empty(m), np.empty(m)
+    vl, vr = np.empty(m), np.empty(m)
     st_left, st_right = np.empty(m), np.empty(m)
     zs_left = np.empty(m) if nl >= 2 else None
     zs_right = np.empty(m) if nj - nl >= 2 else None
-    zg, dth_g = np.zeros(m), np.zeros(m)
+    zg = np.zeros(m)
+    gyro_left = np.zeros(m, dtype=bool)
+    carry_quiet, carry_strong, carry_q, carry_left = -1, -1, 0.0, False
     for lo in range(0, m, _BLOCK):
         hi = min(m, lo + _BLOCK)
         blk = slice(lo, hi)
-        jj, bb, sf = j[blk], bnd[blk], safe[blk]
+        jj, bb, cl = j[blk], bnd[blk], clean[blk]
+        t_eff = (stamp[blk] - stamp[bb]) * 1e-9
+        sf = np.where(cl, t_eff, 1.0)
+        clean_b = has_b[blk] & clean[bb]
         # speeds per joint; unclean windows (safe = 1) hold window sums that are never used
         wj = [c[lo + 1:hi + 1] - c[jj] for c in cum_joints]
         for col in range(nj):
@@ -504,16 +506,17 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
         vl[blk], vr[blk] = wl / sf, wr / sf
         vb[blk] = 0.5 * (vl[blk] + vr[blk])
         # traction: a / (mu g) per joint, a = difference of window-mean speeds one window apart
-        ok_a = valid_a[blk]
+        ok_a = cl & clean_b
         za = [np.where(ok_a, (v[blk] - v[bb]) / sf / k.mu_g, 0.0) for v in vj]
         st_left[blk], st_right[blk] = side_extreme(za[:nl]), side_extreme(za[nl:])
         if zs_left is not None:
-            zs_left[blk] = same_side([v[blk] for v in vj[:nl]], clean[blk])
+            zs_left[blk] = same_side([v[blk] for v in vj[:nl]], cl)
         if zs_right is not None:
-            zs_right[blk] = same_side([v[blk] for v in vj[nl:]], clean[blk])
+            zs_right[blk] = same_side([v[blk] for v in vj[nl:]], cl)
         # gyro against wheels, over the window and (for mild sustained slips) the long window
         if has_gyro:
-            z, d, dg = gyro_test(idx[blk], slice(lo + 1, hi + 1), t_eff[blk], jj, g_ok[blk], wl, wr)
+            ib = idx[blk]
+            z, d, dg = gyro_test(ib, slice(lo + 1, hi + 1), t_eff, jj, g_ok[blk], wl, wr)
             if k.long_ns > 0:
                 # the long window only counts where the short one scores LONG_SHORT_SCORE or more
                 sub = np.flatnonzero(g_ok[blk] & (z >= LONG_SHORT_SCORE))
@@ -525,24 +528,25 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
                 zl, dl_w, _ = gyro_test(at, at + 1, t_l, jl, ok_l, _side_sum(wjl, 0, nl), _side_sum(wjl, nl, nj))
                 agree = (d[sub] > 0.0) == (dl_w > 0.0)
                 z[sub] = np.maximum(z[sub], np.where(agree, zl, 0.0))
-            zg[blk], dth_g[blk] = z, dg
+            zg[blk] = z
+            # side: keep the base speed seen while quiet (forward fill across blocks)
+            quiet = g_ok[blk] & clean_b & (z < k.clear_fraction)
+            qi = np.maximum(np.maximum.accumulate(np.where(quiet, ib, -1)), carry_quiet)
+            q = np.where(qi >= 0, vb[bnd[np.maximum(qi, 0)]], 0.0)
+            carry_quiet = int(qi[-1])
+            wg = dg / sf
+            raw_left = np.abs(vr[blk] - wg * k.half_b - q) < np.abs(vl[blk] + wg * k.half_b - q)
+            # the side is judged while the score is over the threshold and kept while it is under
+            # (the windows of a slip's tail mix slipping and gripping samples)
+            li = np.maximum(np.maximum.accumulate(np.where(z > 1.0, ib, -1)), carry_strong)
+            carry_strong = int(li[-1])
+            gyro_left[blk] = np.where(li >= 0, np.where(li >= lo, raw_left[np.maximum(li - lo, 0)], carry_left),
+                                      raw_left)
+            if carry_strong >= lo:
+                carry_left = bool(raw_left[carry_strong - lo])
     zt_left, zt_right = np.abs(st_left), np.abs(st_right)
-
-    if has_gyro:
-        # side: keep the base speed seen while quiet (forward fill)
-        quiet = g_ok & clean_b & (zg < k.clear_fraction)
-        qi = np.maximum.accumulate(np.where(quiet, idx, -1))
-        q = np.where(qi >= 0, vb[bnd[np.maximum(qi, 0)]], 0.0)
-        wg = dth_g / safe
-        gyro_left = np.abs(vr - wg * k.half_b - q) < np.abs(vl + wg * k.half_b - q)
-        # the side is judged while the score is over the threshold and kept while it is under
-        # (the windows of a slip's tail mix slipping and gripping samples)
-        li = np.maximum.accumulate(np.where(zg > 1.0, idx, -1))
-        gyro_left = np.where(li >= 0, gyro_left[np.maximum(li, 0)], gyro_left)
-    else:
+    if not has_gyro:
         g_ok = np.zeros(m, dtype=bool)
-        zg = np.zeros(m)
-        gyro_left = g_ok
 
     # latches
     def lat(z: np.ndarray) -> np.ndarray:
