@@ -77,7 +77,9 @@ GEOMETRY_NAMES = ("wheels.left_radius", "wheels.right_radius", "wheels.track_wid
 NOISE_NAMES = {"per_wheel": ("noise.k_left", "noise.k_right"), "motion_model": ("noise.alphas",)}
 
 EXACT_TRUTH_NS = 50_000       # a truth stamp this close to a joint stamp is taken as "at" it (50 us)
-OUTLIER_QUANTILE = 0.999      # chi-square(3) quantile beyond which a segment is set aside
+OUTLIER_QUANTILE = 0.999
+LOOSE_RADIUS = 1e-3           # relative standard errors above these are reported as a loose fit
+LOOSE_TRACK = 2e-3      # chi-square(3) quantile beyond which a segment is set aside
 _MIN_VARIANCE = 1e-14         # added to the diagonal of segment covariances (m^2, rad^2)
 
 
@@ -401,7 +403,7 @@ def _whiteners(covs: Sequence[np.ndarray]) -> list[np.ndarray]:
 def fit_systematic(runs: Sequence[CalibrationRun], segs: Sequence[Segments], start_geometry: Sequence[float],
                    scheme: str, covs: Sequence[np.ndarray], masks: Sequence[np.ndarray] | None = None) -> SystematicFit:
     """Least squares of (r_left, r_right, b) on whitened segment errors (``covs`` (S, 3, 3) per run,
-    held fixed), parametrised as relative corrections to ``start_geometry``."""
+    held fixed), parametrised as ratios to ``start_geometry`` (so the Jacobian is per relative change)."""
     g0 = np.asarray(start_geometry, dtype=np.float64)
     masks = list(masks) if masks is not None else [np.ones(len(s), dtype=bool) for s in segs]
     whites = []
@@ -410,8 +412,8 @@ def fit_systematic(runs: Sequence[CalibrationRun], segs: Sequence[Segments], sta
         whites.append(np.stack(_whiteners(sel)) if len(sel) else np.zeros((0, 3, 3)))
     kept = [Segments(s.start[mk], s.end[mk], s.length_m) for s, mk in zip(segs, masks)]
 
-    def residuals(u: np.ndarray) -> np.ndarray:
-        g = g0 * (1.0 + u)
+    def residuals(x: np.ndarray) -> np.ndarray:
+        g = g0 * x           # x = ratio to the start values, near 1 (finite-difference steps are relative to x)
         parts = []
         for run, sg, wt in zip(runs, kept, whites):
             if len(sg) == 0:
@@ -420,7 +422,7 @@ def fit_systematic(runs: Sequence[CalibrationRun], segs: Sequence[Segments], sta
             parts.append(np.einsum("skl,sl->sk", wt, e).ravel())
         return np.concatenate(parts)
 
-    res = optimize.least_squares(residuals, np.zeros(3), method="trf", diff_step=1e-7, x_scale=1e-3,
+    res = optimize.least_squares(residuals, np.ones(3), method="trf", diff_step=1e-7, x_scale=1e-3,
                                  xtol=1e-12, ftol=1e-12, gtol=1e-12, max_nfev=200)
     jac = res.jac
     m = len(res.fun)
@@ -435,7 +437,7 @@ def fit_systematic(runs: Sequence[CalibrationRun], segs: Sequence[Segments], sta
         se_u = np.sqrt(np.maximum(np.diag(cov_u), 0.0))
     except np.linalg.LinAlgError:
         se_u = np.full(3, math.inf)
-    g = g0 * (1.0 + res.x)
+    g = g0 * res.x
     return SystematicFit(g, np.abs(g0) * se_u, s2, cond, sv, m, float(res.cost), bool(res.success))
 
 
@@ -718,6 +720,12 @@ def calibrate(runs: Sequence[CalibrationRun], settings: Settings, *, segment_len
     exc = excitation(runs, segs, sysfit.condition if sysfit is not None else math.nan)
     if fit_geometry and not exc.ok:
         raise ExcitationError(exc.message())
+    if sysfit is not None:
+        rel = sysfit.relative_std_error
+        if rel[0] > LOOSE_RADIUS or rel[1] > LOOSE_RADIUS or rel[2] > LOOSE_TRACK:
+            todo = "; ".join(exc.advice) if exc.advice else "drive longer with the same mix of straight runs and turns"
+            notes.append(f"the fit is loose (standard errors {100 * rel[0]:.2f} %, {100 * rel[1]:.2f} % of the radii, "
+                         f"{100 * rel[2]:.2f} % of the track); to tighten it: {todo}.")
     if n_out:
         notes.append(f"{n_out} of {sum(len(s) for s in segs)} segments were set aside as outliers (NEES beyond the "
                      "chi-square 99.9 % quantile: slip or truth glitches).")
