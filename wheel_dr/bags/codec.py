@@ -165,10 +165,15 @@ def stack_raw(raws: Sequence[bytes], layout: Layout, ros1: bool = False) -> np.n
     n = len(raws)
     if n == 0:
         return np.zeros((0, layout.length), dtype=np.uint8)
-    total = b"".join(raws)
-    if len(total) != n * layout.length:
-        return None
-    arr = np.frombuffer(total, dtype=np.uint8).reshape(n, layout.length)
+    if isinstance(raws, np.ndarray):
+        if raws.ndim != 2 or raws.shape[1] != layout.length:
+            return None
+        arr = raws
+    else:
+        total = b"".join(raws)
+        if len(total) != n * layout.length:
+            return None
+        arr = np.frombuffer(total, dtype=np.uint8).reshape(n, layout.length)
     if layout.fixed_to > layout.fixed_from:
         block = arr[:, layout.fixed_from:layout.fixed_to]
         if not (block == block[0]).all():
@@ -191,9 +196,9 @@ def _stamps(arr: np.ndarray, layout: Layout, ros1: bool) -> np.ndarray:
 
 def bulk_joint_states(raws: Sequence[bytes], ros1: bool = False):
     """(names, stamp_ns (N,), position (N, J), velocity (N, J), has_position, has_velocity) or None."""
-    if not raws:
+    if len(raws) == 0:
         return None
-    layout = joint_state_layout(raws[0], ros1)
+    layout = joint_state_layout(bytes(raws[0]), ros1)
     if layout is None:
         return None
     arr = stack_raw(raws, layout, ros1)
@@ -214,9 +219,9 @@ def bulk_joint_states(raws: Sequence[bytes], ros1: bool = False):
 
 def bulk_imu_gyro_z(raws: Sequence[bytes], ros1: bool = False):
     """(stamp_ns (N,), angular_velocity.z (N,)) or None."""
-    if not raws:
+    if len(raws) == 0:
         return None
-    layout = imu_layout(raws[0], ros1)
+    layout = imu_layout(bytes(raws[0]), ros1)
     if layout is None:
         return None
     arr = stack_raw(raws, layout, ros1)
@@ -228,9 +233,9 @@ def bulk_imu_gyro_z(raws: Sequence[bytes], ros1: bool = False):
 
 def bulk_poses(raws: Sequence[bytes], msgtype: str, ros1: bool = False):
     """(stamp_ns (N,), pose (N, 7) x y z qx qy qz qw, frame_id, child_frame_id) or None."""
-    if not raws:
+    if len(raws) == 0:
         return None
-    layout = pose_layout(raws[0], msgtype, ros1)
+    layout = pose_layout(bytes(raws[0]), msgtype, ros1)
     if layout is None:
         return None
     arr = stack_raw(raws, layout, ros1)

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import math
 import os
+import struct
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Sequence
@@ -249,7 +250,7 @@ def _decode_joint_states(reader: AnyReader, raws: list[bytes], record_ns: list[i
     bulk = codec.bulk_joint_states(raws, ros1)
     if bulk is not None:
         # check the computed layout against rosbags' own decoding of the first message
-        ref = reader.deserialize(raws[0], msgtype)
+        ref = reader.deserialize(bytes(raws[0]), msgtype)
         names, stamps, pos, vel, has_pos, has_vel = bulk
         if (tuple(ref.name) != names or (has_pos and not np.array_equal(np.asarray(ref.position), pos[0],
                                                                          equal_nan=True))
@@ -263,7 +264,7 @@ def _decode_joint_states(reader: AnyReader, raws: list[bytes], record_ns: list[i
         index: dict[str, int] = {}
         per = []
         for raw in raws:
-            m = reader.deserialize(raw, msgtype)
+            m = reader.deserialize(bytes(raw), msgtype)
             nm = list(m.name)
             for n in nm:
                 index.setdefault(n, len(index))
@@ -299,14 +300,14 @@ def _decode_joint_states(reader: AnyReader, raws: list[bytes], record_ns: list[i
 def _decode_gyro(reader: AnyReader, raws: list[bytes], msgtype: str, ros1: bool) -> tuple[np.ndarray, np.ndarray]:
     bulk = codec.bulk_imu_gyro_z(raws, ros1)
     if bulk is not None:
-        ref = reader.deserialize(raws[0], msgtype)
+        ref = reader.deserialize(bytes(raws[0]), msgtype)
         if not (ref.angular_velocity.z == bulk[1][0] or (math.isnan(ref.angular_velocity.z) and math.isnan(bulk[1][0]))):
             bulk = None
     if bulk is not None:
         return bulk
     st, wz = [], []
     for raw in raws:
-        m = reader.deserialize(raw, msgtype)
+        m = reader.deserialize(bytes(raw), msgtype)
         st.append(m.header.stamp.sec * 1_000_000_000 + m.header.stamp.nanosec)
         wz.append(m.angular_velocity.z)
     return np.asarray(st, dtype=np.int64), np.asarray(wz, dtype=np.float64)
@@ -315,7 +316,7 @@ def _decode_gyro(reader: AnyReader, raws: list[bytes], msgtype: str, ros1: bool)
 def _decode_poses(reader: AnyReader, raws: list[bytes], msgtype: str, ros1: bool) -> PlanarPath:
     bulk = codec.bulk_poses(raws, msgtype, ros1)
     if bulk is not None:
-        ref = reader.deserialize(raws[0], msgtype)
+        ref = reader.deserialize(bytes(raws[0]), msgtype)
         pose = ref.pose.pose if hasattr(ref.pose, "pose") else ref.pose
         if pose.position.x != bulk[1][0, 0] or pose.orientation.w != bulk[1][0, 6]:
             bulk = None
@@ -325,7 +326,7 @@ def _decode_poses(reader: AnyReader, raws: list[bytes], msgtype: str, ros1: bool
     st, xs, ys, q = [], [], [], []
     frame = ""
     for raw in raws:
-        m = reader.deserialize(raw, msgtype)
+        m = reader.deserialize(bytes(raw), msgtype)
         pose = m.pose.pose if hasattr(m.pose, "pose") else m.pose
         st.append(m.header.stamp.sec * 1_000_000_000 + m.header.stamp.nanosec)
         xs.append(pose.position.x)
@@ -340,7 +341,7 @@ def _decode_poses(reader: AnyReader, raws: list[bytes], msgtype: str, ros1: bool
 def _decode_tf(reader: AnyReader, raws: list[tuple[bytes, str]], parent: str, child: str) -> PlanarPath:
     st, xs, ys, q = [], [], [], []
     for raw, msgtype in raws:
-        m = reader.deserialize(raw, msgtype)
+        m = reader.deserialize(bytes(raw), msgtype)
         for tr in m.transforms:
             if tr.header.frame_id.strip("/") == parent and tr.child_frame_id.strip("/") == child:
                 st.append(tr.header.stamp.sec * 1_000_000_000 + tr.header.stamp.nanosec)
@@ -350,6 +351,89 @@ def _decode_tf(reader: AnyReader, raws: list[tuple[bytes, str]], parent: str, ch
                 q.append((r.x, r.y, r.z, r.w))
     qa = np.asarray(q, dtype=np.float64).reshape(-1, 4)
     return _path(np.asarray(st, dtype=np.int64), np.asarray(xs), np.asarray(ys), _quat_yaw(qa), parent)
+
+
+_INDEX_HEAD = struct.Struct("<BQHI")    # MCAP message index record: opcode, length, channel id, array bytes
+_INDEX_ENTRY = np.dtype([("log_time", "<u8"), ("offset", "<u8")])
+
+
+def _gather(buf: np.ndarray, offsets: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Record lengths and data starts of the MCAP message records at ``offsets`` of a chunk."""
+    off = offsets.astype(np.int64)
+    length = np.ascontiguousarray(np.lib.stride_tricks.sliding_window_view(buf, 8)[off + 1]).view("<u8")[:, 0]
+    return length.astype(np.int64) - 22, off + 31
+
+
+def _mcap_fast(reader: AnyReader, topics: set[str]):
+    """Raw messages of ``topics`` straight from MCAP storage, or None when not applicable.
+
+    The MCAP format (an open standard, mcap.dev/spec) stores messages in chunks and, after each
+    chunk, a message index per channel: (log time, offset in the chunk) pairs. rosbags' reader
+    yields one message at a time through several layers, which costs more than decoding them. Here
+    each chunk is decompressed by rosbags' own routine (with its CRC check), the index is read as one
+    numpy array, and a channel whose messages all have one length comes out as one (N, L) uint8
+    array (others as a list of bytes). Only the plain rosbag2 layout is handled: anything else
+    (per-message compression, unindexed files, other storage) returns None and rosbags' iterator
+    is used. Returns {topic: (log_time_ns (N,) int64, raws)}.
+    """
+    try:
+        from rosbags.rosbag2 import storage_mcap
+        directory = reader.readers[0].storage
+        storages = directory.storages
+        if directory.metadata.compression_mode == "message":
+            return None
+        if not storages or not all(isinstance(st, storage_mcap.McapReader) and st.chunks for st in storages):
+            return None
+    except (AttributeError, IndexError, ImportError):
+        return None
+    parts: dict[str, list] = {t: [] for t in topics}
+    for st in storages:
+        want = {c.id: c.topic for c in st.connections if c.topic in topics}
+        bio = st.bio
+        for chunk in st.chunks:
+            chans = [ch for ch in chunk.channel_count if ch in want and ch in chunk.message_index_offsets]
+            if len(chans) != sum(1 for ch in chunk.channel_count if ch in want):
+                return None
+            if not chans:
+                continue
+            bio.seek(chunk.chunk_start_offset + 9 + 24)
+            (crc,) = struct.unpack("<I", bio.read(4))
+            bio.seek(chunk.chunk_start_offset + 9 + 40 + len(chunk.compression))
+            data = bio.read(chunk.compressed_size)
+            if len(data) != chunk.compressed_size:
+                raise ValueError("chunk extends past the end of the file")
+            raw = storage_mcap.decompress(data, chunk.compression, chunk.uncompressed_size, crc)
+            buf = np.frombuffer(raw, dtype=np.uint8)
+            for ch in chans:
+                bio.seek(chunk.message_index_offsets[ch])
+                op, _, channel, size = _INDEX_HEAD.unpack(bio.read(_INDEX_HEAD.size))
+                if op != 0x07 or channel != ch:
+                    raise ValueError("message index record does not match its chunk")
+                entries = np.frombuffer(bio.read(size), dtype=_INDEX_ENTRY)
+                offsets = entries["offset"].astype(np.int64)
+                if len(offsets) and (offsets.max() + 31 > len(buf)):
+                    raise ValueError("message index points past its chunk")
+                lengths, starts = _gather(buf, offsets)
+                if len(lengths) and (lengths.min() < 0 or (starts + lengths).max() > len(buf)):
+                    raise ValueError("message record overruns its chunk")
+                parts[want[ch]].append((entries["log_time"].astype(np.int64), lengths, starts, buf))
+    out = {}
+    for topic, items in parts.items():
+        if not items:
+            out[topic] = (np.zeros(0, dtype=np.int64), [])
+            continue
+        times = np.concatenate([it[0] for it in items])
+        lens = np.concatenate([it[1] for it in items])
+        order = np.argsort(times, kind="stable")
+        if len(lens) and lens.min() == lens.max():
+            width = int(lens[0])
+            rows = np.concatenate([np.lib.stride_tricks.sliding_window_view(b, width)[st]
+                                   for _, _, st, b in items]) if width else np.zeros((len(lens), 0), np.uint8)
+            out[topic] = (times[order], rows[order])
+        else:
+            raws = [bytes(b[s0:s0 + n0]) for _, ln, st, b in items for s0, n0 in zip(st.tolist(), ln.tolist())]
+            out[topic] = (times[order], [raws[k] for k in order.tolist()])
+    return out
 
 
 def read_run(path: str | os.PathLike, joint_topic: str | None = None, imu_topic: str | None = None,
@@ -405,9 +489,17 @@ def read_run(path: str | os.PathLike, joint_topic: str | None = None, imu_topic:
         sel = [c for t in wanted for c in conns[t]]
         buckets: dict[str, list] = {t: [] for t in wanted}
         record: list[int] = []
-        topic_of = {c.id: c.topic for c in sel} if not ros1 else None
         try:
-            for c, ts, raw in reader.messages(connections=sel):
+            fast = _mcap_fast(reader, set(wanted) - set(tf_topics)) if not ros1 else None
+            if fast is not None:
+                for t, (times, raws) in fast.items():
+                    buckets[t] = raws
+                    if t == jt:
+                        record = times.tolist()
+                rest = [c for c in sel if c.topic in tf_topics]
+            else:
+                rest = sel
+            for c, ts, raw in (reader.messages(connections=rest) if rest else ()):
                 t = c.topic
                 if t == jt:
                     buckets[t].append(raw)
@@ -421,8 +513,7 @@ def read_run(path: str | os.PathLike, joint_topic: str | None = None, imu_topic:
         except Exception as exc:
             raise BagError(f"bag '{p}' cannot be read to the end ({_why(exc)}); it is truncated or corrupt: "
                            "re-copy or re-record it.") from None
-        del topic_of
-        if not buckets[jt]:
+        if len(buckets[jt]) == 0:
             raise BagError(f"joint-state topic '{jt}' in bag '{p}' has no messages; record the wheel joint states.")
         try:
             samples, decode, stamps_from = _decode_joint_states(reader, buckets[jt], record, JOINT_TYPE, ros1)
@@ -430,7 +521,7 @@ def read_run(path: str | os.PathLike, joint_topic: str | None = None, imu_topic:
                           topics=dict(types))
             if stamps_from != "header":
                 run.notes.append(f"joint-state header stamps are all zero; using bag record times of {jt}.")
-            if it and buckets[it]:
+            if it and len(buckets[it]):
                 g_st, g_wz = _decode_gyro(reader, buckets[it], IMU_TYPE, ros1)
                 run.gyro_z_radps = _hold(g_st, g_wz, samples.stamp_ns)
                 run.imu_topic = it
@@ -451,7 +542,7 @@ def read_run(path: str | os.PathLike, joint_topic: str | None = None, imu_topic:
             if st_topic and buckets.get(st_topic) is not None:
                 rows, sides = [], []
                 for raw in buckets[st_topic]:
-                    m = reader.deserialize(raw, DIAG_TYPE)
+                    m = reader.deserialize(bytes(raw), DIAG_TYPE)
                     for s in m.status:
                         if s.name != SLIP_STATUS_NAME:
                             continue
@@ -464,8 +555,8 @@ def read_run(path: str | os.PathLike, joint_topic: str | None = None, imu_topic:
                 run.slip_truth_ns = np.asarray(rows, dtype=np.int64).reshape(-1, 2)
                 run.slip_side = np.asarray(sides, dtype="<U5")
                 run.slip_topic = st_topic
-            if ut and buckets[ut]:
-                run.urdf = str(reader.deserialize(buckets[ut][0], STRING_TYPE).data)
+            if ut and len(buckets[ut]):
+                run.urdf = str(reader.deserialize(bytes(buckets[ut][0]), STRING_TYPE).data)
                 run.urdf_topic = ut
         except WheelDrError:
             raise
