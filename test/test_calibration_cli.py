@@ -58,8 +58,10 @@ def bags(tmp_path_factory) -> dict[str, Path]:
 def test_calibrate_writes_the_tuned_file_with_the_input_structure(bags) -> None:
     out = bags["root"] / "TUNED.yaml"
     proc = calibrate_cli(str(bags["train"]), "--truth", "/ground_truth", "--params", str(bags["start"]),
-                         "--write", str(out), "--holdout", str(bags["held"]))
+                         "--write", str(out), "--holdout", str(bags["held"]), "--report", str(bags["root"] / "report"))
     assert proc.returncode == 0, proc.stderr
+    page = (bags["root"] / "report" / "index.html").read_text(encoding="utf-8")
+    assert "Calibration" in page and "before calibration" in page and "after calibration" in page
     text = out.read_text(encoding="utf-8")
     values = parse_params_text(text)
     start = parse_params_text(START)
