@@ -192,23 +192,31 @@ def _c11(dl: np.ndarray, dr: np.ndarray, k: _Constants) -> np.ndarray:
     return var[..., 0] + var[..., 2]
 
 
-def _held(cond: np.ndarray, stamp_ns: np.ndarray, delay_ns: int) -> np.ndarray:
-    """True where ``cond`` has been true for at least ``delay_ns`` (since the first sample of its run).
-
-    Works on the runs of ``cond``: each run is held from the first sample whose stamp is at least
-    ``delay_ns`` after the run's first one, to its end.
-    """
+def _held_runs(cond: np.ndarray, stamp_ns: np.ndarray, delay_ns: int) -> tuple[np.ndarray, np.ndarray]:
+    """[from, end) of the stretches where ``cond`` has held for at least ``delay_ns``: each run of
+    ``cond`` from its first sample whose stamp is ``delay_ns`` or more after the run's first one."""
     m = len(cond)
-    if delay_ns <= 0 or m == 0:
-        return cond.copy()
-    edges = np.flatnonzero(np.diff(cond.view(np.int8), prepend=0, append=0))
+    flips = np.empty(m + 1, dtype=bool)               # where a run starts or ends
+    if m:
+        flips[0], flips[m] = cond[0], cond[-1]
+        np.not_equal(cond[1:], cond[:-1], out=flips[1:m])
+    edges = np.flatnonzero(flips)
     starts, ends = edges[0::2], edges[1::2]            # runs are [start, end)
+    if delay_ns <= 0:
+        return starts, ends
     held_from = np.searchsorted(stamp_ns, stamp_ns[starts] + delay_ns, side="left")
     keep = held_from < ends
-    marks = np.zeros(m + 1, dtype=np.int64)
-    np.add.at(marks, held_from[keep], 1)
-    np.add.at(marks, ends[keep], -1)
-    return np.cumsum(marks[:-1]) > 0
+    return held_from[keep], ends[keep]
+
+
+def _held(cond: np.ndarray, stamp_ns: np.ndarray, delay_ns: int) -> np.ndarray:
+    """True where ``cond`` has been true for at least ``delay_ns`` (since the first sample of its run)."""
+    m = len(cond)
+    begin, end = _held_runs(cond, stamp_ns, delay_ns)
+    marks = np.zeros(m + 1, dtype=np.int8)
+    marks[begin] = 1
+    marks[end] = -1                                     # runs are separated: no index is both
+    return np.cumsum(marks[:-1], dtype=np.int8) > 0
 
 
 def latch(score: np.ndarray, stamp_ns: np.ndarray, set_delay_ns: int, clear_delay_ns: int,
@@ -216,16 +224,23 @@ def latch(score: np.ndarray, stamp_ns: np.ndarray, set_delay_ns: int, clear_dela
     """Debounced latch with hysteresis, vectorised: set after ``score > 1`` held ``set_delay_ns``,
     cleared after ``score < clear_fraction`` held ``clear_delay_ns``, else the state is kept.
 
-    Set and clear events exclude each other, so the state is the kind of the latest event
-    (forward fill over run lengths), which equals stepping the state machine sample by sample.
+    Set and clear stretches exclude each other, so the state is the kind of the latest stretch
+    begun, which equals stepping the state machine sample by sample: it changes only where a
+    stretch of the other kind begins.
     """
     m = len(score)
     if m == 0:
         return np.zeros(0, dtype=bool)
-    on = _held(score > 1.0, stamp_ns, set_delay_ns)
-    off = _held(score < clear_fraction, stamp_ns, clear_delay_ns)
-    last = np.maximum.accumulate(np.where(on | off, np.arange(m), -1))
-    return np.where(last >= 0, on[np.maximum(last, 0)], False)
+    on_from, _ = _held_runs(score > 1.0, stamp_ns, set_delay_ns)
+    off_from, _ = _held_runs(score < clear_fraction, stamp_ns, clear_delay_ns)
+    begins = np.concatenate((on_from, off_from))
+    kinds = np.concatenate((np.ones(len(on_from), dtype=np.int8), np.zeros(len(off_from), dtype=np.int8)))
+    order = np.argsort(begins, kind="stable")
+    begins, kinds = begins[order], kinds[order]
+    change = kinds != np.concatenate(([0], kinds[:-1]))   # the state starts off
+    marks = np.zeros(m + 1, dtype=np.int8)
+    marks[begins[change]] = np.where(kinds[change] == 1, 1, -1)
+    return np.cumsum(marks[:-1], dtype=np.int8) > 0
 
 
 def traction_latch(signed_z: np.ndarray, stamp_ns: np.ndarray, hold_ns: int, release: float,
@@ -568,8 +583,8 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
     left = on_tl | on_sl | (on_g & gyro_left)
     right = on_tr | on_sr | (on_g & ~gyro_left)
     flagged = left | right
-    detector = (np.where(on_g, DETECTOR_GYRO, 0) | np.where(on_tl | on_tr, DETECTOR_TRACTION, 0)
-                | np.where(on_sl | on_sr, DETECTOR_SAME_SIDE, 0)).astype(np.int64)
+    detector = (on_g * DETECTOR_GYRO + (on_tl | on_tr) * DETECTOR_TRACTION
+                + (on_sl | on_sr) * DETECTOR_SAME_SIDE).astype(np.int64)
     score = np.maximum(np.maximum(zg, zt_left), zt_right)
     if zs_left is not None:
         score = np.maximum(score, zs_left)
