@@ -338,6 +338,11 @@ def _square(args: argparse.Namespace) -> int:
 def run_calibrate(args: argparse.Namespace) -> int:
     """Entry of the subcommand; a WheelDrError becomes one sentence on stderr and exit status 2."""
     try:
+        if args.square and args.bags:
+            raise CalibrationError("give either bags with ground truth or --square FILE, not both; run them as two "
+                                   "calibrations.")
+        if args.square and args.runs < 1:
+            raise CalibrationError(f"--runs is {args.runs}; give at least 1 run per direction (5 in the paper).")
         return _square(args) if args.square else _bags(args)
     except WheelDrError as exc:
         msg = str(exc)

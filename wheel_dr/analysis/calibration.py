@@ -668,6 +668,9 @@ def calibrate(runs: Sequence[CalibrationRun], settings: Settings, *, segment_len
     """
     if not runs:
         raise CalibrationError("no recording to calibrate on; give at least one bag.")
+    for what, value in (("segment length", segment_length_m), ("noise segment length", noise_segment_m)):
+        if not (value > 0 and math.isfinite(value)):
+            raise CalibrationError(f"the {what} is {value:g} m; give a positive length (defaults 2 and 0.2 m).")
     model = noise_model or settings.noise.model
     scheme = settings.integration
     segs = [make_segments(r, segment_length_m) for r in runs]
