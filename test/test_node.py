@@ -567,7 +567,7 @@ def test_diagnostics_report_counters_rate_settings_and_sim_time(node_run: dict[s
     with probe.lock:
         during = [d for d in probe.diag[n_diag:]]
     rates = [float(d[3]["input_rate_hz"]) for d in during[1:-1]]
-    assert rates and all(60.0 < r < 130.0 for r in rates), rates
+    assert rates and all(50.0 < r < 150.0 for r in rates), rates  # 100 Hz sent, scheduling jitter allowed
     assert all(d[1] == 0 for d in during[1:-1]), [d[2] for d in during]
     assert float(during[-1][3]["latency_total_p50_us"]) > 0
     # IMU input (sensor_msgs/Imu) is read: five messages, five counted.
