@@ -567,14 +567,13 @@ def excitation(runs: Sequence[CalibrationRun], segs: Sequence[Segments], conditi
             problems.append(f"only {math.degrees(amount):.0f} deg of {side} turns")
             advice.append(f"turn {side} (on the spot and on arcs) at least {math.degrees(min_turn_rad):.0f} deg "
                           "in total")
-    ill = not (condition <= max_condition)
-    if ill and math.isfinite(condition):
-        problems.append(f"the radii and the track cannot be told apart (condition number {condition:.0f})")
-    elif ill and not math.isnan(condition):
-        problems.append("the radii and the track cannot be told apart")
-    if ill and not math.isnan(condition) and not advice:
-        advice.append("mix straight runs, arcs of different radii and turns on the spot both ways")
-    ok = not short and not (ill and not math.isnan(condition))
+    ill = not math.isnan(condition) and not (condition <= max_condition)   # an infinite one is ill too
+    if ill:
+        number = f" (condition number {condition:.0f})" if math.isfinite(condition) else ""
+        problems.append(f"the radii and the track cannot be told apart{number}")
+        if not advice:
+            advice.append("mix straight runs, arcs of different radii and turns on the spot both ways")
+    ok = not short and not ill
     return Excitation(travel, straight, left, right, n_seg, condition, ok, problems, advice)
 
 
