@@ -29,7 +29,7 @@ SAFETY_NOTE = ("Odometry, its covariance and slip flags are not safety functions
                "never a substitute for a safety-rated stop; defer to local codes and the machine's safety assessment.")
 
 TRAJECTORY_COLUMNS = ("t", "x", "y", "yaw", "cov_xx", "cov_xy", "cov_xyaw", "cov_yy", "cov_yyaw", "cov_yawyaw", "slip",
-                      "v", "w", "slip_left", "slip_right", "stamp_ns")
+                      "v", "w", "slip_left", "slip_right")
 
 SCENARIOS = ("demo", "square-cw", "square-ccw", "varied")
 
@@ -55,37 +55,31 @@ def _atomic_bytes(path: Path, data: bytes) -> None:
 def write_trajectory_csv(path: Path, traj) -> None:
     """DIR/trajectory.csv: header row, then one row per joint-state sample used (see TRAJECTORY_COLUMNS).
 
-    t in seconds (the sample stamp), pose (m, rad) and covariance (m^2, m rad, rad^2) in the odom
-    frame, slip 0/1, v (m/s) and w (rad/s) in the base frame, stamp_ns the exact stamp.
+    t in seconds (the sample stamp, exact to the nanosecond), pose (m, rad) and covariance (m^2,
+    m rad, rad^2) in the odom frame, slip 0/1, v (m/s) and w (rad/s) in the base frame, then the
+    per-side slip flags. Floats have 10 significant digits (wheel_dr.bags.textout).
     """
+    from .bags.textout import flag_field, float_field, join_fields, stamp_field
     c = traj.cov
     slip = traj.slip
-    stamps = np.asarray(traj.stamp_ns, dtype=np.int64)
-    cols = [stamps // 1_000_000_000, stamps % 1_000_000_000, traj.x_m, traj.y_m, traj.yaw_rad, c[:, 0, 0], c[:, 0, 1],
-            c[:, 0, 2], c[:, 1, 1], c[:, 1, 2], c[:, 2, 2], slip.slip.astype(np.int64), traj.v_mps, traj.w_radps,
-            slip.left.astype(np.int64), slip.right.astype(np.int64), stamps]
-    n = len(stamps)
-    arr = np.empty((n, len(cols)), dtype=object)
-    for i, col in enumerate(cols):
-        arr[:, i] = np.asarray(col).tolist()
-    line = "%d.%09d,%.9g,%.9g,%.9g,%.9g,%.9g,%.9g,%.9g,%.9g,%.9g,%d,%.9g,%.9g,%d,%d,%d\n"
-    body = (line * n) % tuple(arr.ravel().tolist()) if n else ""
-    _atomic_bytes(path, (",".join(TRAJECTORY_COLUMNS) + "\n" + body).encode())
+    fields = [stamp_field(traj.stamp_ns)] + [float_field(v) for v in (
+        traj.x_m, traj.y_m, traj.yaw_rad, c[:, 0, 0], c[:, 0, 1], c[:, 0, 2], c[:, 1, 1], c[:, 1, 2], c[:, 2, 2])]
+    fields += [flag_field(slip.slip), float_field(traj.v_mps), float_field(traj.w_radps), flag_field(slip.left),
+               flag_field(slip.right)]
+    body = join_fields(fields) if len(traj) else b""
+    _atomic_bytes(path, (",".join(TRAJECTORY_COLUMNS) + "\n").encode() + body)
 
 
 def write_tum(path: Path, traj) -> None:
     """The trajectory in the TUM RGB-D benchmark format (Sturm et al. 2012): ``t tx ty tz qx qy qz qw``."""
-    stamps = np.asarray(traj.stamp_ns, dtype=np.int64)
+    from .bags.textout import float_field, join_fields, stamp_field
     half = 0.5 * np.asarray(traj.yaw_rad)
-    n = len(stamps)
-    arr = np.empty((n, 7), dtype=object)
-    for i, col in enumerate([stamps // 1_000_000_000, stamps % 1_000_000_000, traj.x_m, traj.y_m, np.sin(half),
-                             np.cos(half)]):
-        arr[:, i] = np.asarray(col).tolist()
-    arr = arr[:, :6]
-    line = "%d.%09d %.9g %.9g 0 0 0 %.9g %.9g\n"
-    body = (line * n) % tuple(arr.ravel().tolist()) if n else ""
-    _atomic_bytes(path, ("# timestamp tx ty tz qx qy qz qw (wheel_dr odometry, odom frame)\n" + body).encode())
+    n = len(traj)
+    zero = np.full((n, 1), ord("0"), dtype=np.uint8)
+    fields = [stamp_field(traj.stamp_ns), float_field(traj.x_m), float_field(traj.y_m), zero, zero, zero,
+              float_field(np.sin(half)), float_field(np.cos(half))]
+    body = join_fields(fields, " ") if n else b""
+    _atomic_bytes(path, b"# timestamp tx ty tz qx qy qz qw (wheel_dr odometry, odom frame)\n" + body)
 
 
 def _out_dir(path: str | None, default: str) -> Path:
@@ -280,7 +274,7 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("replay", help="run the estimator over a bag and write the trajectory",
                        description="Run the wheel_dr core over the joint states of a bag (rosbag2 mcap or sqlite3, "
                        "or ROS 1) and write DIR/trajectory.csv (t, x, y, yaw, the covariance cov_xx ... cov_yawyaw, "
-                       "slip, then v, w, slip_left, slip_right, stamp_ns; one row per sample used) and "
+                       "slip, then v, w, slip_left, slip_right; one row per sample used) and "
                        "DIR/trajectory.tum (TUM RGB-D benchmark format). Geometry comes from the parameters file, "
                        "else from the URDF on /robot_description; the source is printed.")
     p.add_argument("bag", help="rosbag2 directory or ROS 1 .bag file")
