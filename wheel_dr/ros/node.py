@@ -53,7 +53,7 @@ from ..params import NODE_NAME
 from .convert import (RawOdometryWriter, flag_values, key_values, parameter_descriptor, parameter_value,
                       parse_imu_gyro_z, parse_joint_state, pose_from_msg, python_value)
 
-__all__ = ["OdometryNode", "main", "READ_ONLY_PARAMETERS", "LOG_THROTTLE_S", "ROS_OWNED_PREFIXES"]
+__all__ = ["OdometryNode", "create", "main", "READ_ONLY_PARAMETERS", "LOG_THROTTLE_S", "ROS_OWNED_PREFIXES"]
 
 READ_ONLY_PARAMETERS = frozenset({"frames.odom", "frames.base"})  # TF consumers expect fixed frames
 LOG_THROTTLE_S = 5.0           # a kind of bad input is logged at most once per this many seconds
@@ -62,8 +62,8 @@ WAIT_TIMEOUT_NS = 100_000_000  # the input loop checks for a stop request at lea
 GIL_SWITCH_INTERVAL_S = 0.0005  # Python's default is 5 ms, longer than a 1 kHz sample period
 LATENCY_BIN_US = 1             # latency histogram resolution
 LATENCY_MAX_US = 50_000        # and range (longer latencies go to the last bin)
-# Parameters that belong to ROS 2 itself, not to wheel_dr's settings.
 INPUT_LOOP_ENV = "WHEEL_DR_INPUT_LOOP"  # "executor": serve the inputs from the executor (fallback, slower)
+# Parameters that belong to ROS 2 itself, not to wheel_dr's settings.
 ROS_OWNED_PREFIXES = ("use_sim_time", "qos_overrides.", "start_type_description_service")
 
 _SKIP_TEXT = {
@@ -95,10 +95,14 @@ class _LatencyStats:
     def add(self, latency_ns: int) -> None:
         self.period.append(latency_ns)
 
-    def roll(self) -> dict[str, float]:
-        """Fold the period into the histogram; return period and total p50/p99/max in µs."""
-        out: dict[str, float] = {}
+    def take(self) -> list[int]:
+        """The period's latencies (ns), starting a new period (cheap: called under the estimator lock)."""
         period, self.period = self.period, []
+        return period
+
+    def summarize(self, period: list[int]) -> dict[str, float]:
+        """Fold a period into the histogram; return period and total p50/p99/max in µs (executor thread)."""
+        out: dict[str, float] = {}
         if period:
             arr = np.asarray(period, dtype=np.float64) * 1e-3
             out["latency_p50_us"] = float(np.percentile(arr, 50))
@@ -238,11 +242,11 @@ class OdometryNode:
 
     def _joint_state(self, raw: bytes, received_ns: int) -> None:
         self.received += 1
-        self._period_received += 1
         sec, nanosec, names, positions, velocities = parse_joint_state(raw)
         stamp_ns = sec * 1_000_000_000 + nanosec
         gyro = self._gyro_z
         with self.lock:
+            self._period_received += 1
             writer = self._writer
             est = self.estimator
             if gyro is not None and time.monotonic() - self._gyro_mono > self.settings.limits.max_gap_s:
@@ -260,14 +264,17 @@ class OdometryNode:
                     self._last_slip = (stamp_ns, float(slip.score), int(slip.detector))
             else:
                 slip = None
+            noteworthy = status != SampleStatus.USED and status != SampleStatus.CHAIN_START
+            if noteworthy and status != SampleStatus.GAP:  # a gap (the driver paused) is not bad input
+                kind = status.name.lower()
+                self._period_skipped[kind] = self._period_skipped.get(kind, 0) + 1
         self.pub_flags.publish(writer.flags(flag_values(sec, nanosec, int(status), slip)))
-        if status != SampleStatus.USED and status != SampleStatus.CHAIN_START:
+        if noteworthy:
             self._note_status(status)
 
     def _note_status(self, status: SampleStatus) -> None:
+        """Log a skipped or restarting sample, throttled per kind."""
         kind = status.name.lower()
-        if status != SampleStatus.GAP:  # a gap (e.g. the driver paused) is not bad input
-            self._period_skipped[kind] = self._period_skipped.get(kind, 0) + 1
         count = self.estimator.counters.get(kind, 0)
         level = "info" if status == SampleStatus.GAP else "warning"
         what = "skipped" if status in SKIP_KINDS else "accepted with restart"
@@ -393,9 +400,10 @@ class OdometryNode:
             period_received, self._period_received = self._period_received, 0
             period_slip, self._period_slip = self._period_slip, 0
             period_skipped, self._period_skipped = self._period_skipped, {}
-            latency = self._latency.roll()
+            latency_ns = self._latency.take()
             last_slip = self._last_slip
             slipping = bool(self.estimator.last_slip is not None and self.estimator.last_slip.slip)
+        latency = self._latency.summarize(latency_ns)
         elapsed = max(now - self._period_start, 1e-9)
         self._period_start = now
         skipped = {s.name.lower(): counters.get(s.name.lower(), 0) for s in SKIP_KINDS}
