@@ -1,8 +1,8 @@
 """Message <-> core conversion for the node: stamps, parameters, odometry, TF, flags and diagnostics.
 
 Everything numeric comes from wheel_dr.core; this module only moves numbers between ROS 2
-messages and the core's types. It imports message packages but never rclpy itself, so it can be
-tested without a running ROS graph.
+messages and the core's types. It needs message packages and ``rclpy.serialization`` (to lay out
+the serialised templates once), never a running ROS graph, so it is tested in-process.
 
 Frames (REP 105): the pose is in ``frames.odom``, the twist in ``frames.base``. Covariance layout
 (nav_msgs/Odometry): 6x6 row-major over (x, y, z, rotation about X, Y, Z), filled by
