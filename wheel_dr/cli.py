@@ -239,8 +239,15 @@ def _add_topic_flags(p: argparse.ArgumentParser) -> None:
     p.add_argument("--no-imu", action="store_true", help="ignore the IMU (no gyro for the slip detectors)")
 
 
-def build_parser() -> argparse.ArgumentParser:
-    """The ``wheel-dr`` argument parser with every subcommand."""
+OWN_COMMANDS = ("synth", "replay", "compare", "demo")
+
+
+def build_parser(command: str | None = None) -> argparse.ArgumentParser:
+    """The ``wheel-dr`` argument parser with every subcommand.
+
+    ``command`` (the subcommand about to run, if known) only saves importing the calibration
+    module, which is large, when one of this module's own subcommands runs.
+    """
     from .analysis.runs import default_jobs
     parser = argparse.ArgumentParser(
         prog="wheel-dr", description="Offline wheel odometry: replay the wheel_dr estimator over bags, compare "
@@ -316,7 +323,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.set_defaults(func=_cmd_demo)
 
-    if importlib.util.find_spec("wheel_dr.calibrate_cmd") is not None:
+    if command not in OWN_COMMANDS and importlib.util.find_spec("wheel_dr.calibrate_cmd") is not None:
         from . import calibrate_cmd
         calibrate_cmd.add_parser(sub)
     return parser
@@ -324,8 +331,10 @@ def build_parser() -> argparse.ArgumentParser:
 
 def main(argv: list[str] | None = None) -> int:
     """Entry point of ``wheel-dr``; returns the exit status."""
-    parser = build_parser()
-    args = parser.parse_args(argv)
+    tokens = sys.argv[1:] if argv is None else list(argv)
+    first = next((t for t in tokens if not t.startswith("-")), None)
+    parser = build_parser(first)
+    args = parser.parse_args(tokens)
     try:
         return int(args.func(args) or 0)
     except WheelDrError as exc:

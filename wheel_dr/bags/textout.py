@@ -18,10 +18,16 @@ SIG_DIGITS = 10
 _ZERO = ord("0")
 
 
+_TABLE = np.array([list(f"{i:04d}".encode()) for i in range(10000)], dtype=np.uint8)   # 4 ASCII digits each
+
+
 def _digits(values: np.ndarray, count: int) -> np.ndarray:
     """(N, count) ASCII digits of non-negative int64 ``values`` (most significant first, zero-padded)."""
-    powers = 10 ** np.arange(count - 1, -1, -1, dtype=np.int64)
-    return ((values[:, None] // powers) % 10 + _ZERO).astype(np.uint8)
+    groups = -(-count // 4)
+    v = np.asarray(values, dtype=np.int64)
+    parts = [_TABLE[(v // 10 ** (4 * (groups - 1 - k))) % 10000] for k in range(groups)]
+    out = np.hstack(parts) if groups > 1 else parts[0]
+    return np.ascontiguousarray(out[:, 4 * groups - count:])
 
 
 def _scaled(a: np.ndarray, power: np.ndarray) -> np.ndarray:
