@@ -183,7 +183,7 @@ def _bags(args: argparse.Namespace) -> int:
     holdout = [r for *_, r in held]
     res = calibrate(runs, settings, segment_length_m=args.segment_m, noise_segment_m=args.noise_segment_m,
                     fit_geometry=not args.no_geometry, fit_noise_params=not args.no_noise,
-                    noise_model=args.noise_model, holdout=holdout)
+                    noise_model=args.noise_model, holdout=holdout, fit_truth_offset=args.truth_offset)
     names = [r.name for r in runs]
     for line in result_lines(res, names):
         print(line)
@@ -372,6 +372,9 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                    help="segment length (mean wheel travel, m) for the geometry fit and figures (default 2)")
     p.add_argument("--noise-segment-m", type=float, default=0.2,
                    help="segment length (m) for the noise fit (default 0.2; lengthen it when the truth is noisy)")
+    p.add_argument("--truth-offset", action="store_true",
+                   help="also fit where the truth's body frame sits in base_link (a marker set off the base's "
+                        "origin or turned); without it a clear offset is reported")
     p.add_argument("--report", metavar="DIR", help="also write an HTML report page into DIR")
     p.add_argument("--square", metavar="FILE|synth",
                    help="UMBmark square test: CSV with columns direction,x_m,y_m (one row per run; direction cw "

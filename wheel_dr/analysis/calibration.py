@@ -60,6 +60,7 @@ __all__ = [
     "prepare_run",
     "make_segments",
     "segment_errors",
+    "base_motion_from_truth",
     "segment_covariance_basis",
     "segment_propagate",
     "noise_vector",
@@ -79,7 +80,9 @@ NOISE_NAMES = {"per_wheel": ("noise.k_left", "noise.k_right"), "motion_model": (
 EXACT_TRUTH_NS = 50_000       # a truth stamp this close to a joint stamp is taken as "at" it (50 us)
 OUTLIER_QUANTILE = 0.999
 LOOSE_RADIUS = 1e-3           # relative standard errors above these are reported as a loose fit
-LOOSE_TRACK = 2e-3      # chi-square(3) quantile beyond which a segment is set aside
+LOOSE_TRACK = 2e-3
+MOUNT_NOTE_M = 0.005          # a truth body offset beyond these (and 4 sigma) is reported when not fitted
+MOUNT_NOTE_RAD = math.radians(0.2)      # chi-square(3) quantile beyond which a segment is set aside
 _MIN_VARIANCE = 1e-14         # added to the diagonal of segment covariances (m^2, rad^2)
 
 
@@ -246,11 +249,33 @@ def _integrate_run(run: CalibrationRun, geometry: Sequence[float], scheme: str):
     return integrate(ds, dth, scheme)
 
 
-def segment_errors(run: CalibrationRun, seg: Segments, geometry: Sequence[float], scheme: str) -> np.ndarray:
-    """(S, 3) odometry-minus-truth relative motion per segment (dx, dy m in the start frame, dyaw rad)."""
+def base_motion_from_truth(truth_rel: np.ndarray, mount: Sequence[float]) -> np.ndarray:
+    """Relative motion of base_link from that of a truth body mounted at ``mount`` = (x m, y m, yaw rad)
+    in base_link: B_rel = M (+) T_rel (+) M^-1 (SE(2) composition; Sola et al. 2018 notation)."""
+    lx, ly, d = (float(v) for v in mount)
+    if lx == 0.0 and ly == 0.0 and d == 0.0:
+        return truth_rel
+    c, s = math.cos(-d), math.sin(-d)
+    inv_xy = -np.array([c * lx - s * ly, s * lx + c * ly])        # M^-1 = (-R(-d) l, -d)
+    ct, st = np.cos(truth_rel[:, 2]), np.sin(truth_rel[:, 2])
+    cx = truth_rel[:, 0] + ct * inv_xy[0] - st * inv_xy[1]          # C = T_rel (+) M^-1
+    cy = truth_rel[:, 1] + st * inv_xy[0] + ct * inv_xy[1]
+    cd, sd = math.cos(d), math.sin(d)
+    out = np.empty_like(truth_rel)
+    out[:, 0] = lx + cd * cx - sd * cy                               # B = M (+) C
+    out[:, 1] = ly + sd * cx + cd * cy
+    out[:, 2] = truth_rel[:, 2]
+    return out
+
+
+def segment_errors(run: CalibrationRun, seg: Segments, geometry: Sequence[float], scheme: str,
+                   mount: Sequence[float] = (0.0, 0.0, 0.0)) -> np.ndarray:
+    """(S, 3) odometry-minus-truth relative motion per segment (dx, dy m in the start frame, dyaw rad);
+    ``mount`` is where the truth's body frame sits in base_link (x m, y m, yaw rad)."""
     x, y, th, _, _, _ = _integrate_run(run, geometry, scheme)
     odo = _relative(x, y, th, seg.start, seg.end)
-    tru = _relative(run.truth_x_m, run.truth_y_m, run.truth_yaw_rad, seg.start, seg.end)
+    tru = base_motion_from_truth(_relative(run.truth_x_m, run.truth_y_m, run.truth_yaw_rad, seg.start, seg.end),
+                                 mount)
     err = odo - tru
     err[:, 2] = wrap_angle(err[:, 2])
     return err
@@ -385,6 +410,8 @@ class SystematicFit:
     n_residuals: int
     cost: float
     success: bool
+    mount: np.ndarray = field(default_factory=lambda: np.zeros(3))       # truth body in base_link (m, m, rad)
+    mount_std_error: np.ndarray = field(default_factory=lambda: np.full(3, math.nan))
 
     @property
     def relative_std_error(self) -> np.ndarray:
@@ -401,10 +428,17 @@ def _whiteners(covs: Sequence[np.ndarray]) -> list[np.ndarray]:
 
 
 def fit_systematic(runs: Sequence[CalibrationRun], segs: Sequence[Segments], start_geometry: Sequence[float],
-                   scheme: str, covs: Sequence[np.ndarray], masks: Sequence[np.ndarray] | None = None) -> SystematicFit:
+                   scheme: str, covs: Sequence[np.ndarray], masks: Sequence[np.ndarray] | None = None,
+                   fit_mount: bool = False, start_mount: Sequence[float] = (0.0, 0.0, 0.0)) -> SystematicFit:
     """Least squares of (r_left, r_right, b) on whitened segment errors (``covs`` (S, 3, 3) per run,
-    held fixed), parametrised as ratios to ``start_geometry`` (so the Jacobian is per relative change)."""
+    held fixed), parametrised as ratios to ``start_geometry`` (so the Jacobian is per relative change).
+
+    ``fit_mount`` also fits where the truth's body frame sits in base_link (x, y in m, yaw in rad:
+    a motion-capture marker set off the base's origin or turned); the condition number and the
+    geometry's standard errors then account for it."""
     g0 = np.asarray(start_geometry, dtype=np.float64)
+    m0 = np.asarray(start_mount, dtype=np.float64)
+    n_par = 6 if fit_mount else 3
     masks = list(masks) if masks is not None else [np.ones(len(s), dtype=bool) for s in segs]
     whites = []
     for c, mk in zip(covs, masks):
@@ -413,32 +447,43 @@ def fit_systematic(runs: Sequence[CalibrationRun], segs: Sequence[Segments], sta
     kept = [Segments(s.start[mk], s.end[mk], s.length_m) for s, mk in zip(segs, masks)]
 
     def residuals(x: np.ndarray) -> np.ndarray:
-        g = g0 * x           # x = ratio to the start values, near 1 (finite-difference steps are relative to x)
+        g = g0 * x[:3]       # x = ratio to the start values, near 1 (finite-difference steps are relative to x)
+        mount = m0 + (x[3:] - 1.0) if fit_mount else m0      # metres and radians, offset by 1 likewise
         parts = []
         for run, sg, wt in zip(runs, kept, whites):
             if len(sg) == 0:
                 continue
-            e = segment_errors(run, sg, g, scheme)
+            e = segment_errors(run, sg, g, scheme, mount)
             parts.append(np.einsum("skl,sl->sk", wt, e).ravel())
         return np.concatenate(parts)
 
-    res = optimize.least_squares(residuals, np.ones(3), method="trf", diff_step=1e-7, x_scale=1e-3,
-                                 xtol=1e-12, ftol=1e-12, gtol=1e-12, max_nfev=200)
+    res = optimize.least_squares(residuals, np.ones(n_par), method="trf", diff_step=1e-7, x_scale=1e-3,
+                                 xtol=1e-12, ftol=1e-12, gtol=1e-12, max_nfev=300)
     jac = res.jac
     m = len(res.fun)
-    dof = max(m - 3, 1)
+    dof = max(m - n_par, 1)
     s2 = float(2.0 * res.cost / dof)
-    sv = np.linalg.svd(jac, compute_uv=False)
-    norms = np.linalg.norm(jac, axis=0)
-    svn = np.linalg.svd(jac / np.where(norms > 0, norms, 1.0), compute_uv=False)
+    jg = jac[:, :3]
+    if fit_mount:   # geometry columns with the mount's part projected out (what the mount cannot explain)
+        q, _ = np.linalg.qr(jac[:, 3:])
+        jg = jg - q @ (q.T @ jg)
+    sv = np.linalg.svd(jg, compute_uv=False)
+    norms = np.linalg.norm(jg, axis=0)
+    svn = np.linalg.svd(jg / np.where(norms > 0, norms, 1.0), compute_uv=False)
     cond = float(svn[0] / svn[-1]) if svn[-1] > 0 else math.inf
     try:
         cov_u = s2 * np.linalg.inv(jac.T @ jac)
         se_u = np.sqrt(np.maximum(np.diag(cov_u), 0.0))
     except np.linalg.LinAlgError:
-        se_u = np.full(3, math.inf)
-    g = g0 * res.x
-    return SystematicFit(g, np.abs(g0) * se_u, s2, cond, sv, m, float(res.cost), bool(res.success))
+        se_u = np.full(n_par, math.inf)
+    g = g0 * res.x[:3]
+    out = SystematicFit(g, np.abs(g0) * se_u[:3], s2, cond, sv, m, float(res.cost), bool(res.success))
+    if fit_mount:
+        out.mount = m0 + (res.x[3:] - 1.0)
+        out.mount_std_error = se_u[3:]
+    else:
+        out.mount = m0.copy()
+    return out
 
 
 # ------------------------------------------------------------------------------------------------
@@ -611,7 +656,7 @@ def _aligned_rmse(src: np.ndarray, dst: np.ndarray) -> float:
 
 
 def run_figures(run: CalibrationRun, settings: Settings, segment_length_m: float = 2.0,
-                seg: Segments | None = None) -> RunFigures:
+                seg: Segments | None = None, mount: Sequence[float] = (0.0, 0.0, 0.0)) -> RunFigures:
     """ATE, drift % and mean segment NEES of ``run`` under ``settings`` (geometry, scheme, noise)."""
     seg = seg if seg is not None else make_segments(run, segment_length_m)
     g = geometry_of(settings)
@@ -622,7 +667,7 @@ def run_figures(run: CalibrationRun, settings: Settings, segment_length_m: float
         if v.sum() >= 2 else math.nan
     if len(seg) == 0:
         return RunFigures(run.name, ate, math.nan, math.nan, math.nan, math.nan, 0)
-    err = segment_errors(run, seg, g, scheme)
+    err = segment_errors(run, seg, g, scheme, mount)
     step = np.hypot(np.diff(run.truth_x_m), np.diff(run.truth_y_m))
     cum = np.concatenate(([0.0], np.cumsum(np.where(np.isfinite(step), step, 0.0))))
     length = float(np.sum(cum[seg.end] - cum[seg.start]))
@@ -651,17 +696,20 @@ class CalibrationResult:
     holdout_before: list[RunFigures] = field(default_factory=list)
     holdout_after: list[RunFigures] = field(default_factory=list)
     segment_length_m: float = 2.0
+    mount: np.ndarray = field(default_factory=lambda: np.zeros(3))   # truth body in base_link used (m, m, rad)
 
 
 def calibrate(runs: Sequence[CalibrationRun], settings: Settings, *, segment_length_m: float = 2.0,
               noise_segment_m: float = 0.2, fit_geometry: bool = True, fit_noise_params: bool = True,
               noise_model: str | None = None, holdout: Sequence[CalibrationRun] = (), iterations: int = 4,
-              reject_outliers: bool = True) -> CalibrationResult:
+              reject_outliers: bool = True, fit_truth_offset: bool = False) -> CalibrationResult:
     """Fit the geometry (least squares) then the noise (maximum likelihood) jointly over ``runs``.
 
     The geometry is fitted on segments of ``segment_length_m``, the noise on shorter segments of
     ``noise_segment_m`` (more independent samples: the noise fit's precision grows with their
-    number); figures (ATE, drift, NEES) use ``segment_length_m``. Raises ExcitationError when the
+    number); figures (ATE, drift, NEES) use ``segment_length_m``. ``fit_truth_offset`` also fits
+    where the truth's body frame sits in base_link (a marker set off the base's origin); without it
+    a significant offset is reported in ``notes``. Raises ExcitationError when the
     drive cannot determine the geometry (the message says what to drive) and
     TruthError/CalibrationError for unusable input.
     """
@@ -691,16 +739,18 @@ def calibrate(runs: Sequence[CalibrationRun], settings: Settings, *, segment_len
     masks = [np.ones(len(s), dtype=bool) for s in segs]
     nmasks = [np.ones(len(s), dtype=bool) for s in nsegs]
     gate = float(stats.chi2.ppf(OUTLIER_QUANTILE, 3))
+    mount = np.zeros(3)
     sysfit: SystematicFit | None = None
     nfit: NoiseFit | None = None
     for it in range(max(1, iterations)):
         if fit_geometry:
             covs = [_combine(segment_covariance_basis(r, s, geometry, scheme, model), theta)
                     for r, s in zip(runs, segs)]
-            sysfit = fit_systematic(runs, segs, geometry, scheme, covs, masks)
-            geometry = sysfit.geometry
+            sysfit = fit_systematic(runs, segs, geometry, scheme, covs, masks, fit_mount=fit_truth_offset,
+                                    start_mount=mount)
+            geometry, mount = sysfit.geometry, sysfit.mount
         nbases = [segment_covariance_basis(r, s, geometry, scheme, model) for r, s in zip(runs, nsegs)]
-        nerrs = [segment_errors(r, s, geometry, scheme) for r, s in zip(runs, nsegs)]
+        nerrs = [segment_errors(r, s, geometry, scheme, mount) for r, s in zip(runs, nsegs)]
         if fit_noise_params:
             e_all = np.concatenate([e[m] for e, m in zip(nerrs, nmasks)])
             b_all = np.concatenate([b[m] for b, m in zip(nbases, nmasks)])
@@ -711,7 +761,7 @@ def calibrate(runs: Sequence[CalibrationRun], settings: Settings, *, segment_len
                 break
             continue
         new_n = [_nees(e, _combine(b, theta)) <= gate for e, b in zip(nerrs, nbases)]
-        gerrs = [segment_errors(r, s, geometry, scheme) for r, s in zip(runs, segs)]
+        gerrs = [segment_errors(r, s, geometry, scheme, mount) for r, s in zip(runs, segs)]
         gbases = [segment_covariance_basis(r, s, geometry, scheme, model) for r, s in zip(runs, segs)]
         new_g = [_nees(e, _combine(b, theta)) <= gate for e, b in zip(gerrs, gbases)]
         changed = any(np.any(x != y) for x, y in zip(new_n + new_g, nmasks + masks))
@@ -722,6 +772,16 @@ def calibrate(runs: Sequence[CalibrationRun], settings: Settings, *, segment_len
     exc = excitation(runs, segs, sysfit.condition if sysfit is not None else math.nan)
     if fit_geometry and not exc.ok:
         raise ExcitationError(exc.message())
+    if sysfit is not None and fit_truth_offset:
+        notes.append(_mount_text(sysfit.mount, sysfit.mount_std_error, "was fitted and accounted for"))
+    elif sysfit is not None:
+        covs = [_combine(segment_covariance_basis(r, s, geometry, scheme, model), theta) for r, s in zip(runs, segs)]
+        probe = fit_systematic(runs, segs, geometry, scheme, covs, masks, fit_mount=True)
+        off, se = probe.mount, probe.mount_std_error
+        if (math.hypot(off[0], off[1]) > max(MOUNT_NOTE_M, 4.0 * float(np.hypot(se[0], se[1])))
+                or abs(off[2]) > max(MOUNT_NOTE_RAD, 4.0 * float(se[2]))):
+            notes.append(_mount_text(off, se, "looks offset from base_link and was NOT accounted for; the "
+                                     "fitted values are biased: calibrate again with --truth-offset"))
     if sysfit is not None:
         rel = sysfit.relative_std_error
         if rel[0] > LOOSE_RADIUS or rel[1] > LOOSE_RADIUS or rel[2] > LOOSE_TRACK:
@@ -739,9 +799,15 @@ def calibrate(runs: Sequence[CalibrationRun], settings: Settings, *, segment_len
             values["noise.model"] = model
         values.update(noise_values(model, theta))
     after = settings.with_values(values)
-    fb = [run_figures(r, settings, segment_length_m, s) for r, s in zip(runs, segs)]
-    fa = [run_figures(r, after, segment_length_m, s) for r, s in zip(runs, segs)]
-    hb = [run_figures(r, settings, segment_length_m) for r in holdout]
-    ha = [run_figures(r, after, segment_length_m) for r in holdout]
+    fb = [run_figures(r, settings, segment_length_m, s, mount) for r, s in zip(runs, segs)]
+    fa = [run_figures(r, after, segment_length_m, s, mount) for r, s in zip(runs, segs)]
+    hb = [run_figures(r, settings, segment_length_m, None, mount) for r in holdout]
+    ha = [run_figures(r, after, segment_length_m, None, mount) for r in holdout]
     return CalibrationResult(settings, after, values, sysfit, nfit, exc, int(sum(len(s) for s in segs)), n_out,
-                             notes, fb, fa, hb, ha, segment_length_m)
+                             notes, fb, fa, hb, ha, segment_length_m, mount)
+
+
+def _mount_text(mount: np.ndarray, se: np.ndarray, what: str) -> str:
+    return (f"the ground truth's body frame sits at x {mount[0]:+.4f} m, y {mount[1]:+.4f} m, yaw "
+            f"{math.degrees(mount[2]):+.3f} deg in base_link (+- {se[0]:.4f} m, {se[1]:.4f} m, "
+            f"{math.degrees(se[2]):.3f} deg); it {what}.")
