@@ -61,6 +61,7 @@ class Drive:
     gyro_noise_radps: float = 0.01
     gyro_lag_s: float = 0.0       # the gyro reading is this old at the sample stamp
     wheel_accel_mps2: float | None = None  # also limit each wheel's ground acceleration to this
+    counts_per_rev: int = COUNTS_PER_REV   # encoder resolution per wheel revolution
     rolling_k_m: float = 2e-6     # variance of the true rolling random walk per metre
     joints_per_side: int = 1
 
@@ -153,7 +154,7 @@ def generate(drive: Drive, seed: int, settings: Settings | None = None) -> Gener
     t_read = t_s + rng.normal(0.0, drive.jitter_s, len(t_s))
     t_read = np.clip(t_read, 0.0, total)
     pos = np.column_stack([np.interp(t_read, t, angle[:, c]) for c in range(2 * nj)])
-    step = 2 * math.pi / COUNTS_PER_REV
+    step = 2 * math.pi / drive.counts_per_rev
     pos = np.round(pos / step) * step
     stamp_ns = (1_700_000_000 * 10**9 + np.round(t_s * 1e9)).astype(np.int64)
     s = settings or quokka_settings(nj)

@@ -133,3 +133,18 @@ def test_targets_on_simulator_rounds_scored_by_the_analyser(seed):
     without = slip_heading_error(flag.stamp_ns, flag.theta_rad, truth, sim.slip_intervals_ns)
     with_gyro = slip_heading_error(gyro.stamp_ns, gyro.theta_rad, truth, sim.slip_intervals_ns)
     assert without["slip_heading_error_mean_deg"] >= 5.0 * with_gyro["slip_heading_error_mean_deg"]
+
+
+@pytest.mark.parametrize("seed", HARD_SEEDS[:2])
+@pytest.mark.parametrize("variant", [{"rate_hz": 20.0}, {"rate_hz": 100.0}, {"counts_per_rev": 512}])
+@pytest.mark.parametrize("case", ["sharp_turns", "traction_limit"])
+def test_hard_cases_hold_at_other_rates_and_coarse_encoders(case, variant, seed):
+    """The same hard cases at 20 Hz and 100 Hz joint states (windows of 2 and 10 samples) and with
+    a 512-count encoder on the wheel: the traction check's acceleration stays below mu g (its two
+    windows' centres are half of each window's length apart, whatever the rate)."""
+    drive = {"sharp_turns": sharp_turns_drive, "traction_limit": traction_limit_drive}[case](seed)
+    for name, value in variant.items():
+        setattr(drive, name, value)
+    gen = generate(drive, seed)
+    traj = run(gen.samples, gen.settings, gyro_z_radps=gen.gyro_z_radps)
+    assert not traj.slip.slip.any(), float(traj.slip.score.max())

@@ -39,7 +39,8 @@ Detectors (bits of ``detector``):
   the discrepancy: if the right wheel slips, the true speed is v_l + w_gyro b / 2; if the left,
   v_r - w_gyro b / 2; it is judged while the score is over 1 and kept while it is under.
 * ``DETECTOR_TRACTION`` (2), traction plausibility: a wheel's surface acceleration (difference of
-  window-mean speeds one window apart) beyond ``slip.traction_mu`` times standard gravity
+  the window-mean speeds at the sample and at its window's boundary sample, over the distance
+  of the two windows' centres) beyond ``slip.traction_mu`` times standard gravity
   cannot come from rolling contact (common practice: a wheel cannot accelerate the base faster
   than about mu g). Such a spike (no debounce: the acceleration is already a difference of
   window means) marks the onset of spinning (positive) or dragging
@@ -460,6 +461,7 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
     cum_joints = [cum(joints[:, c]) for c in range(nj)]
     clean = has_b & (last_restart < j)
     vb = np.empty(m)
+    span = np.empty(m)                                  # window lengths (1 where not clean)
     if has_gyro:
         last_miss = np.maximum.accumulate(np.where(avail, -1, idx))
         cum_gi, cum_c11 = cum(gi), cum(c11)
@@ -512,6 +514,7 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
         jj, bb, cl = j[blk], bnd[blk], clean[blk]
         t_eff = (stamp[blk] - stamp[bb]) * 1e-9
         sf = np.where(cl, t_eff, 1.0)
+        span[blk] = sf
         clean_b = has_b[blk] & clean[bb]
         # speeds per joint; unclean windows (safe = 1) hold window sums that are never used
         wj = [c[lo + 1:hi + 1] - c[jj] for c in cum_joints]
@@ -522,7 +525,9 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
         vb[blk] = 0.5 * (vl[blk] + vr[blk])
         # traction: a / (mu g) per joint, a = difference of window-mean speeds one window apart
         ok_a = cl & clean_b
-        za = [np.where(ok_a, (v[blk] - v[bb]) / sf / k.mu_g, 0.0) for v in vj]
+        # the two windows' centres lie half of each window's length apart
+        gap = 0.5 * (sf + span[bb])
+        za = [np.where(ok_a, (v[blk] - v[bb]) / gap / k.mu_g, 0.0) for v in vj]
         st_left[blk], st_right[blk] = side_extreme(za[:nl]), side_extreme(za[nl:])
         if zs_left is not None:
             zs_left[blk] = same_side([v[blk] for v in vj[:nl]], cl)
@@ -615,7 +620,7 @@ def _side_sum_one(w: list[float], lo: int, hi: int) -> float:
 class _Entry:
     """One sample in the window: stamp, running totals after it, and what the boundary needs."""
 
-    __slots__ = ("stamp", "totals", "joints", "clean", "vj", "vb")
+    __slots__ = ("stamp", "totals", "joints", "clean", "vj", "vb", "span")
 
     def __init__(self, stamp: int, totals: tuple, joints: list[float]) -> None:
         self.stamp = stamp
@@ -624,6 +629,7 @@ class _Entry:
         self.clean = False
         self.vj: list[float] = []
         self.vb = 0.0
+        self.span = 1.0
 
 
 class SlipMonitor:
@@ -745,12 +751,13 @@ class SlipMonitor:
         wl, wr = _side_sum_one(wj, 0, nl), _side_sum_one(wj, nl, nj)
         vl, vr = wl / safe, wr / safe
         vb = 0.5 * (vl + vr)
-        entry.clean, entry.vj, entry.vb = clean, vj, vb
+        entry.clean, entry.vj, entry.vb, entry.span = clean, vj, vb, safe
         clean_b = bnd is not None and bnd.clean
 
         # traction
         if clean and clean_b:
-            za = [(vj[i] - bnd.vj[i]) / safe / k.mu_g for i in range(nj)]
+            gap = 0.5 * (safe + bnd.span)
+            za = [(vj[i] - bnd.vj[i]) / gap / k.mu_g for i in range(nj)]
         else:
             za = [0.0] * nj
 
