@@ -742,15 +742,25 @@ def calibrate(runs: Sequence[CalibrationRun], settings: Settings, *, segment_len
     mount = np.zeros(3)
     sysfit: SystematicFit | None = None
     nfit: NoiseFit | None = None
+    def both(geom: np.ndarray, mnt: np.ndarray):
+        """Covariance bases and errors of the geometry and the noise segments in one pass per run."""
+        gb, ge, nb, ne = [], [], [], []
+        for r, sg, sn in zip(runs, segs, nsegs):
+            joint = Segments(np.concatenate([sg.start, sn.start]), np.concatenate([sg.end, sn.end]), sg.length_m)
+            bb = segment_covariance_basis(r, joint, geom, scheme, model)
+            ee = segment_errors(r, joint, geom, scheme, mnt)
+            k = len(sg)
+            gb.append(bb[:k]), nb.append(bb[k:]), ge.append(ee[:k]), ne.append(ee[k:])
+        return gb, ge, nb, ne
+
+    gbases = [segment_covariance_basis(r, s, geometry, scheme, model) for r, s in zip(runs, segs)]
     for it in range(max(1, iterations)):
         if fit_geometry:
-            covs = [_combine(segment_covariance_basis(r, s, geometry, scheme, model), theta)
-                    for r, s in zip(runs, segs)]
+            covs = [_combine(b, theta) for b in gbases]
             sysfit = fit_systematic(runs, segs, geometry, scheme, covs, masks, fit_mount=fit_truth_offset,
                                     start_mount=mount)
             geometry, mount = sysfit.geometry, sysfit.mount
-        nbases = [segment_covariance_basis(r, s, geometry, scheme, model) for r, s in zip(runs, nsegs)]
-        nerrs = [segment_errors(r, s, geometry, scheme, mount) for r, s in zip(runs, nsegs)]
+        gbases, gerrs, nbases, nerrs = both(geometry, mount)
         if fit_noise_params:
             e_all = np.concatenate([e[m] for e, m in zip(nerrs, nmasks)])
             b_all = np.concatenate([b[m] for b, m in zip(nbases, nmasks)])
@@ -761,8 +771,6 @@ def calibrate(runs: Sequence[CalibrationRun], settings: Settings, *, segment_len
                 break
             continue
         new_n = [_nees(e, _combine(b, theta)) <= gate for e, b in zip(nerrs, nbases)]
-        gerrs = [segment_errors(r, s, geometry, scheme, mount) for r, s in zip(runs, segs)]
-        gbases = [segment_covariance_basis(r, s, geometry, scheme, model) for r, s in zip(runs, segs)]
         new_g = [_nees(e, _combine(b, theta)) <= gate for e, b in zip(gerrs, gbases)]
         changed = any(np.any(x != y) for x, y in zip(new_n + new_g, nmasks + masks))
         nmasks, masks = new_n, new_g
@@ -775,7 +783,7 @@ def calibrate(runs: Sequence[CalibrationRun], settings: Settings, *, segment_len
     if sysfit is not None and fit_truth_offset:
         notes.append(_mount_text(sysfit.mount, sysfit.mount_std_error, "was fitted and accounted for"))
     elif sysfit is not None:
-        covs = [_combine(segment_covariance_basis(r, s, geometry, scheme, model), theta) for r, s in zip(runs, segs)]
+        covs = [_combine(b, theta) for b in gbases]
         probe = fit_systematic(runs, segs, geometry, scheme, covs, masks, fit_mount=True)
         off, se = probe.mount, probe.mount_std_error
         if (math.hypot(off[0], off[1]) > max(MOUNT_NOTE_M, 4.0 * float(np.hypot(se[0], se[1])))
