@@ -153,6 +153,9 @@ def main() -> int:
     parser.add_argument("--tuning", action="store_true", help="use the seeds the defaults were chosen on")
     args = parser.parse_args()
     seeds = TUNING_SEEDS if args.tuning else HELD_OUT_SEEDS
+    print("speed, measured first in a fresh process:")
+    speed()
+    print()
     print(f"seeds {', '.join(map(str, seeds))} ({'tuning' if args.tuning else 'held out'}), default settings, "
           "Quokka nominal geometry, 90 s rounds with 5 slip events each\n")
     family("with IMU (gyro, traction)", lambda sd: random_drive(sd), seeds)
@@ -172,8 +175,6 @@ def main() -> int:
     hard("hard case: starts and stops at 0.9 mu g", traction_limit_drive, hs)
     hard("hard case: noisy biased gyro (standstill first)", lambda sd: noisy_gyro_drive(sd, True), hs)
     hard("hard case: noisy biased gyro (no standstill)", lambda sd: noisy_gyro_drive(sd, False), hs)
-    print()
-    speed()
     return 0
 
 
