@@ -90,6 +90,7 @@ __all__ = [
     "STANDARD_GRAVITY_MPS2",
     "BIAS_MIN_SAMPLES",
     "LONG_SHORT_SCORE",
+    "MAX_GYRO_RADPS",
 ]
 
 DETECTOR_GYRO = 1        # gyro z rate disagrees with the wheels' yaw rate (chi-square gate)
@@ -99,6 +100,7 @@ DETECTOR_NAMES = {DETECTOR_GYRO: "gyro", DETECTOR_TRACTION: "traction", DETECTOR
 
 STANDARD_GRAVITY_MPS2 = 9.80665  # standard acceleration of gravity (3rd CGPM, 1901)
 BIAS_MIN_SAMPLES = 10            # standing-still samples needed before the gyro bias estimate is used
+MAX_GYRO_RADPS = 100.0           # z rates beyond this are not readings (MEMS full scale is about 35 rad/s)
 _BLOCK = 32768                   # samples per block of the batch window work
 LONG_SHORT_SCORE = 0.25          # the long window counts while the short one's score is at least this
 
@@ -402,7 +404,8 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
     """Run the slip detectors over a whole run (one entry per accepted sample), vectorised.
 
     ``gyro_z_radps`` (M,) is the IMU z rate (rad/s, base frame, REP 103) held at each accepted
-    sample, NaN where none is available, or None for no IMU. See the module docstring for the
+    sample, NaN where none is available, or None for no IMU (readings beyond ``MAX_GYRO_RADPS``
+    count as none). See the module docstring for the
     detectors, their thresholds and the responses.
     """
     k = _Constants(settings)
@@ -426,7 +429,8 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
     has_gyro = gyro_z_radps is not None
     if has_gyro:
         g = np.asarray(gyro_z_radps, dtype=np.float64)
-        avail = np.isfinite(g)
+        with np.errstate(invalid="ignore"):
+            avail = np.abs(g) <= MAX_GYRO_RADPS              # False for NaN and inf too
         g = np.where(avail, g, 0.0)
         still = avail & ~restart & (np.abs(dl) <= k.still * dt) & (np.abs(dr) <= k.still * dt)
         # bias after the c-th standstill sample: mean of the last min(c, N) of them; held between
@@ -704,7 +708,7 @@ class SlipMonitor:
             g = float(gyro_z_radps) if gyro_z_radps is not None else math.nan
         except (TypeError, ValueError):
             g = math.nan
-        avail = math.isfinite(g)
+        avail = abs(g) <= MAX_GYRO_RADPS                     # False for NaN and inf too
         if not avail:
             g = 0.0
         if avail and not restart and abs(dl) <= k.still * dt and abs(dr) <= k.still * dt:
