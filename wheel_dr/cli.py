@@ -329,6 +329,14 @@ def build_parser(command: str | None = None) -> argparse.ArgumentParser:
     return parser
 
 
+def _rosbags_errors() -> tuple[type[BaseException], ...]:
+    from rosbags.highlevel import AnyReaderError
+    from rosbags.rosbag1 import ReaderError as Reader1Error, WriterError as Writer1Error
+    from rosbags.rosbag2 import ReaderError as Reader2Error, WriterError as Writer2Error
+    from rosbags.serde import SerdeError
+    return AnyReaderError, Reader1Error, Writer1Error, Reader2Error, Writer2Error, SerdeError
+
+
 def main(argv: list[str] | None = None) -> int:
     """Entry point of ``wheel-dr``; returns the exit status."""
     tokens = sys.argv[1:] if argv is None else list(argv)
@@ -342,6 +350,10 @@ def main(argv: list[str] | None = None) -> int:
         return 2
     except BrokenPipeError:
         return 141
+    except _rosbags_errors() as exc:
+        print(f"wheel-dr {args.command}: error: the bag library reports '{str(exc).strip() or type(exc).__name__}'; "
+              "check that the bag is complete and the output path is new.", file=sys.stderr)
+        return 2
     except KeyboardInterrupt:
         print(f"wheel-dr {args.command}: interrupted; outputs not completed were not written.", file=sys.stderr)
         return 130

@@ -18,16 +18,18 @@ SIG_DIGITS = 10
 _ZERO = ord("0")
 
 
-_TABLE = np.array([list(f"{i:04d}".encode()) for i in range(10000)], dtype=np.uint8)   # 4 ASCII digits each
+# "0000".."9999" as little-endian 4-byte words: one gather per group of four digits
+_TABLE32 = np.frombuffer(b"".join(f"{i:04d}".encode() for i in range(10000)), dtype="<u4")
 
 
 def _digits(values: np.ndarray, count: int) -> np.ndarray:
     """(N, count) ASCII digits of non-negative int64 ``values`` (most significant first, zero-padded)."""
     groups = -(-count // 4)
     v = np.asarray(values, dtype=np.int64)
-    parts = [_TABLE[(v // 10 ** (4 * (groups - 1 - k))) % 10000] for k in range(groups)]
-    out = np.hstack(parts) if groups > 1 else parts[0]
-    return np.ascontiguousarray(out[:, 4 * groups - count:])
+    words = np.empty((len(v), groups), dtype="<u4")
+    for k in range(groups):
+        words[:, k] = _TABLE32[(v // 10 ** (4 * (groups - 1 - k))) % 10000]
+    return words.view(np.uint8).reshape(len(v), 4 * groups)[:, 4 * groups - count:]
 
 
 def _scaled(a: np.ndarray, power: np.ndarray) -> np.ndarray:
@@ -98,11 +100,12 @@ def flag_field(flags: np.ndarray) -> np.ndarray:
 def join_fields(fields: Sequence[np.ndarray], sep: str = ",") -> bytes:
     """Rows of the fields joined by ``sep``, each row ending in a newline."""
     n = fields[0].shape[0]
-    parts = []
-    s = np.full((n, 1), ord(sep), dtype=np.uint8)
+    width = sum(f.shape[1] for f in fields) + len(fields)
+    out = np.empty((n, width), dtype=np.uint8)
+    col = 0
     for i, f in enumerate(fields):
-        if i:
-            parts.append(s)
-        parts.append(f)
-    parts.append(np.full((n, 1), ord("\n"), dtype=np.uint8))
-    return np.ascontiguousarray(np.hstack(parts)).tobytes()
+        out[:, col:col + f.shape[1]] = f
+        col += f.shape[1]
+        out[:, col] = ord(sep) if i + 1 < len(fields) else ord("\n")
+        col += 1
+    return out.tobytes()
