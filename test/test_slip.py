@@ -37,6 +37,36 @@ def test_default_gyro_gate_is_the_chi_square_quantile():
     assert Settings().slip.gyro_gate == pytest.approx(chi2.ppf(0.99, 1), abs=0.005)
 
 
+def test_gyro_gate_false_alarm_rate_is_the_chi_square_tail_when_the_noise_model_is_right():
+    """Wheels with exactly the configured per-wheel noise (variance k |ds| per step), true geometry,
+    gyro white noise as configured, no tolerances: the short-window score exceeds 1 on the share of
+    samples that chi-square(1) puts above the gate, 1 - cdf(6.63) = 1 % (Bar-Shalom, Li &
+    Kirubarajan 2001, sec. 5.4; scipy.stats.chi2). Windows overlap, so the band is loose."""
+    from slip_scenarios import TRUE_LEFT_RADIUS_M, TRUE_RIGHT_RADIUS_M, TRUE_TRACK_M
+
+    k = 5e-4
+    settings = quokka_settings(**{
+        "wheels.left_radius": TRUE_LEFT_RADIUS_M, "wheels.right_radius": TRUE_RIGHT_RADIUS_M,
+        "wheels.track_width": TRUE_TRACK_M, "noise.k_left": k, "noise.k_right": k,
+        "slip.gyro_rate_tolerance_radps": 0.0, "slip.gyro_scale_tolerance": 0.0, "slip.long_window_s": 0.0,
+        "slip.traction_mu": 5.0})
+    over = []
+    for seed in range(3):
+        rng = np.random.default_rng(seed)
+        segments = [(2.0, 0.0, 0.0)] + [(float(rng.uniform(3, 6)), float(rng.uniform(0.3, 0.8)),
+                                         float(rng.choice([0.0, 0.3, -0.3]))) for _ in range(30)]
+        drive = Drive(segments, gyro_bias_radps=0.0, gyro_noise_radps=0.01, rolling_k_m=k, jitter_s=0.0,
+                      accel_mps2=0.3, yaw_accel_radps2=0.3)
+        gen = generate(drive, seed, settings)
+        traj = run(gen.samples, settings, gyro_z_radps=gen.gyro_z_radps)
+        moving = gen.t_s[traj.index] > 3.0
+        over.append(traj.slip.score[moving] > 1.0)
+    share = np.concatenate(over).mean()
+    expected = 1.0 - chi2.cdf(settings.slip.gyro_gate, 1)
+    assert expected == pytest.approx(0.01, abs=1e-4)
+    assert 0.6 * expected < share < 1.6 * expected, share
+
+
 def _reference_latch(score, stamp_ns, set_ns, clear_ns, fraction):
     """Textbook debounced set/reset latch with hysteresis, one sample at a time (common practice)."""
     state, set_since, clear_since, out = False, None, None, []
