@@ -177,6 +177,7 @@ def _cmd_compare(args: argparse.Namespace, title: str = "wheel_dr comparison", n
     from .report import ranking_text, write_report, write_summary
     sfs = [load_settings_file(p) for p in (args.params or [None])]
     out = _out_dir(args.out, "out/compare")
+    t0 = time.perf_counter()
     res = compare_bags(args.bags, sfs, truth=args.truth, joint_topic=args.joint_topic, imu_topic=args.imu_topic,
                        use_imu=not args.no_imu, jobs=args.jobs, progress=not args.quiet)
     for label, info in res.bag_info.items():
@@ -186,10 +187,13 @@ def _cmd_compare(args: argparse.Namespace, title: str = "wheel_dr comparison", n
             _say(f"  {note}")
     meta = {"wheel_dr": __version__, "bags": list(res.bag_info), "settings": [sf.path or "defaults" for sf in sfs],
             "truth": args.truth or "auto", "bag_info": res.bag_info}
+    t1 = time.perf_counter()
     csv_path, json_path = write_summary(out, res.evaluations, meta=meta)
     page = write_report(out, res.evaluations, title=title, notes=list(notes) + [SAFETY_NOTE])
+    t2 = time.perf_counter()
     _say(ranking_text(res.evaluations))
     _say(f"wrote {csv_path}, {json_path}")
+    _say(f"time: decoding and {len(res.evaluations)} runs with metrics {t1 - t0:.1f} s, tables and report {t2 - t1:.1f} s")
     _say(f"report: {page.resolve()}")
     return 0
 
