@@ -21,13 +21,15 @@ from test_calibration import varied_route  # noqa: E402  (the tests' ten-minute 
 
 from wheel_dr.analysis.calibration import calibrate, geometry_of, noise_vector, prepare_run  # noqa: E402
 from wheel_dr.core import Settings  # noqa: E402
-from wheel_dr.sim import Scenario, simulate  # noqa: E402
+from wheel_dr.sim import Scenario, simulate, varied_drive_scenario  # noqa: E402
 
 
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--drives", type=int, default=6)
     ap.add_argument("--k", type=float, default=3e-6, help="k_left (k_right is 1.5 times it), metres")
+    ap.add_argument("--routes", choices=("tests", "sim"), default="tests",
+                    help="the tests' varied routes, or wheel_dr.sim.varied_drive_scenario (route seeds 7, 8, ...)")
     args = ap.parse_args()
     k = np.array([args.k, 1.5 * args.k])
     print(f"k_left {k[0]:.2g} m, k_right {k[1]:.2g} m; errors in % of the truth; NEES of the held-out drive")
@@ -35,9 +37,13 @@ def main() -> int:
     worst = np.zeros(5)
     times = []
     for d in range(args.drives):
-        sc = Scenario(name="bench", segments=varied_route(d), k_left_m=k[0], k_right_m=k[1])
-        held = Scenario(name="held", segments=varied_route(d + 100), k_left_m=k[0], k_right_m=k[1])
-        train, hold = simulate(sc, seed=d + 1), simulate(held, seed=d + 2)
+        if args.routes == "sim":
+            sc = varied_drive_scenario(600.0, route_seed=7 + d, k_left_m=k[0], k_right_m=k[1])
+            held = varied_drive_scenario(600.0, route_seed=107 + d, k_left_m=k[0], k_right_m=k[1])
+        else:
+            sc = Scenario(name="bench", segments=varied_route(d), k_left_m=k[0], k_right_m=k[1])
+            held = Scenario(name="held", segments=varied_route(d + 100), k_left_m=k[0], k_right_m=k[1])
+        train, hold = simulate(sc, seed=2 * d + 1), simulate(held, seed=2 * d + 2)
         start = Settings.from_flat({**sc.nominal_params, "noise.k_left": 5e-4, "noise.k_right": 5e-4})
         t0 = time.perf_counter()
         run = prepare_run(train.joint_samples(), train.truth_path(), start, "train")
