@@ -12,15 +12,20 @@ Chiaverini & Fusco, IEEE T-RO 21(5), 2005, and Censi et al., IEEE T-RO 29(2), 20
    the relative motion (dx, dy in the frame of the segment's start pose, dyaw) of odometry is
    compared with that of the truth, each in its own frame: the comparison does not depend on the
    frame the truth is expressed in (a map frame offset from odom changes nothing).
-3. ``scipy.optimize.least_squares`` fits the three relative corrections on those errors, each
+3. ``scipy.optimize.least_squares`` fits the three ratios to the start values on those errors, each
    segment's error whitened by its propagated covariance (generalised least squares). Standard
    errors are s^2 (J^T J)^-1 from the Jacobian at the solution and the residual variance s^2.
 4. The noise parameters (per_wheel: k_left, k_right; motion_model: alpha1..alpha4) are fitted by
    maximum likelihood of the segment errors, e ~ N(0, P(theta)), where P is the covariance
-   propagated over the segment from zero at its start (``wheel_dr.core.noise.propagate_covariance``).
-   Q is linear in the noise parameters for both models, so P(theta) = sum_a theta_a P_a with basis
-   covariances P_a propagated once. Steps 3 and 4 alternate until stable; segments whose NEES is
-   beyond the chi-square(3) 99.9 % quantile (slip, truth glitches) are set aside.
+   propagated over the segment from zero at its start (the closed form of
+   ``wheel_dr.core.noise.propagate_covariance``, evaluated for all segments at once by
+   ``segment_propagate``). Q is linear in the noise parameters for both models, so
+   P(theta) = sum_a theta_a P_a with basis covariances P_a propagated once. Steps 3 and 4 alternate
+   until stable; segments whose NEES is beyond the chi-square(3) 99.9 % quantile (slip, truth
+   glitches) are set aside. The noise uses shorter segments than the geometry (more independent
+   samples); truth noise is not modelled, so it must be small against the wheel noise over them.
+5. Optionally (``fit_truth_offset``) the pose of the truth's body frame in base_link is fitted
+   too (three more parameters): B_rel = M (+) T_rel (+) M^-1 for each segment.
 
 Independence: the relative motion over a segment depends only on the wheel increments inside it,
 so errors of non-overlapping segments are independent and their NEES values are chi-square(3)
@@ -39,7 +44,7 @@ from scipy import optimize, stats
 
 from ..core.errors import InputError
 from ..core.motion import body_increment, integrate, wrap_angle
-from ..core.noise import increment_noise, propagate_covariance
+from ..core.noise import increment_noise
 from ..core.settings import Settings
 from ..core.wheels import JointSamples, wheel_travel
 from .path import PlanarPath
