@@ -436,6 +436,53 @@ def _mcap_fast(reader: AnyReader, topics: set[str]):
     return out
 
 
+def _sqlite_fast(reader: AnyReader, topics: set[str]):
+    """Raw messages of ``topics`` from rosbag2 sqlite3 storage with one query per topic, or None.
+
+    Same result as rosbags' iterator (the messages table of the rosbag2 sqlite3 layout, ordered by
+    time), read read-only with Python's own sqlite3 module, without per-message generator layers. Returns {topic: (log_time_ns (N,), [bytes])}.
+    """
+    try:
+        from rosbags.rosbag2 import storage_sqlite3
+        directory = reader.readers[0].storage
+        storages = directory.storages
+        if directory.metadata.compression_mode == "message":
+            return None
+        if not storages or not all(isinstance(st, storage_sqlite3.Sqlite3Reader) and Path(st.path).is_file()
+                                   for st in storages):
+            return None
+    except (AttributeError, IndexError, ImportError):
+        return None
+    import sqlite3
+    parts: dict[str, list] = {t: [] for t in topics}
+    for st in storages:
+        db = sqlite3.connect(f"file:{Path(st.path).resolve()}?mode=ro", uri=True)
+        try:
+            ids = db.execute("SELECT id, name FROM topics").fetchall()
+            for topic_id, name in ids:
+                if name not in topics:
+                    continue
+                rows = db.execute("SELECT timestamp, data FROM messages WHERE topic_id = ? ORDER BY timestamp",
+                                  (topic_id,)).fetchall()
+                if rows:
+                    times, raws = zip(*rows)
+                    parts[name].append((np.asarray(times, dtype=np.int64), list(raws)))
+        finally:
+            db.close()
+    out = {}
+    for topic, items in parts.items():
+        if not items:
+            out[topic] = (np.zeros(0, dtype=np.int64), [])
+        elif len(items) == 1:
+            out[topic] = items[0]
+        else:
+            times = np.concatenate([it[0] for it in items])
+            raws = [r for it in items for r in it[1]]
+            order = np.argsort(times, kind="stable")
+            out[topic] = (times[order], [raws[k] for k in order.tolist()])
+    return out
+
+
 def read_run(path: str | os.PathLike, joint_topic: str | None = None, imu_topic: str | None = None,
              truth: str | TruthSpec | None = None, *, need_truth: bool = False, use_imu: bool = True,
              slip_topic: str | None = None) -> RunData:
@@ -490,7 +537,12 @@ def read_run(path: str | os.PathLike, joint_topic: str | None = None, imu_topic:
         buckets: dict[str, list] = {t: [] for t in wanted}
         record: list[int] = []
         try:
-            fast = _mcap_fast(reader, set(wanted) - set(tf_topics)) if not ros1 else None
+            fast = None
+            if not ros1:
+                plain = set(wanted) - set(tf_topics)
+                fast = _mcap_fast(reader, plain)
+                if fast is None:
+                    fast = _sqlite_fast(reader, plain)
             if fast is not None:
                 for t, (times, raws) in fast.items():
                     buckets[t] = raws
