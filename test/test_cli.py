@@ -97,7 +97,8 @@ def test_demo_writes_the_report(tmp_path, capsys):
     assert f"report: {page.resolve()}" in text
     doc = json.loads((tmp_path / "demo" / "summary.json").read_text())
     assert [r["settings"] for r in doc["rows"]] == ["demo_nominal", "demo_corrected", "demo_motion_model"]
-    assert main(["demo", "--out", str(tmp_path / "demo"), "--quiet"]) == 0      # cached the second time
+    assert "<h2>Calibration" in page.read_text()
+    assert main(["demo", "--out", str(tmp_path / "demo"), "--quiet", "--no-calibration"]) == 0   # cached now
     assert "using the cached demo drive" in capsys.readouterr().out
 
 

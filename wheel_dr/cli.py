@@ -172,7 +172,8 @@ def _cmd_replay(args: argparse.Namespace) -> int:
 
 
 # -- compare -------------------------------------------------------------------------------------
-def _cmd_compare(args: argparse.Namespace, title: str = "wheel_dr comparison", notes: Sequence[str] = ()) -> int:
+def _cmd_compare(args: argparse.Namespace, title: str = "wheel_dr comparison", notes: Sequence[str] = (),
+                 extra_sections: Sequence = ()) -> int:
     from .analysis.runs import compare_bags, load_settings_file
     from .report import ranking_text, write_report, write_summary
     sfs = [load_settings_file(p) for p in (args.params or [None])]
@@ -189,7 +190,8 @@ def _cmd_compare(args: argparse.Namespace, title: str = "wheel_dr comparison", n
             "truth": args.truth or "auto", "bag_info": res.bag_info}
     t1 = time.perf_counter()
     csv_path, json_path = write_summary(out, res.evaluations, meta=meta)
-    page = write_report(out, res.evaluations, title=title, notes=list(notes) + [SAFETY_NOTE])
+    page = write_report(out, res.evaluations, title=title, notes=list(notes) + [SAFETY_NOTE],
+                        extra_sections=list(extra_sections))
     t2 = time.perf_counter()
     _say(ranking_text(res.evaluations))
     _say(f"wrote {csv_path}, {json_path}")
@@ -225,6 +227,13 @@ def _cmd_demo(args: argparse.Namespace) -> int:
         write_bag(simulate(demo_scenario(), DEMO_SEED), bag, "mcap", overwrite=True)
     else:
         _say(f"using the cached demo drive {bag}")
+    sections = []
+    if importlib.util.find_spec("wheel_dr.calibrate_cmd") is not None and not args.no_calibration:
+        from . import calibrate_cmd
+        if hasattr(calibrate_cmd, "demo_calibration"):
+            _say("calibrating the demo cart from a simulated ten-minute drive (wheel-dr calibrate)")
+            _, section = calibrate_cmd.demo_calibration()
+            sections.append(section)
     ns = argparse.Namespace(bags=[str(bag)], params=[str(cfg / c) for c in DEMO_CONFIGS], truth="/ground_truth",
                             joint_topic=None, imu_topic=None, no_imu=False, jobs=args.jobs, quiet=args.quiet,
                             out=str(out))
@@ -232,7 +241,8 @@ def _cmd_demo(args: argparse.Namespace) -> int:
                         notes=["Demo data: the 'Quokka' cart and the 'Ferncliff Seed Bank' are invented; the numbers "
                                "are demo-only.",
                                "Settings: nominal geometry (design values), corrected geometry (what calibration "
-                               "finds), and the odometry motion model instead of the per-wheel noise model."])
+                               "finds), and the odometry motion model instead of the per-wheel noise model."],
+                        extra_sections=sections)
 
 
 # -- parser --------------------------------------------------------------------------------------
@@ -321,10 +331,13 @@ def build_parser(command: str | None = None) -> argparse.ArgumentParser:
                        description="Synthesise the demo scenario (the invented 'Quokka' cart on its night round "
                        "through the 'Ferncliff Seed Bank'; cached under DIR/cache), compare "
                        "config/demo_nominal.yaml, config/demo_corrected.yaml and config/demo_motion_model.yaml "
-                       "against its ground truth, write the report and print where the page is.")
+                       "against its ground truth, add a calibration section (the demo cart calibrated from a simulated "
+                       "ten-minute drive), write the report and print where the page is.")
     p.add_argument("--out", metavar="DIR", help="output directory (default out/demo)")
     p.add_argument("--jobs", type=int, default=default_jobs(), help="worker processes (default: CPUs available)")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.add_argument("--no-calibration", action="store_true",
+                   help="leave out the calibration section (a simulated calibration drive fitted by wheel-dr calibrate)")
     p.set_defaults(func=_cmd_demo)
 
     if command not in OWN_COMMANDS and importlib.util.find_spec("wheel_dr.calibrate_cmd") is not None:
