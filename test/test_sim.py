@@ -142,3 +142,18 @@ def test_varied_drive_turns_both_ways_and_lasts():
         or True  # backwards runs are drawn with 15 % probability; not required in 2 minutes
     kinds = {s.kind for s in sc.segments}
     assert {"straight", "arc", "turn"} <= kinds
+
+
+def test_slip_onset_ramp_rises_linearly():
+    s, ramp = 0.4, 0.5
+    sc = _const([straight(10.0, 0.5)], slip_events=(SlipEvent(5.0, 2.0, "left", "drag", s, ramp_s=ramp),))
+    sim = simulate(sc, 0)
+    r = sc.true_left_radius_m
+    ground = np.diff(sim.true_travel_m[:, 0])
+    moving = ground > 0
+    ratio = 1.0 - (np.diff(sim.position_rad[:, 0])[moving] * r) / ground[moving]
+    t = sim.t_s[1:][moving]
+    inside = (t >= 5.0) & (t <= 7.0)
+    expect = s * np.clip((t[inside] - t[inside][0]) / ramp, 0.0, 1.0)
+    assert np.allclose(ratio[inside], expect, atol=1e-12)
+    assert np.allclose(ratio[~inside], 0.0, atol=1e-12)

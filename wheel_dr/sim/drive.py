@@ -14,8 +14,9 @@ Model (kinematic, REP 103 frames, SI units):
   variance k_side |travel| (the core's per_wheel model); joint angle = cumulative measured travel /
   true radius (rad). Joint velocity = backward difference of the reported angle / dt (0 first).
 * Slip (encoders misreport, the base still follows the route): factor 1 / (1 - s) for 'spin' and
-  (1 - s) for 'drag', s the slip ratio; applied to a step when the event is active at the step's
-  end stamp and that wheel's ground speed exceeds ``MOVING_MPS`` (only then is it labelled).
+  (1 - s) for 'drag', s the slip ratio (optionally ramped up from 0 after each onset); applied to a
+  step when the event is active at the step's end stamp, s > 0 there and that wheel's ground speed
+  exceeds ``MOVING_MPS`` (only then is it labelled).
 * Gyro z = true yaw rate at the stamp + bias + white noise (sd per sample).
 
 Random streams (wheel noise left, right, gyro) are independent children of one SeedSequence(seed),
@@ -251,18 +252,29 @@ def simulate(scenario: Scenario, seed: int = 0) -> SimResult:
     factor = np.ones((n, 2))
     masks: dict[tuple[int, str], np.ndarray] = {}
 
-    def apply(side_cols: tuple[int, ...], active: np.ndarray, kind: str, ratio: float) -> None:
-        f = 1.0 / (1.0 - ratio) if kind == "spin" else (1.0 - ratio)
+    def apply(side_cols: tuple[int, ...], ratio: np.ndarray, kind: str) -> None:
+        """Slip ``ratio`` (N,) per sample (0 where inactive) on the given wheel columns."""
+        safe = np.clip(ratio, 0.0, 0.95)
+        f = 1.0 / (1.0 - safe) if kind == "spin" else (1.0 - safe)
         for c in side_cols:
-            hit = active & moving[:, c]
-            factor[hit, c] *= f
+            hit = (ratio > 0) & moving[:, c]
+            factor[hit, c] *= f[hit]
             key = (c, kind)
             masks[key] = masks.get(key, np.zeros(n, dtype=bool)) | hit
+
+    def ramped(active: np.ndarray, ratio: float, ramp_s: float) -> np.ndarray:
+        """Ratio per sample: ``ratio`` where active, rising linearly over ``ramp_s`` from each onset."""
+        out = np.where(active, ratio, 0.0)
+        if ramp_s > 0:
+            for first, last in _runs(active):
+                seg = slice(first, last + 1)
+                out[seg] *= np.clip((t[seg] - t[first]) / ramp_s, 0.0, 1.0)
+        return out
 
     for ev in sc.slip_events:
         active = (t >= ev.start_s) & (t <= ev.start_s + ev.duration_s)
         cols = {"left": (0,), "right": (1,), "both": (0, 1)}[ev.side]
-        apply(cols, active, ev.kind, ev.slip_ratio)
+        apply(cols, ramped(active, ev.slip_ratio, ev.ramp_s), ev.kind)
     if sc.floor_patches:
         half_b = 0.5 * b
         cx = np.stack([x - np.sin(th) * half_b, x + np.sin(th) * half_b], axis=1)   # left, right contact
@@ -270,8 +282,8 @@ def simulate(scenario: Scenario, seed: int = 0) -> SimResult:
         for patch in sc.floor_patches:
             inside = ((cx >= patch.x_min_m) & (cx <= patch.x_max_m) & (cy >= patch.y_min_m)
                       & (cy <= patch.y_max_m))
-            apply((0,), inside[:, 0], patch.kind, patch.slip_ratio)
-            apply((1,), inside[:, 1], patch.kind, patch.slip_ratio)
+            apply((0,), ramped(inside[:, 0], patch.slip_ratio, patch.ramp_s), patch.kind)
+            apply((1,), ramped(inside[:, 1], patch.slip_ratio, patch.ramp_s), patch.kind)
     if n:
         factor[0] = 1.0
         for key in masks:

@@ -123,7 +123,8 @@ class SlipEvent:
     ``kind`` 'spin': the wheel turns faster than the ground moves under it (encoder over-reads);
     'drag': slower (encoder under-reads). ``slip_ratio`` s in [0, 0.95] uses the common-practice
     longitudinal slip ratio s = |r w - v| / max(|r w|, |v|): spin r w = v / (1 - s),
-    drag r w = v (1 - s).
+    drag r w = v (1 - s). ``ramp_s`` > 0 makes the ratio rise linearly from 0 over that long
+    after the start (a wheel spinning up); 0 steps it at once.
     """
 
     start_s: float
@@ -131,16 +132,20 @@ class SlipEvent:
     side: str = "left"
     kind: str = "spin"
     slip_ratio: float = 0.3
+    ramp_s: float = 0.0
 
     def __post_init__(self) -> None:
         _check_slip(self.side, self.kind, self.slip_ratio)
+        if self.ramp_s < 0:
+            raise ValueError("ramp_s must be >= 0.")
 
 
 @dataclass(frozen=True)
 class FloorPatch:
     """Slip placed by a floor patch: an axis-aligned rectangle in the odom frame (metres).
 
-    A wheel slips (``kind``, ``slip_ratio`` as in ``SlipEvent``) while its contact point is inside.
+    A wheel slips (``kind``, ``slip_ratio`` as in ``SlipEvent``) while its contact point is inside;
+    ``ramp_s`` > 0 makes the ratio rise linearly over that long after the wheel enters.
     """
 
     x_min_m: float
@@ -150,9 +155,12 @@ class FloorPatch:
     kind: str = "spin"
     slip_ratio: float = 0.3
     name: str = "patch"
+    ramp_s: float = 0.0
 
     def __post_init__(self) -> None:
         _check_slip("both", self.kind, self.slip_ratio)
+        if self.ramp_s < 0:
+            raise ValueError("ramp_s must be >= 0.")
         if not (self.x_max_m > self.x_min_m and self.y_max_m > self.y_min_m):
             raise ValueError("a floor patch needs x_max_m > x_min_m and y_max_m > y_min_m.")
 
