@@ -209,3 +209,25 @@ def test_urdf_geometry_from_a_urdf_written_here():
         geometry_from_urdf(urdf, ["missing"], ["jr"])
     with pytest.raises(InputError, match="not valid URDF"):
         geometry_from_urdf("<robot", ["jl"], ["jr"])
+
+
+@pytest.mark.parametrize("mode, plugin", [("FILE", "SQLITE3"), ("MESSAGE", "MCAP"), ("STORAGE", "MCAP")])
+def test_compressed_bags_read_the_same(bags, tmp_path, mode, plugin):
+    """zstd compression of the whole file, of each message, or of MCAP chunks (rosbag2 compression modes,
+    written by rosbags) gives the same run as the uncompressed bag."""
+    from rosbags.rosbag2.enums import CompressionFormat, CompressionMode
+    src = Path(bags["mcap"])
+    dst = tmp_path / f"comp_{mode}"
+    w = Writer2(dst, version=9, storage_plugin=getattr(StoragePlugin, plugin))
+    w.set_compression(getattr(CompressionMode, mode), CompressionFormat.ZSTD)
+    with AnyReader([src]) as reader, w:
+        conns = {c.id: w.add_connection(c.topic, c.msgtype, msgdef=c.msgdef.data, rihs01=c.digest,
+                                        offered_qos_profiles=c.ext.offered_qos_profiles) for c in reader.connections}
+        for c, t, raw in reader.messages():
+            w.write(conns[c.id], t, raw)
+    a, b = read_run(src), read_run(dst)
+    assert np.array_equal(a.samples.stamp_ns, b.samples.stamp_ns)
+    assert np.array_equal(a.samples.position, b.samples.position)
+    assert np.array_equal(a.gyro_z_radps, b.gyro_z_radps)
+    assert np.array_equal(a.truth.x_m, b.truth.x_m) and np.array_equal(a.slip_truth_ns, b.slip_truth_ns)
+    assert a.urdf == b.urdf
