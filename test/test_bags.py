@@ -231,3 +231,14 @@ def test_compressed_bags_read_the_same(bags, tmp_path, mode, plugin):
     assert np.array_equal(a.gyro_z_radps, b.gyro_z_radps)
     assert np.array_equal(a.truth.x_m, b.truth.x_m) and np.array_equal(a.slip_truth_ns, b.slip_truth_ns)
     assert a.urdf == b.urdf
+
+
+def test_skid_steer_bag_round_trip_and_urdf(tmp_path):
+    from wheel_dr.bags import write_bag
+    from wheel_dr.sim import Scenario, simulate, straight
+    sc = Scenario(name="skid", segments=(straight(2.0),), joints_per_side=2, rate_hz=20.0)
+    sim = simulate(sc, 0)
+    run = read_run(write_bag(sim, tmp_path / "skid"))
+    assert run.samples.names == sim.joint_names and np.array_equal(run.samples.position, sim.position_rad)
+    g = geometry_from_urdf(run.urdf, sc.left_joints, sc.right_joints)
+    assert g.track_width_m == pytest.approx(sc.nominal_track_m) and g.left_radius_m == sc.nominal_left_radius_m

@@ -157,3 +157,27 @@ def test_slip_onset_ramp_rises_linearly():
     expect = s * np.clip((t[inside] - t[inside][0]) / ramp, 0.0, 1.0)
     assert np.allclose(ratio[inside], expect, atol=1e-12)
     assert np.allclose(ratio[~inside], 0.0, atol=1e-12)
+
+
+def test_skid_steer_slips_one_joint_and_the_front_wheel_enters_a_patch_first():
+    """Two joints per side: a slip event on the rear-left joint leaves the front-left joint true; on a straight
+    run the front wheel reaches a floor patch wheelbase / speed earlier than the rear wheel."""
+    speed, wheelbase = 0.5, 0.3
+    sc = _const([straight(6.0, speed)], joints_per_side=2, wheelbase_m=wheelbase,
+                slip_events=(SlipEvent(2.0, 1.0, "left", "spin", 0.3, joint=1),),
+                floor_patches=(FloorPatch(4.0, 5.0, -0.5, -0.1, "drag", 0.2),))
+    sim = simulate(sc, 0)
+    assert sim.position_rad.shape == (len(sim), 4) and len(set(sim.joint_names)) == 4
+    r = np.array([sc.true_left_radius_m] * 2 + [sc.true_right_radius_m] * 2)
+    ratio = (np.diff(sim.position_rad, axis=0) * r) / np.diff(sim.true_travel_m, axis=0)[:, [0, 0, 1, 1]].clip(1e-12)
+    t = sim.t_s[1:]
+    event = (t > 2.02) & (t < 2.98)
+    assert np.allclose(ratio[event, 1], 1 / 0.7) and np.allclose(ratio[event, 0], 1.0)
+    by_joint = {j: (sim.slip_intervals_ns[i] - sim.stamp_ns[0]) * 1e-9 for i, j in enumerate(sim.slip_joint)
+                if sim.slip_kind[i] == "drag"}
+    front, rear = by_joint["quokka_front_right_wheel_joint"], by_joint["quokka_rear_right_wheel_joint"]
+    assert rear[0] - front[0] == pytest.approx(wheelbase / speed, abs=0.011)
+    clean = Scenario(name="t", segments=(straight(2.0), arc(1.0, 1.0)), joints_per_side=2)
+    clean_sim = simulate(clean, 0)
+    est = run(clean_sim.joint_samples(), Settings.from_flat(clean.true_params))   # both joints of a side averaged
+    assert np.hypot(est.x_m - clean_sim.true_x_m[est.index], est.y_m - clean_sim.true_y_m[est.index]).max() < 1e-9

@@ -89,8 +89,9 @@ def _messages(sim: SimResult, ts, ros1: bool, topics: Mapping[str, str], truth_s
     n = len(stamps)
     out = []
     js = ts.types["sensor_msgs/msg/JointState"]
+    nj = len(sim.joint_names)
     first = js(header=_header(ts, int(stamps[0]), "", ros1), name=list(sim.joint_names),
-               position=np.zeros(2), velocity=np.zeros(2), effort=np.zeros(0))
+               position=np.zeros(nj), velocity=np.zeros(nj), effort=np.zeros(0))
     rows = encode_joint_states(bytes(ser(first, "sensor_msgs/msg/JointState")), stamps, sim.position_rad,
                                sim.velocity_radps, ros1)
     out.append((topics["joint_states"], "sensor_msgs/msg/JointState", False, list(zip(stamps.tolist(), _rows(rows)))))
@@ -137,19 +138,21 @@ def _messages(sim: SimResult, ts, ros1: bool, topics: Mapping[str, str], truth_s
     if description:
         text = urdf if urdf is not None else quokka_urdf(
             sim.scenario.nominal_left_radius_m, sim.scenario.nominal_right_radius_m, sim.scenario.nominal_track_m,
-            sim.joint_names, base_frame)
+            sim.joint_names, base_frame, sim.scenario.wheelbase_m)
         msg = ts.types["std_msgs/msg/String"](data=text)
         out.append((topics["robot_description"], "std_msgs/msg/String", True,
                     [(int(stamps[0]), ser(msg, "std_msgs/msg/String"))]))
     if slip:
         g = ts.types
         msgs = []
-        for (start, end), side, kind in zip(sim.slip_intervals_ns.tolist(), sim.slip_side.tolist(),
-                                            sim.slip_kind.tolist()):
+        joints = (sim.slip_joint.tolist() if sim.slip_joint is not None
+                  else [sim.joint_names[0 if sd == "left" else -1] for sd in sim.slip_side.tolist()])
+        for (start, end), side, kind, joint in zip(sim.slip_intervals_ns.tolist(), sim.slip_side.tolist(),
+                                                   sim.slip_kind.tolist(), joints):
             kv = g["diagnostic_msgs/msg/KeyValue"]
             status = g["diagnostic_msgs/msg/DiagnosticStatus"](
                 level=1, name=SLIP_STATUS_NAME, message=f"{side} wheel {kind}",
-                hardware_id=sim.joint_names[0 if side == "left" else 1],
+                hardware_id=joint,
                 values=[kv(key="side", value=side), kv(key="kind", value=kind),
                         kv(key="start_ns", value=str(start)), kv(key="end_ns", value=str(end))])
             arr = g["diagnostic_msgs/msg/DiagnosticArray"](header=_header(ts, int(start), odom_frame, ros1),

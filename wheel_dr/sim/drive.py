@@ -19,13 +19,15 @@ Model (kinematic, REP 103 frames, SI units):
   exceeds ``MOVING_MPS`` (only then is it labelled).
 * Gyro z = true yaw rate at the stamp + bias + white noise (sd per sample).
 
-Random streams (wheel noise left, right, gyro) are independent children of one SeedSequence(seed),
+Random streams (wheel noise per joint, left first, then the gyro) are independent children of one
+SeedSequence(seed),
 so a given seed always gives the same result and switching one noise off leaves the others alone.
 """
 from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import Sequence
 
 import numpy as np
 
@@ -43,8 +45,9 @@ MOVING_MPS = 1e-3  # a wheel slower than this over the ground is "not moving": n
 class SimResult:
     """Output of ``simulate``; arrays are per joint-state sample (N,) unless noted.
 
-    ``position_rad`` / ``velocity_radps`` (N, 2) are what the encoders report (left, right columns
-    in ``joint_names`` order), including slip and random error. ``true_*`` poses are in the odom
+    ``position_rad`` / ``velocity_radps`` (N, J) are what the encoders report (columns in
+    ``joint_names`` order: left joints, then right; J = 2 unless skid steer), including slip and
+    random error. ``true_*`` poses are in the odom
     frame at the joint stamps; ``true_yaw_rad`` is wrapped to (-pi, pi], ``true_theta_rad`` not.
     ``slip_intervals_ns`` (K, 2) int64 are inclusive [first, last] stamps of the samples whose
     step slipped, with ``slip_side`` ('left'/'right') and ``slip_kind`` ('spin'/'drag') per row;
@@ -73,6 +76,7 @@ class SimResult:
     true_left_radius_m: float
     true_right_radius_m: float
     true_track_m: float
+    slip_joint: np.ndarray | None = None   # (K,) joint name of each slip interval
 
     def __len__(self) -> int:
         return int(len(self.stamp_ns))
@@ -247,16 +251,22 @@ def simulate(scenario: Scenario, seed: int = 0) -> SimResult:
     after = seg_index >= len(sc.segments)
     x[after], y[after], th[after], trav[after] = x0, y0, th0, (l0, r0)
 
+    # -- per joint: columns are the left joints (front first), then the right ones -----------------
+    jps = sc.joints_per_side
+    side_of = np.repeat([0, 1], jps)                 # column -> side (0 left, 1 right)
+    n_j = 2 * jps
+    vw_j = vw[:, side_of]
+
     # -- slip factors per step (the step ending at each sample) -----------------------------------
-    moving = np.abs(vw) > MOVING_MPS
-    factor = np.ones((n, 2))
+    moving = np.abs(vw_j) > MOVING_MPS
+    factor = np.ones((n, n_j))
     masks: dict[tuple[int, str], np.ndarray] = {}
 
-    def apply(side_cols: tuple[int, ...], ratio: np.ndarray, kind: str) -> None:
-        """Slip ``ratio`` (N,) per sample (0 where inactive) on the given wheel columns."""
+    def apply(cols: Sequence[int], ratio: np.ndarray, kind: str) -> None:
+        """Slip ``ratio`` (N,) per sample (0 where inactive) on the given joint columns."""
         safe = np.clip(ratio, 0.0, 0.95)
         f = 1.0 / (1.0 - safe) if kind == "spin" else (1.0 - safe)
-        for c in side_cols:
+        for c in cols:
             hit = (ratio > 0) & moving[:, c]
             factor[hit, c] *= f[hit]
             key = (c, kind)
@@ -273,50 +283,63 @@ def simulate(scenario: Scenario, seed: int = 0) -> SimResult:
 
     for ev in sc.slip_events:
         active = (t >= ev.start_s) & (t <= ev.start_s + ev.duration_s)
-        cols = {"left": (0,), "right": (1,), "both": (0, 1)}[ev.side]
-        apply(cols, ramped(active, ev.slip_ratio, ev.ramp_s), ev.kind)
+        sides = {"left": (0,), "right": (1,), "both": (0, 1)}[ev.side]
+        within = range(jps) if ev.joint is None else (ev.joint,)
+        apply([sd * jps + k for sd in sides for k in within], ramped(active, ev.slip_ratio, ev.ramp_s), ev.kind)
     if sc.floor_patches:
         half_b = 0.5 * b
-        cx = np.stack([x - np.sin(th) * half_b, x + np.sin(th) * half_b], axis=1)   # left, right contact
-        cy = np.stack([y + np.cos(th) * half_b, y - np.cos(th) * half_b], axis=1)
+        sin_th, cos_th = np.sin(th), np.cos(th)
+        cx, cy = [], []
+        for c in range(n_j):
+            lat = half_b if side_of[c] == 0 else -half_b
+            px = x - sin_th * half_b if lat > 0 else x + sin_th * half_b       # contact line of the side
+            py = y + cos_th * half_b if lat > 0 else y - cos_th * half_b
+            if jps > 1:                                                       # front / rear wheel
+                lon = 0.5 * sc.wheelbase_m * (1.0 if c % jps == 0 else -1.0)
+                px, py = px + cos_th * lon, py + sin_th * lon
+            cx.append(px)
+            cy.append(py)
         for patch in sc.floor_patches:
-            inside = ((cx >= patch.x_min_m) & (cx <= patch.x_max_m) & (cy >= patch.y_min_m)
-                      & (cy <= patch.y_max_m))
-            apply((0,), ramped(inside[:, 0], patch.slip_ratio, patch.ramp_s), patch.kind)
-            apply((1,), ramped(inside[:, 1], patch.slip_ratio, patch.ramp_s), patch.kind)
+            for c in range(n_j):
+                inside = ((cx[c] >= patch.x_min_m) & (cx[c] <= patch.x_max_m) & (cy[c] >= patch.y_min_m)
+                          & (cy[c] <= patch.y_max_m))
+                apply((c,), ramped(inside, patch.slip_ratio, patch.ramp_s), patch.kind)
     if n:
         factor[0] = 1.0
         for key in masks:
             masks[key][0] = False
 
     # -- encoders, gyro --------------------------------------------------------------------------
-    rng_left, rng_right, rng_gyro = (np.random.default_rng(s) for s in np.random.SeedSequence(seed).spawn(3))
-    d_true = np.zeros((n, 2))
-    d_true[1:] = np.diff(trav, axis=0)
+    streams = [np.random.default_rng(s) for s in np.random.SeedSequence(seed).spawn(n_j + 1)]
+    rng_gyro = streams[-1]
+    d_true = np.zeros((n, n_j))
+    d_true[1:] = np.diff(trav, axis=0)[:, side_of]
     d_meas = d_true * factor
-    for c, (k_m, rng) in enumerate(((sc.k_left_m, rng_left), (sc.k_right_m, rng_right))):
-        z = rng.standard_normal(n)
+    for c in range(n_j):
+        k_m = sc.k_left_m if side_of[c] == 0 else sc.k_right_m
+        z = streams[c].standard_normal(n)
         if k_m > 0:
             d_meas[:, c] += np.sqrt(k_m * np.abs(d_meas[:, c])) * z
-    radius = np.array([sc.true_left_radius_m, sc.true_right_radius_m])
+    radius = np.array([sc.true_left_radius_m, sc.true_right_radius_m])[side_of]
     position = np.cumsum(d_meas, axis=0) / radius
-    velocity = np.zeros((n, 2))
+    velocity = np.zeros((n, n_j))
     if n > 1:
         dt = np.diff(stamp_ns) * 1e-9
         velocity[1:] = np.diff(position, axis=0) / dt[:, None]
     gyro = w + sc.gyro_bias_radps + sc.gyro_noise_sd_radps * rng_gyro.standard_normal(n)
 
     # -- slip truth intervals ---------------------------------------------------------------------
-    rows: list[tuple[int, int, str, str]] = []
+    rows: list[tuple[int, int, str, str, str]] = []
     for (c, kind), mask in masks.items():
         for first, last in _runs(mask):
-            rows.append((int(stamp_ns[first]), int(stamp_ns[last]), ("left", "right")[c], kind))
+            rows.append((int(stamp_ns[first]), int(stamp_ns[last]), ("left", "right")[side_of[c]], kind,
+                         sc.joint_names[c]))
     rows.sort()
     intervals = np.array([(r[0], r[1]) for r in rows], dtype=np.int64).reshape(-1, 2)
     slip_left = np.zeros(n, dtype=bool)
     slip_right = np.zeros(n, dtype=bool)
     for (c, _), mask in masks.items():
-        (slip_left if c == 0 else slip_right)[:] |= mask
+        (slip_left if side_of[c] == 0 else slip_right)[:] |= mask
 
     return SimResult(
         scenario=sc, seed=int(seed), stamp_ns=stamp_ns, joint_names=tuple(sc.joint_names),
@@ -325,4 +348,4 @@ def simulate(scenario: Scenario, seed: int = 0) -> SimResult:
         true_travel_m=trav, slip_left=slip_left, slip_right=slip_right, slip_intervals_ns=intervals,
         slip_side=np.array([r[2] for r in rows], dtype="<U5"), slip_kind=np.array([r[3] for r in rows], dtype="<U4"),
         true_left_radius_m=sc.true_left_radius_m, true_right_radius_m=sc.true_right_radius_m,
-        true_track_m=sc.true_track_m)
+        true_track_m=sc.true_track_m, slip_joint=np.array([r[4] for r in rows], dtype=object).astype(str))

@@ -25,6 +25,7 @@ __all__ = [
     "FloorPatch",
     "Scenario",
     "QUOKKA_JOINTS",
+    "QUOKKA_SKID_JOINTS",
     "QUOKKA_NOMINAL_RADIUS_M",
     "QUOKKA_NOMINAL_TRACK_M",
     "QUOKKA_TRUE_LEFT_RADIUS_M",
@@ -37,6 +38,8 @@ __all__ = [
 # The demo cart (invented numbers, demo only): nominal design values and the "true" ones
 # (a worn tyre and a bent axle mount).
 QUOKKA_JOINTS = ("quokka_left_wheel_joint", "quokka_right_wheel_joint")
+QUOKKA_SKID_JOINTS = ("quokka_front_left_wheel_joint", "quokka_rear_left_wheel_joint",
+                      "quokka_front_right_wheel_joint", "quokka_rear_right_wheel_joint")
 QUOKKA_NOMINAL_RADIUS_M = 0.0825
 QUOKKA_NOMINAL_TRACK_M = 0.412
 QUOKKA_TRUE_LEFT_RADIUS_M = 0.0829
@@ -124,7 +127,8 @@ class SlipEvent:
     'drag': slower (encoder under-reads). ``slip_ratio`` s in [0, 0.95] uses the common-practice
     longitudinal slip ratio s = |r w - v| / max(|r w|, |v|): spin r w = v / (1 - s),
     drag r w = v (1 - s). ``ramp_s`` > 0 makes the ratio rise linearly from 0 over that long
-    after the start (a wheel spinning up); 0 steps it at once.
+    after the start (a wheel spinning up); 0 steps it at once. With several joints per side
+    (skid steer), ``joint`` picks one of them (0 = front) and None means all of the side.
     """
 
     start_s: float
@@ -133,6 +137,7 @@ class SlipEvent:
     kind: str = "spin"
     slip_ratio: float = 0.3
     ramp_s: float = 0.0
+    joint: int | None = None
 
     def __post_init__(self) -> None:
         _check_slip(self.side, self.kind, self.slip_ratio)
@@ -185,6 +190,9 @@ class Scenario:
     Gyro: z rate = true yaw rate + ``gyro_bias_radps`` + white noise of standard deviation
     ``gyro_noise_sd_radps`` per sample. ``accel_mps2`` / ``accel_radps2`` limit the speed ramps
     (0 = speed changes instantly, segments at constant speed).
+    Skid steer: ``joints_per_side`` 2 gives front and rear wheels per side, ``wheelbase_m`` apart,
+    all of a side driven alike (the ideal skid-steer kinematics with the true track as effective
+    track); ``joint_names`` then lists the left joints (front first), then the right ones.
     """
 
     name: str
@@ -207,7 +215,9 @@ class Scenario:
     start_pose: tuple[float, float, float] = (0.0, 0.0, 0.0)
     start_stamp_ns: int = DEMO_START_STAMP_NS
     lead_in_s: float = 1.0
-    joint_names: tuple[str, str] = QUOKKA_JOINTS
+    joint_names: tuple[str, ...] = QUOKKA_JOINTS
+    joints_per_side: int = 1
+    wheelbase_m: float = 0.3
     description: str = ""
     extra: dict = field(default_factory=dict, compare=False)
 
@@ -222,6 +232,25 @@ class Scenario:
                 raise ValueError(f"{name} must be > 0.")
         if self.k_left_m < 0 or self.k_right_m < 0 or self.gyro_noise_sd_radps < 0:
             raise ValueError("noise levels must be >= 0.")
+        if self.joints_per_side not in (1, 2):
+            raise ValueError("joints_per_side must be 1 or 2.")
+        if self.joints_per_side == 2 and tuple(self.joint_names) == QUOKKA_JOINTS:
+            object.__setattr__(self, "joint_names", QUOKKA_SKID_JOINTS)
+        if len(self.joint_names) != 2 * self.joints_per_side or len(set(self.joint_names)) != len(self.joint_names):
+            raise ValueError(f"joint_names needs {2 * self.joints_per_side} different names (left side first).")
+        for ev in self.slip_events:
+            if ev.joint is not None and not 0 <= ev.joint < self.joints_per_side:
+                raise ValueError(f"slip event joint {ev.joint} is not one of the {self.joints_per_side} joints of a side.")
+
+    @property
+    def left_joints(self) -> tuple[str, ...]:
+        """Joint names of the left side."""
+        return tuple(self.joint_names[:self.joints_per_side])
+
+    @property
+    def right_joints(self) -> tuple[str, ...]:
+        """Joint names of the right side."""
+        return tuple(self.joint_names[self.joints_per_side:])
 
     def with_values(self, **changes) -> "Scenario":
         """A copy with some fields changed (``dataclasses.replace``)."""
@@ -230,14 +259,14 @@ class Scenario:
     @property
     def nominal_params(self) -> dict[str, object]:
         """Dotted wheel_dr parameters for the nominal geometry and this scenario's joints."""
-        return {"wheels.left_joints": [self.joint_names[0]], "wheels.right_joints": [self.joint_names[1]],
+        return {"wheels.left_joints": list(self.left_joints), "wheels.right_joints": list(self.right_joints),
                 "wheels.left_radius": self.nominal_left_radius_m, "wheels.right_radius": self.nominal_right_radius_m,
                 "wheels.track_width": self.nominal_track_m}
 
     @property
     def true_params(self) -> dict[str, object]:
         """Dotted wheel_dr parameters for the true geometry (what a perfect calibration finds)."""
-        return {"wheels.left_joints": [self.joint_names[0]], "wheels.right_joints": [self.joint_names[1]],
+        return {"wheels.left_joints": list(self.left_joints), "wheels.right_joints": list(self.right_joints),
                 "wheels.left_radius": self.true_left_radius_m, "wheels.right_radius": self.true_right_radius_m,
                 "wheels.track_width": self.true_track_m}
 
