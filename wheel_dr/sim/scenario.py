@@ -190,7 +190,7 @@ class Scenario:
     Gyro: z rate = true yaw rate + ``gyro_bias_radps`` + white noise of standard deviation
     ``gyro_noise_sd_radps`` per sample. ``accel_mps2`` / ``accel_radps2`` limit the speed ramps
     (0 = speed changes instantly, segments at constant speed).
-    Skid steer: ``joints_per_side`` 2 gives front and rear wheels per side, ``wheelbase_m`` apart,
+    Skid steer: ``joints_per_side`` 2 gives a front and a rear wheel on each side, ``wheelbase_m`` apart,
     all of a side driven alike (the ideal skid-steer kinematics with the true track as effective
     track); ``joint_names`` then lists the left joints (front first), then the right ones.
     """
