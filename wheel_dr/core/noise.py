@@ -42,7 +42,7 @@ __all__ = [
 
 UNOBSERVED_VARIANCE = 1.0e6  # variance reported for quantities the estimator does not observe
 
-_BLOCK = 4096
+_BLOCK = 8192
 
 
 def motion_model_parts(ds_m, dtheta_rad, scheme: str):
@@ -85,20 +85,33 @@ def increment_noise(theta_before_rad, ds_left_m, ds_right_m, track_width_m: floa
         c_in[:, 0, 1] = c_in[:, 1, 0] = 0.5 * (var_r - var_l) / b
         c_in[:, 1, 1] = (var_r + var_l) / (b * b)
         jac = increment_jacobian(theta_before_rad, ds, dth, scheme)
-        q = jac @ c_in @ np.swapaxes(jac, -1, -2)
+        # Q = J C J^T entry by entry (J's last row is (0, 1)): faster than stacked matmuls
+        c00, c01, c11 = c_in[:, 0, 0], c_in[:, 0, 1], c_in[:, 1, 1]
+        j00, j01, j10, j11 = jac[:, 0, 0], jac[:, 0, 1], jac[:, 1, 0], jac[:, 1, 1]
+        u00, u01 = j00 * c00 + j01 * c01, j00 * c01 + j01 * c11
+        u10, u11 = j10 * c00 + j11 * c01, j10 * c01 + j11 * c11
+        q = np.empty((m, 3, 3))
+        q[:, 0, 0] = u00 * j00 + u01 * j01
+        q[:, 0, 1] = q[:, 1, 0] = u00 * j10 + u01 * j11
+        q[:, 0, 2] = q[:, 2, 0] = u01
+        q[:, 1, 1] = u10 * j10 + u11 * j11
+        q[:, 1, 2] = q[:, 2, 1] = u11
+        q[:, 2, 2] = c11
         return q, c_in
     rot1, trans, rot2 = motion_model_parts(ds, dth, scheme)
     var = motion_model_variances(rot1, trans, rot2, alphas)
     phi = theta_before_rad + rot1
     c, s = np.cos(phi), np.sin(phi)
-    g = np.zeros((m, 3, 3))
-    g[:, 0, 0] = -trans * s
-    g[:, 0, 1] = c
-    g[:, 1, 0] = trans * c
-    g[:, 1, 1] = s
-    g[:, 2, 0] = 1.0
-    g[:, 2, 2] = 1.0
-    q = (g * var[:, None, :]) @ np.swapaxes(g, -1, -2)
+    # Q = G diag(var) G^T with G = [[-t s, c, 0], [t c, s, 0], [1, 0, 1]], entry by entry
+    v1, vt, v2 = var[:, 0], var[:, 1], var[:, 2]
+    v1t = v1 * trans
+    q = np.empty((m, 3, 3))
+    q[:, 0, 0] = v1t * trans * s * s + vt * c * c
+    q[:, 0, 1] = q[:, 1, 0] = (vt - v1t * trans) * s * c
+    q[:, 0, 2] = q[:, 2, 0] = -v1t * s
+    q[:, 1, 1] = v1t * trans * c * c + vt * s * s
+    q[:, 1, 2] = q[:, 2, 1] = v1t * c
+    q[:, 2, 2] = v1 + v2
     c_in = np.zeros((m, 2, 2))
     c_in[:, 0, 0] = var[:, 1]
     c_in[:, 1, 1] = var[:, 0] + var[:, 2]
@@ -142,13 +155,6 @@ def propagate_step(cov: np.ndarray, dx_m: float, dy_m: float, q: np.ndarray) -> 
     return f @ cov @ f.T + q
 
 
-def _transport(cov: np.ndarray, c: np.ndarray) -> np.ndarray:
-    """(I + c e3^T) A (I + e3 c^T) for stacks: A (..., 3, 3), c (..., 3)."""
-    col = cov[..., :, 2]
-    return (cov + c[..., :, None] * col[..., None, :] + col[..., :, None] * c[..., None, :]
-            + cov[..., 2, 2][..., None, None] * c[..., :, None] * c[..., None, :])
-
-
 def propagate_covariance(x_m: np.ndarray, y_m: np.ndarray, q: np.ndarray,
                          start_cov: np.ndarray | None = None,
                          start_xy: tuple[float, float] = (0.0, 0.0)) -> np.ndarray:
@@ -156,35 +162,58 @@ def propagate_covariance(x_m: np.ndarray, y_m: np.ndarray, q: np.ndarray,
 
     ``x_m, y_m`` are the positions after each step, ``start_xy`` the position before the first,
     ``start_cov`` the covariance there (zero if omitted). Equal to iterating ``propagate_step``.
+
+    With c = (cx, cy, 0) = (-(y_k - y_j), x_k - x_j, 0), each step's contribution at step k is
+    Q_j + c q_j^T + q_j c^T + s_j c c^T (q_j = Q_j e3, s_j = Q_j[2, 2]); expanding c gives the six
+    distinct entries from fifteen running sums, computed per block with positions re-based at the
+    block's start so the sums stay small.
     """
     m = len(x_m)
     out = np.empty((m, 3, 3))
-    carry = np.zeros((3, 3)) if start_cov is None else np.asarray(start_cov, dtype=np.float64)
+    cxx, cxy, cxt, cyy, cyt, ctt = _entries(np.zeros((3, 3)) if start_cov is None
+                                            else np.asarray(start_cov, dtype=np.float64))
     ref_x, ref_y = float(start_xy[0]), float(start_xy[1])
+    x_all = np.asarray(x_m, dtype=np.float64)
+    y_all = np.asarray(y_m, dtype=np.float64)
     for s in range(0, m, _BLOCK):
         e = min(m, s + _BLOCK)
-        a = np.zeros((e - s, 3))
-        a[:, 0] = -(np.asarray(y_m[s:e]) - ref_y)
-        a[:, 1] = np.asarray(x_m[s:e]) - ref_x
+        ax = ref_y - y_all[s:e]             # first component of a_j = (-y_j, x_j), re-based
+        ay = x_all[s:e] - ref_x
         qb = q[s:e]
-        qc = qb[:, :, 2]                      # q_j = Q_j e3
-        ss = qb[:, 2, 2]                      # s_j = Q_j[2, 2]
-        sum_q = np.cumsum(qb, axis=0)
-        sum_qc = np.cumsum(qc, axis=0)
-        sum_s = np.cumsum(ss)
-        sum_sa = np.cumsum(ss[:, None] * a, axis=0)
-        sum_aq = np.cumsum(a[:, :, None] * qc[:, None, :], axis=0)      # sum a_j q_j^T
-        sum_saa = np.cumsum(ss[:, None, None] * a[:, :, None] * a[:, None, :], axis=0)
-        ak = a
-        block = (sum_q
-                 + ak[:, :, None] * sum_qc[:, None, :] - sum_aq
-                 + sum_qc[:, :, None] * ak[:, None, :] - np.swapaxes(sum_aq, 1, 2)
-                 + sum_s[:, None, None] * ak[:, :, None] * ak[:, None, :]
-                 - ak[:, :, None] * sum_sa[:, None, :] - sum_sa[:, :, None] * ak[:, None, :]
-                 + sum_saa)
-        block += _transport(carry[None, :, :], ak)   # carry is at the block's reference point
-        out[s:e] = block
-        carry = block[-1]
-        ref_x, ref_y = float(x_m[e - 1]), float(y_m[e - 1])
-    # keep the stack exactly symmetric
-    return 0.5 * (out + np.swapaxes(out, 1, 2))
+        qxt, qyt, qtt = qb[:, 0, 2], qb[:, 1, 2], qb[:, 2, 2]
+        sax, say = qtt * ax, qtt * ay
+        cols = np.stack([qb[:, 0, 0], qb[:, 0, 1], qxt, qb[:, 1, 1], qyt, qtt,
+                         ax * qxt, ay * qxt, ax * qyt, ay * qyt, sax, say,
+                         sax * ax, say * ay, sax * ay], axis=1)
+        (sxx, sxy, sxt, syy, syt, st, s_axqxt, s_ayqxt, s_axqyt, s_ayqyt, s_sax, s_say,
+         s_saxx, s_sayy, s_saxy) = np.cumsum(cols, axis=0).T
+        blk = out[s:e]
+        # contributions of the steps of this block
+        pxx = sxx + 2.0 * (ax * sxt - s_axqxt) + ax * ax * st - 2.0 * ax * s_sax + s_saxx
+        pxy = (sxy + ax * syt - s_axqyt + ay * sxt - s_ayqxt + ax * ay * st - ax * s_say - ay * s_sax
+               + s_saxy)
+        pxt = sxt + ax * st - s_sax
+        pyy = syy + 2.0 * (ay * syt - s_ayqyt) + ay * ay * st - 2.0 * ay * s_say + s_sayy
+        pyt = syt + ay * st - s_say
+        # the covariance carried in from before the block, moved along by (ax, ay)
+        pxx += cxx + 2.0 * ax * cxt + ctt * ax * ax
+        pxy += cxy + ax * cyt + ay * cxt + ctt * ax * ay
+        pxt += cxt + ax * ctt
+        pyy += cyy + 2.0 * ay * cyt + ctt * ay * ay
+        pyt += cyt + ay * ctt
+        ptt = st + ctt
+        blk[:, 0, 0] = pxx
+        blk[:, 0, 1] = blk[:, 1, 0] = pxy
+        blk[:, 0, 2] = blk[:, 2, 0] = pxt
+        blk[:, 1, 1] = pyy
+        blk[:, 1, 2] = blk[:, 2, 1] = pyt
+        blk[:, 2, 2] = ptt
+        cxx, cxy, cxt, cyy, cyt, ctt = pxx[-1], pxy[-1], pxt[-1], pyy[-1], pyt[-1], ptt[-1]
+        ref_x, ref_y = float(x_all[e - 1]), float(y_all[e - 1])
+    return out
+
+
+def _entries(cov: np.ndarray) -> tuple[float, float, float, float, float, float]:
+    """xx, xy, xyaw, yy, yyaw, yawyaw of a symmetric 3x3 (the upper triangle is read)."""
+    return (float(cov[0, 0]), float(cov[0, 1]), float(cov[0, 2]), float(cov[1, 1]), float(cov[1, 2]),
+            float(cov[2, 2]))
