@@ -29,6 +29,21 @@ __all__ = ["NODE_NAME", "load_settings", "parse_params_text", "flatten", "write_
 NODE_NAME = "wheel_dr_node"
 
 
+class _ParamsLoader(yaml.SafeLoader):
+    """SafeLoader that reads numbers as ROS 2 does: ``2e-05`` and ``1E3`` are floats, not strings
+    (YAML 1.1, which PyYAML follows, demands a dot in a float)."""
+
+
+_ParamsLoader.add_implicit_resolver(
+    "tag:yaml.org,2002:float",
+    re.compile(r"""^(?:[-+]?(?:[0-9][0-9_]*)\.[0-9_]*(?:[eE][-+]?[0-9]+)?
+                 |[-+]?(?:[0-9][0-9_]*)(?:[eE][-+]?[0-9]+)
+                 |\.[0-9_]+(?:[eE][-+]?[0-9]+)?
+                 |[-+]?\.(?:inf|Inf|INF)
+                 |\.(?:nan|NaN|NAN))$""", re.X),
+    list("-+0123456789."))
+
+
 def flatten(tree: Mapping[str, Any], prefix: str = "") -> dict[str, Any]:
     """Nested mapping -> dotted names."""
     out: dict[str, Any] = {}
@@ -49,7 +64,7 @@ def parse_params_text(text: str, source: str = "parameters file",
     leading slash or namespace), as ROS 2 applies them.
     """
     try:
-        doc = yaml.safe_load(text)
+        doc = yaml.load(text, Loader=_ParamsLoader)  # noqa: S506 (a SafeLoader)
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None)
         where = f" at line {mark.line + 1}" if mark is not None else ""
