@@ -32,7 +32,7 @@ def colour_of(k: int) -> str:
 
 def new_figure(width_in: float = 7.2, height_in: float = 4.2) -> Figure:
     """A Figure on its own Agg canvas (does not touch pyplot's global state or backend)."""
-    fig = Figure(figsize=(width_in, height_in), dpi=110, facecolor=PAPER)
+    fig = Figure(figsize=(width_in, height_in), dpi=110, facecolor=PAPER, layout="constrained")
     FigureCanvasAgg(fig)
     return fig
 
@@ -48,7 +48,7 @@ def _style(ax) -> None:
 def figure_png(fig: Figure) -> bytes:
     """PNG bytes of a figure."""
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", facecolor=fig.get_facecolor(), bbox_inches="tight")
+    fig.savefig(buf, format="png", facecolor=fig.get_facecolor())  # layout is constrained: one draw
     return buf.getvalue()
 
 
