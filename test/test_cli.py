@@ -96,7 +96,13 @@ def test_demo_writes_the_report(tmp_path, capsys):
     page = tmp_path / "demo" / "index.html"
     assert f"report: {page.resolve()}" in text
     doc = json.loads((tmp_path / "demo" / "summary.json").read_text())
-    assert [r["settings"] for r in doc["rows"]] == ["demo_nominal", "demo_corrected", "demo_motion_model"]
+    assert [r["settings"] for r in doc["rows"]] == ["demo_nominal", "demo_corrected", "demo_motion_model",
+                                                    "demo_gyro"]
+    rows = {r["settings"]: r for r in doc["rows"]}
+    # corrected geometry drifts less than the nominal one; gyro substitution leaves a smaller heading
+    # error after the slip events than flags alone (gyrodometry, Borenstein & Feng 1996)
+    assert rows["demo_corrected"]["drift_endpoint_pct"] < rows["demo_nominal"]["drift_endpoint_pct"]
+    assert rows["demo_gyro"]["slip_heading_error_mean_deg"] < rows["demo_corrected"]["slip_heading_error_mean_deg"]
     assert "<h2>Calibration" in page.read_text()
     assert main(["demo", "--out", str(tmp_path / "demo"), "--quiet", "--no-calibration"]) == 0   # cached now
     assert "using the cached demo drive" in capsys.readouterr().out

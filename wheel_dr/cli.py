@@ -212,7 +212,7 @@ def _config_dir() -> Path:
                      "source tree or reinstall the package.")
 
 
-DEMO_CONFIGS = ("demo_nominal.yaml", "demo_corrected.yaml", "demo_motion_model.yaml")
+DEMO_CONFIGS = ("demo_nominal.yaml", "demo_corrected.yaml", "demo_motion_model.yaml", "demo_gyro.yaml")
 DEMO_CACHE_VERSION = 1
 
 
@@ -327,11 +327,11 @@ def build_parser(command: str | None = None) -> argparse.ArgumentParser:
     _add_topic_flags(p)
     p.set_defaults(func=_cmd_compare)
 
-    p = sub.add_parser("demo", help="synthesise the demo drive and compare three shipped settings files",
+    p = sub.add_parser("demo", help="synthesise the demo drive and compare four shipped settings files",
                        description="Synthesise the demo scenario (the invented 'Quokka' cart on its night round "
                        "through the 'Ferncliff Seed Bank'; cached under DIR/cache), compare "
-                       "config/demo_nominal.yaml, config/demo_corrected.yaml and config/demo_motion_model.yaml "
-                       "against its ground truth, add a calibration section (the demo cart calibrated from a simulated "
+                       "config/demo_nominal.yaml, config/demo_corrected.yaml, config/demo_motion_model.yaml and "
+                       "config/demo_gyro.yaml (gyro substitution while slipping) against its ground truth, add a calibration section (the demo cart calibrated from a simulated "
                        "ten-minute drive), write the report and print where the page is.")
     p.add_argument("--out", metavar="DIR", help="output directory (default out/demo)")
     p.add_argument("--jobs", type=int, default=default_jobs(), help="worker processes (default: CPUs available)")
