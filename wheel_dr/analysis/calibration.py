@@ -19,7 +19,7 @@ Chiaverini & Fusco, IEEE T-RO 21(5), 2005, and Censi et al., IEEE T-RO 29(2), 20
    maximum likelihood of the segment errors, e ~ N(0, P(theta)), where P is the covariance
    propagated over the segment from zero at its start (the closed form of
    ``wheel_dr.core.noise.propagate_covariance``, evaluated for all segments at once by
-   ``segment_propagate``). Q is linear in the noise parameters for both models, so
+   ``wheel_dr.core.noise.segment_covariance``). Q is linear in the noise parameters for both models, so
    P(theta) = sum_a theta_a P_a with basis covariances P_a propagated once. Steps 3 and 4 alternate
    until stable; segments whose NEES is beyond the chi-square(3) 99.9 % quantile (slip, truth
    glitches) are set aside. The noise uses shorter segments than the geometry (more independent
@@ -44,7 +44,7 @@ from scipy import optimize, stats
 
 from ..core.errors import InputError
 from ..core.motion import body_increment, integrate, wrap_angle
-from ..core.noise import increment_noise
+from ..core.noise import increment_noise, segment_covariance as segment_propagate
 from ..core.settings import Settings
 from ..core.wheels import JointSamples, wheel_travel
 from .path import PlanarPath
@@ -316,44 +316,6 @@ def segment_covariance_basis(run: CalibrationRun, seg: Segments, geometry: Seque
         p = segment_propagate(x, y, q, seg.start, seg.end)
         out[:, a] = rot @ p @ np.swapaxes(rot, 1, 2)
     return out
-
-
-def segment_propagate(x_m: np.ndarray, y_m: np.ndarray, q: np.ndarray, start: np.ndarray,
-                      end: np.ndarray) -> np.ndarray:
-    """(S, 3, 3) covariance at pose ``end[s]`` propagated from zero at pose ``start[s]`` (odom frame).
-
-    The same closed form as ``wheel_dr.core.noise.propagate_covariance`` (the product of the step
-    Jacobians from step k to pose j is I + (a_j - a_k) e3^T with a = (-y, x, 0)), expanded into
-    cumulative sums over the whole run so that every segment costs a difference of two sums:
-    P = sum_{k in (i, j]} Q_k + (a_j - a_k) q_k^T + q_k (a_j - a_k)^T + s_k (a_j - a_k)(a_j - a_k)^T
-    with q_k = Q_k e3 and s_k = Q_k[2, 2]. Positions are taken about their mean to limit round-off.
-    """
-    x = np.asarray(x_m, dtype=np.float64)
-    y = np.asarray(y_m, dtype=np.float64)
-    a = np.zeros((len(x), 3))
-    a[:, 0] = -(y - y.mean())
-    a[:, 1] = x - x.mean()
-    qc = q[:, :, 2]
-    ss = q[:, 2, 2]
-
-    def csum(v: np.ndarray) -> np.ndarray:
-        return np.concatenate((np.zeros((1,) + v.shape[1:]), np.cumsum(v, axis=0)))
-
-    def seg_sum(v: np.ndarray) -> np.ndarray:
-        c = csum(v)
-        return c[end + 1] - c[start + 1]          # steps start+1 .. end
-
-    s_q = seg_sum(q)
-    s_qc = seg_sum(qc)
-    s_s = seg_sum(ss)
-    s_sa = seg_sum(ss[:, None] * a)
-    s_aq = seg_sum(a[:, :, None] * qc[:, None, :])
-    s_saa = seg_sum(ss[:, None, None] * a[:, :, None] * a[:, None, :])
-    aj = a[end]
-    p = (s_q + aj[:, :, None] * s_qc[:, None, :] - s_aq + s_qc[:, :, None] * aj[:, None, :]
-         - np.swapaxes(s_aq, 1, 2) + s_s[:, None, None] * aj[:, :, None] * aj[:, None, :]
-         - aj[:, :, None] * s_sa[:, None, :] - s_sa[:, :, None] * aj[:, None, :] + s_saa)
-    return 0.5 * (p + np.swapaxes(p, 1, 2))
 
 
 def noise_vector(settings: Settings, model: str | None = None) -> np.ndarray:

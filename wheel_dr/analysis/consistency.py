@@ -14,6 +14,7 @@ import numpy as np
 from scipy import stats
 
 from ..core.motion import wrap_angle
+from ..core.noise import segment_covariance  # re-exported: the restarted-segment covariance
 
 __all__ = ["chi2_bounds", "mean_nees_bounds", "SegmentNees", "segment_nees", "segment_covariance", "nees"]
 
@@ -48,72 +49,6 @@ def nees(err: np.ndarray, cov: np.ndarray) -> np.ndarray:
         z = np.linalg.solve(sym[ok], err[ok][..., None])[..., 0]
         out[ok] = np.einsum("si,si->s", err[ok], z)
     return out
-
-
-def segment_covariance(x_m: np.ndarray, y_m: np.ndarray, step_noise: np.ndarray, starts: np.ndarray,
-                       ends: np.ndarray) -> np.ndarray:
-    """Covariance (S, 3, 3) at sample ends[k] of the recursion P' = F P F^T + Q started from zero at
-    sample starts[k] (the core's propagation, ``noise.propagate_covariance``), for disjoint segments.
-
-    Uses the same closed form as the core: the product of the F's from step m to sample j is
-    I + c e3^T with c = (-(y_j - y_m), x_j - x_m, 0), so with a_m = (-(y_m - y_i), x_m - x_i, 0)
-    re-based at each segment's start (round-off stays at the segment's scale)
-    P = sum_m (I + (a_j - a_m) e3^T) Q_m (I + e3 (a_j - a_m)^T), evaluated by per-segment sums.
-    """
-    starts = np.asarray(starts, dtype=np.int64)
-    ends = np.asarray(ends, dtype=np.int64)
-    lens = ends - starts
-    if len(starts) == 0:
-        return np.zeros((0, 3, 3))
-    if np.any(lens < 1):
-        raise ValueError("every segment needs ends > starts")
-    offsets = np.concatenate(([0], np.cumsum(lens)[:-1]))
-    x = np.asarray(x_m, dtype=np.float64)
-    y = np.asarray(y_m, dtype=np.float64)
-    q_all = np.asarray(step_noise, dtype=np.float64)
-    contiguous = bool(np.all(ends[:-1] == starts[1:]))
-    if contiguous:                      # the common case: segments tile a range, no gather copies
-        lo, hi = int(starts[0]) + 1, int(ends[-1]) + 1
-        xs, ys, qk = x[lo:hi], y[lo:hi], q_all[lo:hi].reshape(-1, 9)
-    else:
-        steps = np.arange(int(lens.sum())) - np.repeat(offsets, lens) + np.repeat(starts + 1, lens)
-        xs, ys, qk = x[steps], y[steps], q_all[steps].reshape(-1, 9)
-    a0 = -(ys - np.repeat(y[starts], lens))         # a_m = (-(y_m - y_i), x_m - x_i, 0)
-    a1 = xs - np.repeat(x[starts], lens)
-    # one row per summed quantity (rows contiguous: fast to fill and to reduce)
-    rows = np.empty((20, len(a0)))
-    rows[0:9] = qk.T                                # Q_m
-    qc = rows[[2, 5, 8]]                            # Q_m e3
-    sk = rows[8]                                    # Q_m[2, 2]
-    rows[9] = sk * a0
-    rows[10] = sk * a1
-    rows[11:14] = a0 * qc
-    rows[14:17] = a1 * qc
-    rows[17] = rows[9] * a0
-    rows[18] = rows[9] * a1
-    rows[19] = rows[10] * a1
-    sums = np.add.reduceat(rows, offsets, axis=1).T  # (S, 20): one pass over the samples
-    n_seg = len(starts)
-    sum_q = sums[:, 0:9].reshape(n_seg, 3, 3)
-    sum_qc = sums[:, [2, 5, 8]]
-    sum_s = sums[:, 8]
-    sum_sa = np.zeros((n_seg, 3))
-    sum_sa[:, 0], sum_sa[:, 1] = sums[:, 9], sums[:, 10]
-    sum_aq = np.zeros((n_seg, 3, 3))                # sum a_m q_m^T
-    sum_aq[:, 0, :], sum_aq[:, 1, :] = sums[:, 11:14], sums[:, 14:17]
-    sum_saa = np.zeros((n_seg, 3, 3))
-    sum_saa[:, 0, 0], sum_saa[:, 1, 1] = sums[:, 17], sums[:, 19]
-    sum_saa[:, 0, 1] = sum_saa[:, 1, 0] = sums[:, 18]
-    aj = np.zeros((n_seg, 3))
-    aj[:, 0] = -(y[ends] - y[starts])
-    aj[:, 1] = x[ends] - x[starts]
-    out = (sum_q
-           + aj[:, :, None] * sum_qc[:, None, :] - sum_aq
-           + sum_qc[:, :, None] * aj[:, None, :] - np.swapaxes(sum_aq, 1, 2)
-           + sum_s[:, None, None] * aj[:, :, None] * aj[:, None, :]
-           - aj[:, :, None] * sum_sa[:, None, :] - sum_sa[:, :, None] * aj[:, None, :]
-           + sum_saa)
-    return 0.5 * (out + np.swapaxes(out, 1, 2))
 
 
 @dataclass

@@ -36,6 +36,7 @@ __all__ = [
     "increment_noise_scalar",
     "motion_model_variances",
     "propagate_covariance",
+    "segment_covariance",
     "propagate_step",
     "motion_model_parts",
 ]
@@ -155,6 +156,39 @@ def propagate_step(cov: np.ndarray, dx_m: float, dy_m: float, q: np.ndarray) -> 
     return f @ cov @ f.T + q
 
 
+def _running_sum_columns(q: np.ndarray, ax: np.ndarray, ay: np.ndarray) -> np.ndarray:
+    """(n, 15) per-step terms whose running sums give the propagated covariance (see below)."""
+    qxt, qyt, qtt = q[:, 0, 2], q[:, 1, 2], q[:, 2, 2]
+    sax, say = qtt * ax, qtt * ay
+    return np.stack([q[:, 0, 0], q[:, 0, 1], qxt, q[:, 1, 1], qyt, qtt,
+                     ax * qxt, ay * qxt, ax * qyt, ay * qyt, sax, say,
+                     sax * ax, say * ay, sax * ay], axis=1)
+
+
+def _assemble(sums: np.ndarray, ax: np.ndarray, ay: np.ndarray) -> tuple[np.ndarray, ...]:
+    """xx, xy, xyaw, yy, yyaw, yawyaw of sum_m (I + c_m e3^T) Q_m (I + e3 c_m^T), c_m = a - a_m.
+
+    ``sums`` (n, 15) are sums of ``_running_sum_columns`` over the steps m, ``(ax, ay)`` is a.
+    """
+    (sxx, sxy, sxt, syy, syt, st, s_axqxt, s_ayqxt, s_axqyt, s_ayqyt, s_sax, s_say,
+     s_saxx, s_sayy, s_saxy) = sums.T
+    pxx = sxx + 2.0 * (ax * sxt - s_axqxt) + ax * ax * st - 2.0 * ax * s_sax + s_saxx
+    pxy = sxy + ax * syt - s_axqyt + ay * sxt - s_ayqxt + ax * ay * st - ax * s_say - ay * s_sax + s_saxy
+    pxt = sxt + ax * st - s_sax
+    pyy = syy + 2.0 * (ay * syt - s_ayqyt) + ay * ay * st - 2.0 * ay * s_say + s_sayy
+    pyt = syt + ay * st - s_say
+    return pxx, pxy, pxt, pyy, pyt, st
+
+
+def _fill(out: np.ndarray, pxx, pxy, pxt, pyy, pyt, ptt) -> None:
+    out[:, 0, 0] = pxx
+    out[:, 0, 1] = out[:, 1, 0] = pxy
+    out[:, 0, 2] = out[:, 2, 0] = pxt
+    out[:, 1, 1] = pyy
+    out[:, 1, 2] = out[:, 2, 1] = pyt
+    out[:, 2, 2] = ptt
+
+
 def propagate_covariance(x_m: np.ndarray, y_m: np.ndarray, q: np.ndarray,
                          start_cov: np.ndarray | None = None,
                          start_xy: tuple[float, float] = (0.0, 0.0)) -> np.ndarray:
@@ -177,39 +211,45 @@ def propagate_covariance(x_m: np.ndarray, y_m: np.ndarray, q: np.ndarray,
     y_all = np.asarray(y_m, dtype=np.float64)
     for s in range(0, m, _BLOCK):
         e = min(m, s + _BLOCK)
-        ax = ref_y - y_all[s:e]             # first component of a_j = (-y_j, x_j), re-based
+        ax = ref_y - y_all[s:e]             # a_j = (-y_j, x_j), re-based at the block's start
         ay = x_all[s:e] - ref_x
-        qb = q[s:e]
-        qxt, qyt, qtt = qb[:, 0, 2], qb[:, 1, 2], qb[:, 2, 2]
-        sax, say = qtt * ax, qtt * ay
-        cols = np.stack([qb[:, 0, 0], qb[:, 0, 1], qxt, qb[:, 1, 1], qyt, qtt,
-                         ax * qxt, ay * qxt, ax * qyt, ay * qyt, sax, say,
-                         sax * ax, say * ay, sax * ay], axis=1)
-        (sxx, sxy, sxt, syy, syt, st, s_axqxt, s_ayqxt, s_axqyt, s_ayqyt, s_sax, s_say,
-         s_saxx, s_sayy, s_saxy) = np.cumsum(cols, axis=0).T
-        blk = out[s:e]
-        # contributions of the steps of this block
-        pxx = sxx + 2.0 * (ax * sxt - s_axqxt) + ax * ax * st - 2.0 * ax * s_sax + s_saxx
-        pxy = (sxy + ax * syt - s_axqyt + ay * sxt - s_ayqxt + ax * ay * st - ax * s_say - ay * s_sax
-               + s_saxy)
-        pxt = sxt + ax * st - s_sax
-        pyy = syy + 2.0 * (ay * syt - s_ayqyt) + ay * ay * st - 2.0 * ay * s_say + s_sayy
-        pyt = syt + ay * st - s_say
+        pxx, pxy, pxt, pyy, pyt, ptt = _assemble(np.cumsum(_running_sum_columns(q[s:e], ax, ay), axis=0),
+                                                 ax, ay)
         # the covariance carried in from before the block, moved along by (ax, ay)
-        pxx += cxx + 2.0 * ax * cxt + ctt * ax * ax
-        pxy += cxy + ax * cyt + ay * cxt + ctt * ax * ay
-        pxt += cxt + ax * ctt
-        pyy += cyy + 2.0 * ay * cyt + ctt * ay * ay
-        pyt += cyt + ay * ctt
-        ptt = st + ctt
-        blk[:, 0, 0] = pxx
-        blk[:, 0, 1] = blk[:, 1, 0] = pxy
-        blk[:, 0, 2] = blk[:, 2, 0] = pxt
-        blk[:, 1, 1] = pyy
-        blk[:, 1, 2] = blk[:, 2, 1] = pyt
-        blk[:, 2, 2] = ptt
+        pxx = pxx + cxx + 2.0 * ax * cxt + ctt * ax * ax
+        pxy = pxy + cxy + ax * cyt + ay * cxt + ctt * ax * ay
+        pxt = pxt + cxt + ax * ctt
+        pyy = pyy + cyy + 2.0 * ay * cyt + ctt * ay * ay
+        pyt = pyt + cyt + ay * ctt
+        ptt = ptt + ctt
+        _fill(out[s:e], pxx, pxy, pxt, pyy, pyt, ptt)
         cxx, cxy, cxt, cyy, cyt, ctt = pxx[-1], pxy[-1], pxt[-1], pyy[-1], pyt[-1], ptt[-1]
         ref_x, ref_y = float(x_all[e - 1]), float(y_all[e - 1])
+    return out
+
+
+def segment_covariance(x_m: np.ndarray, y_m: np.ndarray, q: np.ndarray, starts: np.ndarray,
+                       ends: np.ndarray) -> np.ndarray:
+    """(S, 3, 3) covariance at step ``ends[s]`` of the same recursion restarted from zero at step
+    ``starts[s]`` (steps starts[s]+1 .. ends[s] contribute), for any set of segments, overlapping or
+    not. ``x_m, y_m`` are the positions after each step and ``q`` (M, 3, 3) the step noise, as for
+    ``propagate_covariance``; every segment costs a difference of two running sums (positions taken
+    about their mean to keep round-off small).
+    """
+    starts = np.asarray(starts, dtype=np.int64)
+    ends = np.asarray(ends, dtype=np.int64)
+    if np.any(ends < starts):
+        raise ValueError("every segment needs ends >= starts")
+    x = np.asarray(x_m, dtype=np.float64)
+    y = np.asarray(y_m, dtype=np.float64)
+    if len(x) == 0 or len(starts) == 0:
+        return np.zeros((len(starts), 3, 3))
+    ax_all = -(y - y.mean())
+    ay_all = x - x.mean()
+    sums = np.cumsum(_running_sum_columns(np.asarray(q, dtype=np.float64), ax_all, ay_all), axis=0)
+    seg_sums = sums[ends] - sums[starts]
+    out = np.empty((len(starts), 3, 3))
+    _fill(out, *_assemble(seg_sums, ax_all[ends], ay_all[ends]))
     return out
 
 
