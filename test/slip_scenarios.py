@@ -17,6 +17,7 @@ import numpy as np
 from wheel_dr.core import JointSamples, Settings
 
 __all__ = ["SlipEvent", "Drive", "Generated", "generate", "random_drive", "quokka_settings", "slip_figures",
+           "heading_errors",
            "sim_round",
            "sharp_turns_drive", "traction_limit_drive", "noisy_gyro_drive",
            "QUOKKA_LEFT", "QUOKKA_RIGHT", "RAMP_S"]
@@ -310,3 +311,15 @@ def sim_round(seed: int, n_events: int = 4):
         events.append(SimSlip(t0, d, str(rng.choice(["left", "right"])), str(rng.choice(["spin", "drag"])),
                               float(rng.uniform(0.4, 0.6))))
     return base.with_values(slip_events=tuple(events))
+
+
+def heading_errors(gen: Generated, traj) -> np.ndarray:
+    """|error of the heading change| (rad) from 0.3 s before to 0.5 s after each event, against the truth."""
+    t = gen.t_s[traj.index]
+    out = []
+    for e in gen.events:
+        a, b = e.t0_s - 0.3, e.t0_s + e.duration_s + 0.5
+        est = np.interp([a, b], t, traj.theta_rad)
+        true = np.interp([a, b], gen.t_s, gen.theta_true_rad)
+        out.append(abs((est[1] - est[0]) - (true[1] - true[0])))
+    return np.array(out)

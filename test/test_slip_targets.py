@@ -12,24 +12,12 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from slip_scenarios import (generate, noisy_gyro_drive, random_drive, sharp_turns_drive, slip_figures,
+from slip_scenarios import (generate, heading_errors, noisy_gyro_drive, random_drive, sharp_turns_drive, slip_figures,
                             traction_limit_drive)
 from wheel_dr.core import run
 
 HELD_OUT_SEEDS = tuple(range(201, 209))
 HARD_SEEDS = (201, 202, 203)
-
-
-def _heading_errors(gen, traj) -> np.ndarray:
-    """|error of the heading change| (rad) from 0.3 s before to 0.5 s after each event."""
-    t = gen.t_s[traj.index]
-    out = []
-    for e in gen.events:
-        a, b = e.t0_s - 0.3, e.t0_s + e.duration_s + 0.5
-        est = np.interp([a, b], t, traj.theta_rad)
-        true = np.interp([a, b], gen.t_s, gen.theta_true_rad)
-        out.append(abs((est[1] - est[0]) - (true[1] - true[0])))
-    return np.array(out)
 
 
 @pytest.fixture(scope="module")
@@ -61,7 +49,7 @@ def test_every_event_is_detected_within_200_ms(held_out):
 def test_gyro_substitution_cuts_the_heading_error_of_every_event_5x(held_out):
     """Gyrodometry (Borenstein & Feng 1996): the gyro's heading increments on flagged samples."""
     for seed, gen, flag, gyro, _ in held_out:
-        without, with_gyro = _heading_errors(gen, flag), _heading_errors(gen, gyro)
+        without, with_gyro = heading_errors(gen, flag), heading_errors(gen, gyro)
         assert len(without) == 5
         assert (without >= 5.0 * with_gyro).all(), (seed, without, with_gyro)
 

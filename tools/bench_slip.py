@@ -20,25 +20,13 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "test"))
 
-from slip_scenarios import (Drive, SlipEvent, generate, noisy_gyro_drive, random_drive,  # noqa: E402
+from slip_scenarios import (Drive, SlipEvent, generate, heading_errors, noisy_gyro_drive, random_drive,  # noqa: E402
                             sharp_turns_drive, slip_figures, traction_limit_drive)
 from wheel_dr.core import run, wheel_travel  # noqa: E402
 from wheel_dr.core.slip import detect_slip  # noqa: E402
 
 TUNING_SEEDS = tuple(range(1, 7)) + tuple(range(101, 109))
 HELD_OUT_SEEDS = tuple(range(201, 209))
-
-
-def heading_errors(gen, traj) -> np.ndarray:
-    """|heading change error| (rad) from 0.3 s before to 0.5 s after each event, against the truth."""
-    t = gen.t_s[traj.index]
-    out = []
-    for e in gen.events:
-        a, b = e.t0_s - 0.3, e.t0_s + e.duration_s + 0.5
-        est = np.interp([a, b], t, traj.theta_rad)
-        true = np.interp([a, b], gen.t_s, gen.theta_true_rad)
-        out.append(abs((est[1] - est[0]) - (true[1] - true[0])))
-    return np.array(out)
 
 
 def family(name: str, drives, seeds, values=None) -> dict[str, float]:
