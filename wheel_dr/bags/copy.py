@@ -2,14 +2,10 @@
 from __future__ import annotations
 
 import os
-import shutil
-import tempfile
 from pathlib import Path
 
 import numpy as np
 from rosbags.highlevel import AnyReader
-from rosbags.rosbag1 import Writer as Writer1
-from rosbags.rosbag2 import StoragePlugin, Writer as Writer2
 from rosbags.typesys import Stores, get_typestore
 
 from ..core.conventions import pose_covariance_6x6, twist_covariance_6x6
@@ -17,7 +13,7 @@ from ..core.errors import InputError
 from ..core.settings import Settings
 from .codec import pose_layout
 from .reader import BagError, _open, _resolve, _why
-from .writer import _fill, _header
+from .writer import _fill, _header, bag_writer_into_place
 
 __all__ = ["copy_with_odometry"]
 
@@ -81,16 +77,9 @@ def copy_with_odometry(src: str | os.PathLike, dst: str | os.PathLike, traj, set
         raise InputError(f"bag '{source}' already has a topic {topic}; choose another with --odom-topic.")
     ts = get_typestore(Stores.ROS1_NOETIC if ros1 else Stores.LATEST)
     rows = _odometry_rows(traj, settings, ts, ros1)
-    target.parent.mkdir(parents=True, exist_ok=True)
-    tmpdir = Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent))
-    tmp = tmpdir / target.name
+    fmt = "ros1" if ros1 else ("mcap" if any(source.glob("*.mcap")) else "sqlite3")
     try:
-        if ros1:
-            writer = Writer1(tmp)
-        else:
-            storage = "mcap" if any(source.glob("*.mcap")) else "sqlite3"
-            writer = Writer2(tmp, version=9, storage_plugin=StoragePlugin.MCAP if storage == "mcap" else StoragePlugin.SQLITE3)
-        with writer:
+        with bag_writer_into_place(target, fmt) as writer:
             mapping = {}
             for c in reader.connections:
                 if ros1:
@@ -114,10 +103,6 @@ def copy_with_odometry(src: str | os.PathLike, dst: str | os.PathLike, traj, set
                                "it.") from None
             for j in range(k, len(stamps)):
                 writer.write(odom, stamps[j], rows[j])
-        if target.exists():
-            shutil.rmtree(target) if target.is_dir() else target.unlink()
-        os.replace(tmp, target)
     finally:
         reader.close()
-        shutil.rmtree(tmpdir, ignore_errors=True)
     return target

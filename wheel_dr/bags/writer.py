@@ -22,7 +22,8 @@ import os
 import shutil
 import tempfile
 from pathlib import Path
-from typing import Mapping
+from contextlib import contextmanager
+from typing import Iterator, Mapping
 
 import numpy as np
 from rosbags.interfaces import Qos, QosDurability, QosHistory, QosLiveliness, QosReliability, QosTime
@@ -184,42 +185,50 @@ def write_bag(sim: SimResult, path: str | os.PathLike, fmt: str = "mcap", *, typ
     target = Path(path)
     if target.exists() and not overwrite:
         raise InputError(f"output '{target}' already exists; remove it or choose another name.")
-    target.parent.mkdir(parents=True, exist_ok=True)
     groups = _messages(sim, ts, ros1, names, truth_stride, imu, truth, description, slip, urdf, odom_frame,
                        base_frame, imu_frame)
+    with bag_writer_into_place(target, fmt) as writer:
+        order = []
+        for topic, msgtype, latched, msgs in groups:
+            if ros1:
+                conn = writer.add_connection(topic, msgtype, typestore=ts, latching=1 if latched else None)
+            else:
+                conn = writer.add_connection(topic, msgtype, typestore=ts,
+                                             offered_qos_profiles=[_LATCHED] if latched else [])
+            order.append((conn, msgs))
+        # merge by time: every group is already in time order
+        stamps = np.concatenate([np.array([m[0] for m in msgs], dtype=np.int64) for _, msgs in order])
+        which = np.concatenate([np.full(len(msgs), i) for i, (_, msgs) in enumerate(order)])
+        pos = np.concatenate([np.arange(len(msgs)) for _, msgs in order])
+        seq = np.lexsort((which, stamps))
+        conns = [c for c, _ in order]
+        lists = [msgs for _, msgs in order]
+        write = writer.write
+        which_l, pos_l = which.tolist(), pos.tolist()
+        for k in seq.tolist():
+            i = which_l[k]
+            stamp, data = lists[i][pos_l[k]]
+            write(conns[i], stamp, data)
+    return target
+
+
+@contextmanager
+def bag_writer_into_place(target: Path, fmt: str) -> Iterator[Writer1 | Writer2]:
+    """An open bag writer ('mcap', 'sqlite3' or 'ros1') on a temporary name beside ``target``; the bag
+    is renamed onto ``target`` only when the block completes, so nothing half-written is left."""
+    target.parent.mkdir(parents=True, exist_ok=True)
     tmpdir = Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent))
     tmp = tmpdir / target.name
     try:
-        if ros1:
-            writer = Writer1(tmp)
+        if fmt == "ros1":
+            writer: Writer1 | Writer2 = Writer1(tmp)
         else:
             plugin = StoragePlugin.MCAP if fmt == "mcap" else StoragePlugin.SQLITE3
             writer = Writer2(tmp, version=9, storage_plugin=plugin)
         with writer:
-            order = []
-            for topic, msgtype, latched, msgs in groups:
-                if ros1:
-                    conn = writer.add_connection(topic, msgtype, typestore=ts, latching=1 if latched else None)
-                else:
-                    conn = writer.add_connection(topic, msgtype, typestore=ts,
-                                                 offered_qos_profiles=[_LATCHED] if latched else [])
-                order.append((conn, msgs))
-            # merge by time: every group is already in time order
-            stamps = np.concatenate([np.array([m[0] for m in msgs], dtype=np.int64) for _, msgs in order])
-            which = np.concatenate([np.full(len(msgs), i) for i, (_, msgs) in enumerate(order)])
-            pos = np.concatenate([np.arange(len(msgs)) for _, msgs in order])
-            seq = np.lexsort((which, stamps))
-            conns = [c for c, _ in order]
-            lists = [msgs for _, msgs in order]
-            write = writer.write
-            which_l, pos_l = which.tolist(), pos.tolist()
-            for k in seq.tolist():
-                i = which_l[k]
-                stamp, data = lists[i][pos_l[k]]
-                write(conns[i], stamp, data)
+            yield writer
         if target.exists():
             shutil.rmtree(target) if target.is_dir() else target.unlink()
         os.replace(tmp, target)
     finally:
         shutil.rmtree(tmpdir, ignore_errors=True)
-    return target
