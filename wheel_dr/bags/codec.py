@@ -194,14 +194,20 @@ def _stamps(arr: np.ndarray, layout: Layout, ros1: bool) -> np.ndarray:
     return sec * 1_000_000_000 + nsec
 
 
+def _stacked(raws: Sequence[bytes], ros1: bool, layout_of, *args) -> tuple[Layout | None, np.ndarray | None]:
+    """The layout of the first message (``layout_of(raw, *args, ros1)``) and all messages stacked as
+    one (N, L) byte array, or (None, None) when the topic is empty or its messages differ in layout."""
+    if len(raws) == 0:
+        return None, None
+    layout = layout_of(bytes(raws[0]), *args, ros1)
+    if layout is None:
+        return None, None
+    return layout, stack_raw(raws, layout, ros1)
+
+
 def bulk_joint_states(raws: Sequence[bytes], ros1: bool = False):
     """(names, stamp_ns (N,), position (N, J), velocity (N, J), has_position, has_velocity) or None."""
-    if len(raws) == 0:
-        return None
-    layout = joint_state_layout(bytes(raws[0]), ros1)
-    if layout is None:
-        return None
-    arr = stack_raw(raws, layout, ros1)
+    layout, arr = _stacked(raws, ros1, joint_state_layout)
     if arr is None:
         return None
     j = len(layout.names)
@@ -219,12 +225,7 @@ def bulk_joint_states(raws: Sequence[bytes], ros1: bool = False):
 
 def bulk_imu_gyro_z(raws: Sequence[bytes], ros1: bool = False):
     """(stamp_ns (N,), angular_velocity.z (N,)) or None."""
-    if len(raws) == 0:
-        return None
-    layout = imu_layout(bytes(raws[0]), ros1)
-    if layout is None:
-        return None
-    arr = stack_raw(raws, layout, ros1)
+    layout, arr = _stacked(raws, ros1, imu_layout)
     if arr is None:
         return None
     off, _ = layout.fields["angular_velocity"]
@@ -233,12 +234,7 @@ def bulk_imu_gyro_z(raws: Sequence[bytes], ros1: bool = False):
 
 def bulk_poses(raws: Sequence[bytes], msgtype: str, ros1: bool = False):
     """(stamp_ns (N,), pose (N, 7) x y z qx qy qz qw, frame_id, child_frame_id) or None."""
-    if len(raws) == 0:
-        return None
-    layout = pose_layout(bytes(raws[0]), msgtype, ros1)
-    if layout is None:
-        return None
-    arr = stack_raw(raws, layout, ros1)
+    layout, arr = _stacked(raws, ros1, pose_layout, msgtype)
     if arr is None or layout.fields["pose"][0] + 56 > layout.length:
         return None
     off, _ = layout.fields["pose"]
