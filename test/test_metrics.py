@@ -312,8 +312,7 @@ def test_truth_covering_part_of_the_run_is_compared_there_only() -> None:
 
 
 # ---------------------------------------------------------------------------------------------
-# slip scores (targets of issue 5: coverage after the first 0.2 s, false flags of non-slip time,
-# latency); expected counts worked out by hand below
+# slip scores (coverage after the first 0.2 s, false flags of non-slip time, latency); expected counts worked out by hand below
 def test_slip_scores_on_hand_made_flags() -> None:
     stamp = np.arange(200, dtype=np.int64) * 10_000_000          # 100 Hz, 0.00 .. 1.99 s
     t = stamp * 1e-9

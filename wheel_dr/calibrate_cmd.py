@@ -4,8 +4,7 @@ Shell only: it reads bags and files, calls wheel_dr.analysis.calibration / umbma
 and writes the tuned parameters file (same structure and names as the input, only fitted values
 changed, ``wheel_dr.params.update_params_text``). Errors a user can cause are one sentence, exit 2.
 
-Caution: wheel odometry and its covariance are not a safety function; test a tuned file in a clear
-area with an emergency stop at hand and defer to the machine's safety assessment.
+The safety caution it prints is ``wheel_dr.safety.SAFETY_TEXT``.
 """
 from __future__ import annotations
 
@@ -27,14 +26,14 @@ from .analysis.umbmark import (CSV_COLUMNS, corrected_geometry, parse_square_csv
 from .core.errors import WheelDrError
 from .core.settings import NOISE_MODELS, Settings
 from .core.wheels import JointSamples
+from .safety import SAFETY_TEXT
 from .params import atomic_write_text, parse_params_text, update_params_text, write_params_text
 
 __all__ = ["add_parser", "run_calibrate", "main", "load_bag", "default_params_text", "SAFETY_NOTE", "figures_table",
            "result_lines", "header_text", "calibration_section",
            "demo_calibration"]
 
-SAFETY_NOTE = ("Caution: odometry, its covariance and slip flags are not safety functions; try the tuned file in a "
-               "clear area with an emergency stop at hand and defer to the machine's safety assessment.")
+SAFETY_NOTE = SAFETY_TEXT
 
 
 def load_bag(path: str | Path, truth: str, joint_topic: str | None = None) -> tuple[JointSamples, PlanarPath]:

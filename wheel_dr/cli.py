@@ -3,9 +3,7 @@
 A shell: it reads files and bags, calls the core and wheel_dr.analysis, writes files and prints.
 Errors a user can cause are one sentence on stderr with exit status 2, never a traceback.
 
-Caution: wheel odometry, its covariance and slip flags are not safety functions; use them as advisory
-inputs to navigation, never instead of a safety-rated stop, and defer to local codes and the
-machine's safety assessment.
+The safety caution it prints is ``wheel_dr.safety.SAFETY_TEXT``.
 """
 from __future__ import annotations
 
@@ -22,11 +20,11 @@ import numpy as np
 
 from . import __version__
 from .core.errors import WheelDrError
+from .safety import SAFETY_TEXT
 
 __all__ = ["main", "build_parser", "SAFETY_NOTE", "write_trajectory_csv", "write_tum", "TRAJECTORY_COLUMNS"]
 
-SAFETY_NOTE = ("Odometry, its covariance and slip flags are not safety functions: advisory inputs to navigation, "
-               "never a substitute for a safety-rated stop; defer to local codes and the machine's safety assessment.")
+SAFETY_NOTE = SAFETY_TEXT
 
 TRAJECTORY_COLUMNS = ("t", "x", "y", "yaw", "cov_xx", "cov_xy", "cov_xyaw", "cov_yy", "cov_yyaw", "cov_yawyaw", "slip",
                       "v", "w", "slip_left", "slip_right")

@@ -4,8 +4,8 @@ Sources: ATE and RPE after Sturm et al., "A benchmark for the evaluation of RGB-
 IROS 2012; drift per distance over segments of fixed length after Geiger, Lenz & Urtasun, "Are we
 ready for autonomous driving? The KITTI vision benchmark suite", CVPR 2012; alignment after Umeyama
 1991 (see ``align``); NEES after Bar-Shalom et al. 2001 sec. 5.4 (see ``consistency``). Slip scores
-follow the targets of issue 5 (coverage after the first 0.2 s of each event, false-flag fraction of
-non-slip time, detection latency). All positions in metres, angles in radians inside, degrees only
+are precision, recall, coverage after the first 0.2 s of each event, the false-flag fraction of
+non-slip time and the detection latency. All positions in metres, angles in radians inside, degrees only
 in the names that say so.
 """
 from __future__ import annotations
@@ -187,8 +187,8 @@ def slip_scores(stamp_ns: np.ndarray, flags: np.ndarray, intervals_ns: np.ndarra
     coverage_after_grace = flagged share of slipping samples at least ``grace_s`` after their event's
     start; false_flag_frac = flagged share of non-slip samples; latency of an event = first flag inside
     it minus its start (events never flagged inside count as missed). Overlapping intervals are
-    merged. Samples stand for equal time (uniform rate). Issue 5 sets the targets: coverage >= 95 %,
-    false flags <= 1 %, latency < 0.2 s.
+    merged. Samples stand for equal time (uniform rate). Good detectors reach coverage >= 95 %,
+    false flags <= 1 %, latency < 0.2 s (wheel_dr's own aims, docs/slip.md).
     """
     t = np.asarray(stamp_ns, dtype=np.int64)
     f = np.asarray(flags, dtype=bool)
@@ -231,7 +231,7 @@ def slip_heading_error(stamp_ns: np.ndarray, theta_est_rad: np.ndarray, theta_tr
     """Heading error each slip event leaves: |wrap(dtheta_est - dtheta_true)| in degrees between the
     last sample before the event's start and the last sample at or before its end (merged events;
     events without a sample before them are skipped). With gyro substitution this should shrink
-    (issue 5 target: at least 5x smaller than without). Headings are unwrapped, radians."""
+    (wheel_dr aims at least 5x smaller than without). Headings are unwrapped, radians."""
     t = np.asarray(stamp_ns, dtype=np.int64)
     merged = _merge_intervals(intervals_ns)
     errs = []
@@ -386,7 +386,7 @@ def evaluate(traj: Trajectory, truth: PlanarPath, settings: Settings, slip_truth
     m["nees_dropped"] = dropped
     m["nees_segment_m"] = float(nees_segment_m)
 
-    # Slip (issue 5 targets)
+    # Slip scores
     flags_all = np.asarray(traj.slip.slip, dtype=bool)
     if slip_truth is not None:
         m.update(slip_scores(stamps, flags_all, np.asarray(slip_truth), slip_grace_s))

@@ -12,17 +12,14 @@ from matplotlib.figure import Figure
 
 from ..analysis.metrics import Evaluation, rank
 from .plots import colour_of, error_figure, figure_png, nees_figure, rpe_figure, slip_figure, trajectory_figure
+from ..safety import SAFETY_TEXT
 from .summary import RANK_COLUMNS, format_value, write_text_readable
 
 __all__ = ["write_report", "render_page", "ImageLike", "CAUTION_TEXT"]
 
 ImageLike = Union[bytes, Figure]
 
-CAUTION_TEXT = (
-    "Wheel odometry, its covariance and its slip flags are advisory inputs to navigation. They are not "
-    "safety functions and never replace a safety-rated stop. For driverless industrial trucks see "
-    "ISO 3691-4:2020, for personal care robots ISO 13482:2014; defer to local codes and to the machine's "
-    "own safety assessment, and test in a clear area with an emergency stop at hand.")
+CAUTION_TEXT = SAFETY_TEXT
 
 _CSS = """
 :root { --ink:#23272a; --paper:#fbfaf6; --band:#27363b; --accent:#c8553d; --soft:#efeadd; --line:#d9d4c7; }
