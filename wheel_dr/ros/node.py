@@ -379,9 +379,10 @@ class OdometryNode:
             return SetParametersResult(successful=False, reason=f"{exc.__class__.__name__}: {exc}")
         old_period = self.settings.output.diagnostics_period_s
         with self.lock:
+            frames_changed = new.frames != self.settings.frames     # compared before the new ones are taken
             self.settings = new
             self.estimator.update_settings(new)
-            if new.frames != self.settings.frames:
+            if frames_changed:
                 self._writer = RawOdometryWriter(new.frames.odom, new.frames.base, self._tf_type)
         if new.output.diagnostics_period_s != old_period:
             self._diag_timer.cancel()
