@@ -19,6 +19,7 @@ from typing import Sequence
 import numpy as np
 
 from . import __version__
+from .core import errors as _errors
 from .core.errors import WheelDrError
 from .safety import SAFETY_TEXT
 
@@ -32,8 +33,7 @@ TRAJECTORY_COLUMNS = ("t", "x", "y", "yaw", "cov_xx", "cov_xy", "cov_xyaw", "cov
 SCENARIOS = ("demo", "square-cw", "square-ccw", "varied")
 
 
-class UsageError(WheelDrError):
-    """A command-line value is wrong."""
+UsageError = _errors.UsageError            # defined with every other error in wheel_dr.core.errors
 
 
 # -- output helpers ------------------------------------------------------------------------------

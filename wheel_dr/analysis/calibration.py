@@ -42,7 +42,7 @@ from typing import Sequence
 import numpy as np
 from scipy import optimize, stats
 
-from ..core.errors import InputError
+from ..core import errors as _errors
 from ..core.motion import body_increment, integrate, wrap_angle
 from ..core.noise import increment_noise, segment_covariance as segment_propagate
 from ..core.settings import Settings
@@ -91,16 +91,10 @@ MOUNT_NOTE_RAD = math.radians(0.2)      # chi-square(3) quantile beyond which a 
 _MIN_VARIANCE = 1e-14         # added to the diagonal of segment covariances (m^2, rad^2)
 
 
-class CalibrationError(InputError):
-    """Calibration cannot proceed with the data given; the message names what to record or drive."""
-
-
-class TruthError(CalibrationError):
-    """Ground truth is missing, too sparse or does not overlap the joint states."""
-
-
-class ExcitationError(CalibrationError):
-    """The drive does not excite the parameters enough to fit them (too short, too straight, one-sided)."""
+# defined with every other error in wheel_dr.core.errors
+CalibrationError = _errors.CalibrationError
+TruthError = _errors.TruthError
+ExcitationError = _errors.ExcitationError
 
 
 # ------------------------------------------------------------------------------------------------

@@ -22,6 +22,7 @@ from rosbags.highlevel import AnyReader
 from rosbags.typesys import Stores, get_typestore
 
 from ..analysis.path import PlanarPath
+from ..core import errors as _errors
 from ..core.errors import InputError, WheelDrError
 from ..core.wheels import JointSamples
 from . import codec
@@ -38,8 +39,7 @@ STRING_TYPE = "std_msgs/msg/String"
 DIAG_TYPE = "diagnostic_msgs/msg/DiagnosticArray"
 
 
-class BagError(InputError):
-    """A bag cannot be opened or read, or lacks what is asked of it."""
+BagError = _errors.BagError                # defined with every other error in wheel_dr.core.errors
 
 
 @dataclass(frozen=True)
