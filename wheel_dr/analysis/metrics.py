@@ -25,7 +25,7 @@ from .align import anchor_first, apply_se2, umeyama_se2
 from .consistency import chi2_bounds, mean_nees_bounds, segment_nees
 from .path import PlanarPath
 
-__all__ = ["Evaluation", "evaluate", "rpe_distance", "slip_scores", "slip_heading_error", "slip_side_scores",
+__all__ = ["Evaluation", "evaluate", "nees_stats", "rpe_distance", "slip_scores", "slip_heading_error", "slip_side_scores",
            "step_noise_of", "rank",
            "DEFAULT_SEGMENT_LENGTHS_M"]
 
@@ -279,6 +279,26 @@ def _flag_intervals_s(t_s: np.ndarray, flags: np.ndarray) -> np.ndarray:
     return np.column_stack([t_s[starts], t_s[ends]])
 
 
+def nees_stats(values: np.ndarray, prefix: str) -> dict[str, float]:
+    """Count, mean with its chi-square 95 % interval, median and share inside the chi-square(3) 95 %
+    band of segment NEES values, under ``prefix_*`` keys (NaN when there are none).
+
+    The median of chi-square(3) is 2.366 (scipy.stats.chi2.median(3)); unlike the mean it is not
+    moved by a few segments far out, so a median near 2.4 with a large mean says the covariance is
+    right on most segments and a few are not (slip, a bump)."""
+    v = np.asarray(values, dtype=np.float64)
+    n = int(len(v))
+    lo95, hi95 = chi2_bounds(3, 0.95)
+    mlo, mhi = mean_nees_bounds(n, 3, 0.95)
+    nan = float("nan")
+    return {f"{prefix}_segments": n,
+            f"{prefix}_mean": float(np.mean(v)) if n else nan,
+            f"{prefix}_mean_lo": mlo,
+            f"{prefix}_mean_hi": mhi,
+            f"{prefix}_median": float(np.median(v)) if n else nan,
+            f"{prefix}_frac_inside_95": float(np.mean((v >= lo95) & (v <= hi95))) if n else nan}
+
+
 def evaluate(traj: Trajectory, truth: PlanarPath, settings: Settings, slip_truth: np.ndarray | None = None,
              segment_lengths_m: Sequence[float] = DEFAULT_SEGMENT_LENGTHS_M, *, bag: str = "", name: str = "",
              nees_segment_m: float = 2.0, slip_grace_s: float = 0.2, max_plot_points: int = 3000,
@@ -369,22 +389,25 @@ def evaluate(traj: Trajectory, truth: PlanarPath, settings: Settings, slip_truth
         clean = (csum[ends + 1] - csum[starts + 1]) == 0           # no restart in steps i+1..j
         seg = segment_nees(est, tru, q, starts, ends)          # all (contiguous: fastest), then drop
         keep = np.isin(seg.start, starts[clean])
-        values, seg_end = seg.value[keep], seg.end[keep]
+        values, seg_start, seg_end = seg.value[keep], seg.start[keep], seg.end[keep]
         dropped = int(len(starts) - len(values))               # restarts and non-positive covariances
+        fsum = np.concatenate(([0], np.cumsum(np.asarray(traj.slip.slip, dtype=bool)[sl])))
+        seg_flagged = (fsum[seg_end + 1] - fsum[seg_start + 1]) > 0   # the estimator flagged slip in i+1..j
     else:
         values, seg_end, dropped = np.zeros(0), np.zeros(0, dtype=np.int64), 0
+        seg_flagged = np.zeros(0, dtype=bool)
     n_seg = len(values)
-    lo95, hi95 = chi2_bounds(3, 0.95)
-    mlo, mhi = mean_nees_bounds(n_seg, 3, 0.95)
-    mean_v = float(np.mean(values)) if n_seg else nan
-    m["nees_segments"] = n_seg
-    m["nees_mean"] = mean_v
-    m["nees_mean_lo"] = mlo
-    m["nees_mean_hi"] = mhi
-    m["nees_frac_inside_95"] = float(np.mean((values >= lo95) & (values <= hi95))) if n_seg else nan
-    m["nees_consistent"] = bool(n_seg and mlo <= mean_v <= mhi)
+    m.update(nees_stats(values, "nees"))
+    m["nees_consistent"] = bool(n_seg and m["nees_mean_lo"] <= m["nees_mean"] <= m["nees_mean_hi"])
     m["nees_dropped"] = dropped
     m["nees_segment_m"] = float(nees_segment_m)
+    # segments the estimator itself flagged as slipping, scored apart from the rest: the rest tells
+    # whether the covariance is right where the model holds
+    m.update(nees_stats(values[~seg_flagged], "nees_unflagged"))
+    m["nees_unflagged_consistent"] = bool(m["nees_unflagged_segments"]
+                                          and m["nees_unflagged_mean_lo"] <= m["nees_unflagged_mean"]
+                                          <= m["nees_unflagged_mean_hi"])
+    m.update(nees_stats(values[seg_flagged], "nees_flagged"))
 
     # Slip scores
     flags_all = np.asarray(traj.slip.slip, dtype=bool)
@@ -421,6 +444,7 @@ def evaluate(traj: Trajectory, truth: PlanarPath, settings: Settings, slip_truth
         "err_anchored_m": err_anc[pick],
         "cov_xx": cov_anc[:, 0, 0], "cov_xy": cov_anc[:, 0, 1], "cov_yy": cov_anc[:, 1, 1],
         "nees_dist_m": dist[seg_end] if n_seg else np.zeros(0),
+        "nees_flagged": seg_flagged,
         "flag_intervals_s": _flag_intervals_s(all_t_s, flags_all),
         "slip_truth_s": ((_merge_intervals(slip_truth) - t0) * 1e-9) if slip_truth is not None
         else np.zeros((0, 2)),
