@@ -188,7 +188,7 @@ def _cmd_compare(args: argparse.Namespace, title: str = "wheel_dr comparison", n
             "truth": args.truth or "auto", "bag_info": res.bag_info}
     t1 = time.perf_counter()
     csv_path, json_path = write_summary(out, res.evaluations, meta=meta)
-    page = write_report(out, res.evaluations, title=title, notes=list(notes) + [SAFETY_NOTE],
+    page = write_report(out, res.evaluations, title=title, notes=list(notes), settings_files=sfs,
                         extra_sections=list(extra_sections))
     t2 = time.perf_counter()
     _say(ranking_text(res.evaluations))
@@ -237,9 +237,7 @@ def _cmd_demo(args: argparse.Namespace) -> int:
                             out=str(out))
     return _cmd_compare(ns, title="wheel_dr demo: the Quokka cart's night round (invented scenario)",
                         notes=["Demo data: the 'Quokka' cart and the 'Ferncliff Seed Bank' are invented; the numbers "
-                               "are demo-only.",
-                               "Settings: nominal geometry (design values), corrected geometry (what calibration "
-                               "finds), and the odometry motion model instead of the per-wheel noise model."],
+                               "are demo-only."],
                         extra_sections=sections)
 
 
