@@ -13,7 +13,7 @@ from typing import Sequence
 
 import numpy as np
 from matplotlib.figure import Figure
-from matplotlib.ticker import NullFormatter, ScalarFormatter
+from matplotlib.ticker import NullFormatter
 
 from ..analysis.calibration import (GEOMETRY_NAMES, CalibrationResult, CalibrationRun, RunFigures, _relative,
                                     geometry_of, make_segments, segment_errors)
@@ -111,7 +111,7 @@ def _nees_figure(res: CalibrationResult) -> Figure:
     items = ([("fitted", b, a) for b, a in zip(res.figures_before, res.figures_after)]
              + [("held out", b, a) for b, a in zip(res.holdout_before, res.holdout_after)])
     for k, (kind, b, a) in enumerate(items):
-        ax.plot([k, k], [a.nees_lo, a.nees_hi], color="#b9b2a0", lw=8, solid_capstyle="butt", zorder=1)
+        ax.plot([k + 0.12, k + 0.12], [a.nees_lo, a.nees_hi], color="#b9b2a0", lw=8, solid_capstyle="butt", zorder=1)
         ax.plot([k - 0.12], [max(b.nees_mean, 1e-3)], "o", color=BEFORE_COLOUR, ms=6, zorder=2,
                 label="before calibration" if k == 0 else None)
         ax.plot([k + 0.12], [max(a.nees_mean, 1e-3)], "D", color=AFTER_COLOUR, ms=6, zorder=2,
@@ -120,7 +120,9 @@ def _nees_figure(res: CalibrationResult) -> Figure:
     ax.set_xticks(range(len(items)))
     ax.set_xticklabels([f"{b.name}\n({kind})" for kind, b, _ in items], fontsize=7)
     ax.set_yscale("log")
-    ax.yaxis.set_major_formatter(ScalarFormatter())
+    lo, hi = ax.get_ylim()
+    ticks = [m * 10.0 ** e for e in range(-4, 7) for m in (1.0, 3.0) if lo <= m * 10.0 ** e <= hi]
+    ax.set_yticks(ticks, [f"{v:g}" for v in ticks])
     ax.yaxis.set_minor_formatter(NullFormatter())
     ax.set_ylabel("mean NEES of the segments", fontsize=8)
     ax.set_xlim(-0.6, len(items) - 0.4)
