@@ -232,6 +232,17 @@ def test_ranking_table_lists_each_recording_best_first(page: Path, evaluations) 
     assert not any(c == p_col for _, c in parser.best_cells)
 
 
+def test_summary_columns_are_the_documented_ones(evaluations) -> None:
+    """docs/report.md lists summary.csv's columns in order; they are the columns a real evaluation
+    writes (the per-length RPE columns follow)."""
+    import re
+    doc = (Path(__file__).resolve().parents[1] / "docs" / "report.md").read_text(encoding="utf-8")
+    listed = doc[doc.index("## summary.csv columns"):doc.index("then per RPE length L:")]
+    names = re.findall(r"[a-z_0-9]+", listed[listed.index("`"):].replace("`", " "))
+    row = evaluations[0].summary_row()
+    assert names == [k for k in row if not re.match(r"rpe_(trans_pct|rot_degpm|segments)_\d", k)]
+
+
 def test_summary_files_read_back_equal(tmp_path: Path, evaluations) -> None:
     """summary.csv (csv module) and summary.json read back to the evaluation rows; NaN is an empty
     cell and JSON null (JSON has no NaN, RFC 8259)."""

@@ -104,7 +104,7 @@ def figures_table(before: Sequence[RunFigures], after: Sequence[RunFigures], tit
              f"{'NEES before':>11} {'after':>7}  {'95% interval':>15}  segs"]
     for b, a in zip(before, after):
         inside = "ok" if a.nees_inside else "OUT"
-        lines.append(f"  {b.name[-28:]:<28} {_fmt(b.ate_m, '10.3f')} {_fmt(a.ate_m, '8.3f')}  "
+        lines.append(f"  {b.name[:28]:<28} {_fmt(b.ate_m, '10.3f')} {_fmt(a.ate_m, '8.3f')}  "
                      f"{_fmt(b.drift_pct, '13.2f')} {_fmt(a.drift_pct, '7.2f')}  {_fmt(b.nees_mean, '11.2f')} "
                      f"{_fmt(a.nees_mean, '7.2f')}  [{_fmt(a.nees_lo, '.2f')}, {_fmt(a.nees_hi, '.2f')}] {inside:>3} "
                      f"{a.n_segments:5d}")
