@@ -15,9 +15,6 @@ import sys
 from pathlib import Path
 from typing import Sequence
 
-import numpy as np
-
-
 from .analysis.calibration import (GEOMETRY_NAMES, CalibrationError, CalibrationResult, CalibrationRun,
                                    RunFigures, TruthError, calibrate, prepare_run)
 from .analysis.path import PlanarPath
@@ -26,8 +23,8 @@ from .analysis.umbmark import (CSV_COLUMNS, corrected_geometry, parse_square_csv
 from .core.errors import WheelDrError
 from .core.settings import NOISE_MODELS, Settings
 from .core.wheels import JointSamples
-from .safety import SAFETY_TEXT
 from .params import atomic_write_text, parse_params_text, update_params_text, write_params_text
+from .safety import SAFETY_TEXT
 
 __all__ = ["add_parser", "run_calibrate", "main", "load_bag", "default_params_text", "SAFETY_NOTE", "figures_table",
            "result_lines", "header_text", "calibration_section",
