@@ -913,8 +913,11 @@ def _finish_noise_fit(nfit: NoiseFit, model: str, fit_truth: bool, truth_var: np
     sd = np.sqrt(np.maximum(np.asarray(truth_var, dtype=np.float64), 0.0))
     if fit_truth:
         var_se = nfit.std_error[a:]
+        # delta method, d sd = d var / (2 sd), where sd is well above its own uncertainty; near zero
+        # (a truth about as good as exact) the square root of the variance's standard error instead
+        root = np.sqrt(np.maximum(var_se, 0.0))
         with np.errstate(divide="ignore", invalid="ignore"):
-            sd_se = np.where(sd > 0, var_se / (2.0 * sd), np.sqrt(var_se))    # delta method; at 0: sqrt
+            sd_se = np.where(sd > root, var_se / (2.0 * sd), root)
     else:
         sd_se = np.full(2, math.nan)
     return NoiseFit(model, nfit.theta[:a], nfit.std_error[:a], nfit.nees_mean, nfit.n_segments, nfit.success,
