@@ -199,7 +199,7 @@ def _bags(args: argparse.Namespace) -> int:
         atomic_write_text(args.write, update_params_text(text, _rounded(res.values), header))
         print(f"Wrote {args.write}: launch the node with --ros-args --params-file {args.write}")
     if args.report:
-        _write_report(args.report, prepared, held, res)
+        _write_report(args.report, prepared, held, res, label, args.write)
     print(SAFETY_NOTE)
     return 0
 
@@ -248,7 +248,8 @@ def demo_calibration(duration_s: float = 600.0, route_seed: int = 7, seed: int =
 
 
 def _write_report(out_dir: str, prepared: Sequence[tuple[str, JointSamples, PlanarPath, CalibrationRun]],
-                  held: Sequence[tuple[str, JointSamples, PlanarPath, CalibrationRun]], res: CalibrationResult) -> None:
+                  held: Sequence[tuple[str, JointSamples, PlanarPath, CalibrationRun]], res: CalibrationResult,
+                  start_label: str = "the starting file", tuned_path: str | None = None) -> None:
     from .analysis.metrics import evaluate
     from .core.estimator import run as run_estimator
     from .report import write_report
@@ -259,8 +260,12 @@ def _write_report(out_dir: str, prepared: Sequence[tuple[str, JointSamples, Plan
             traj = run_estimator(samples, settings)
             evaluations.append(evaluate(traj, truth, settings, bag=name, name=label))
     section = calibration_section(res, [r for *_, r in prepared], [n for n, *_ in prepared], [r for *_, r in held])
+    described = {"before calibration": f"the starting settings: {start_label}",
+                 "after calibration": "the same with the fitted values ("
+                                      + ", ".join(res.values) + ")"
+                                      + (f", written to {tuned_path}" if tuned_path else ", not written (no --write)")}
     path = write_report(out_dir, evaluations, title="wheel_dr calibration", extra_sections=[section],
-                        notes=[SAFETY_NOTE])
+                        settings_files=described)
     print(f"Report: {path}")
 
 

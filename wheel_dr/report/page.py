@@ -157,12 +157,15 @@ def _shown_path(path: Any) -> str:
 
 
 def _settings_table(entries: list[tuple[str, str, str]], colours: dict[str, str]) -> str:
+    with_files = any(path for _, path, _ in entries)
     rows = []
     for name, path, desc in entries:
         sw = f'<span class="swatch" style="background:{colours.get(name, "#888")}"></span>'
-        rows.append([sw + html.escape(name), html.escape(path), html.escape(desc)])
-    return table_html(["settings", "file", "description (from the file's header)"], rows,
-                      text_columns=(0, 1, 2), raw=True)
+        rows.append([sw + html.escape(name)] + ([html.escape(path)] if with_files else []) + [html.escape(desc)])
+    if with_files:
+        return table_html(["settings", "file", "description (from the file's header)"], rows,
+                          text_columns=(0, 1, 2), raw=True)
+    return table_html(["settings", "description"], rows, text_columns=(0, 1), raw=True)
 
 
 def _extra_images(title: str, images: Sequence[Any]) -> list[tuple[bytes, str]]:
