@@ -45,8 +45,8 @@ sees a_x - w^2 l_x - w' l_y (rigid-body kinematics, common practice), so alpha a
 the observer adds l_y (w(k) - w(a)) (the integral of w' l_y). The yaw rate w is the bias-corrected
 gyro where read, else the wheels'. The accelerometer bias is the mean x reading over the last
 ``slip.gyro_bias_samples`` standing-still samples (``slip.still_speed_mps``), as for the gyro;
-``imu.accel_bias_mps2`` until ``BIAS_MIN_SAMPLES`` of them (a sample counts when its step and the
-one before are still, so the reading that ends a stop is not taken). Readings marked unknown
+``imu.accel_bias_mps2`` until ``BIAS_MIN_SAMPLES`` of them (a reading counts once the steps before, of and after it are still, so the readings that begin or
+end a stop are not taken). Readings marked unknown
 (``linear_acceleration_covariance[0] == -1``, passed as NaN) switch the detector off for every
 window that contains one; a chain restart does too.
 
@@ -236,15 +236,21 @@ def detect_motion(stamp_ns: np.ndarray, restart: np.ndarray, dt_s: np.ndarray, d
             orient = np.abs(up) <= 1.0
         f = np.where(orient, f - STANDARD_GRAVITY_MPS2 * np.where(orient, up, 0.0), f)
     # bias: mean of the last N standing-still readings (prior until BIAS_MIN_SAMPLES)
+    # (reading i counts once steps i-1, i and i+1 are still: the readings of a start or a stop are not taken)
     still_step = ~restart & (np.abs(dl) <= k.still * dt) & (np.abs(dr) <= k.still * dt)
-    still = avail & still_step & np.concatenate(([False], still_step[:-1]))   # this step and the one before
+    still = avail & still_step
+    still[1:] &= still_step[:-1]
+    still[:-1] &= still_step[1:]
+    still[-1] = False
     tot = np.zeros(int(still.sum()) + 1)
     np.cumsum(f[still], out=tot[1:])
     c = np.arange(1, len(tot))
     n_used = np.minimum(c, k.bias_samples)
     at_still = np.concatenate(((k.bias_prior,), (tot[c] - tot[c - n_used]) / n_used))
     at_still[1:BIAS_MIN_SAMPLES] = k.bias_prior
-    bias = at_still[np.cumsum(still)]
+    counted = np.zeros(m, dtype=np.int64)
+    np.cumsum(still[:-1], out=counted[1:])          # readings counted before sample k
+    bias = at_still[counted]
     # yaw rate: gyro where read, else the wheels' step rate
     safe_dt = np.where(dt > 0.0, dt, 1.0)
     w = np.where(dt > 0.0, (dr - dl) / k.b / safe_dt, 0.0)
@@ -369,7 +375,8 @@ class MotionMonitor:
         self._bnd: _E | None = None
         self._hor: deque[_E] = deque()
         self._still_count = 0
-        self._prev_still = False
+        self._prev_still = self._prev2_still = self._prev_avail = False
+        self._prev_f = 0.0
         self._still_totals: deque[float] = deque([0.0], maxlen=self._k.bias_samples + 1)
         self._flag = False
         self._frozen: _E | None = None
@@ -434,16 +441,17 @@ class MotionMonitor:
             if orient:
                 f = f - STANDARD_GRAVITY_MPS2 * up
         still_step = not restart and abs(dl) <= k.still * dt and abs(dr) <= k.still * dt
-        was_still, self._prev_still = self._prev_still, still_step
-        if avail and still_step and was_still:
-            self._still_count += 1
-            self._still_totals.append(self._still_totals[-1] + f)
+        if still_step and self._prev_still and self._prev2_still and self._prev_avail:
+            self._still_count += 1                     # the previous reading, between still steps
+            self._still_totals.append(self._still_totals[-1] + self._prev_f)
+        self._prev2_still, self._prev_still = self._prev_still, still_step
         count = self._still_count
         if count >= BIAS_MIN_SAMPLES:
             n_used = min(count, k.bias_samples)
             bias = (self._still_totals[-1] - self._still_totals[-1 - n_used]) / n_used
         else:
             bias = k.bias_prior
+        self._prev_f, self._prev_avail = f, avail
         w = (dr - dl) / k.b / dt if dt > 0.0 else 0.0
         if yaw_rate_radps is not None and math.isfinite(yaw_rate_radps):
             w = float(yaw_rate_radps)
