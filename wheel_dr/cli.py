@@ -213,7 +213,7 @@ def _config_dir() -> Path:
 
 
 DEMO_CONFIGS = ("demo_nominal.yaml", "demo_corrected.yaml", "demo_motion_model.yaml", "demo_gyro.yaml")
-DEMO_CACHE_VERSION = 1
+DEMO_CACHE_VERSION = 2
 
 
 def _cmd_demo(args: argparse.Namespace) -> int:

@@ -86,6 +86,7 @@ STANDARD_GRAVITY_MPS2 = 9.80665  # standard acceleration of gravity (3rd CGPM, 1
 BIAS_MIN_SAMPLES = 10            # standing-still samples needed before the bias estimate is used
 MAX_ACCEL_MPS2 = 160.0           # readings beyond this are not readings (MEMS full scale is up to 16 g)
 _CHUNK = 512                     # first chunk of the batch search for the next latch change
+_BLOCK = 16384                   # samples per block of the batch score pass
 
 
 def up_x_from_quaternion(qx, qy, qz, qw):
@@ -192,6 +193,20 @@ def _first_held(cond: np.ndarray, stamp: np.ndarray, delay_ns: int) -> int:
     return int(held[ok[0]]) if len(ok) else -1
 
 
+def _sorted_search(stamp: np.ndarray, target: np.ndarray) -> np.ndarray:
+    """``np.searchsorted(stamp, target, side="right") - 1`` for sorted ``target``, in blocks whose
+    answers lie in a short stretch of ``stamp`` (a cache-resident search; same result)."""
+    m = len(target)
+    out = np.empty(m, dtype=np.int64)
+    for lo in range(0, m, _BLOCK):
+        hi = min(m, lo + _BLOCK)
+        tb = target[lo:hi]
+        a = int(np.searchsorted(stamp, tb[0], side="right"))
+        b = int(np.searchsorted(stamp, tb[-1], side="right"))
+        out[lo:hi] = np.searchsorted(stamp[a:b], tb, side="right") + (a - 1)
+    return out
+
+
 def _search(cond_of, lo: int, m: int, stamp: np.ndarray, delay_ns: int) -> int:
     """First index >= ``lo`` where ``cond_of(lo, hi)`` (a boolean array over [lo, hi)) has held
     ``delay_ns`` since its run began (runs begin at ``lo`` or later), or -1; looks at growing chunks."""
@@ -251,100 +266,157 @@ def detect_motion(stamp_ns: np.ndarray, restart: np.ndarray, dt_s: np.ndarray, d
     counted = np.zeros(m, dtype=np.int64)
     np.cumsum(still[:-1], out=counted[1:])          # readings counted before sample k
     bias = at_still[counted]
-    # yaw rate: gyro where read, else the wheels' step rate
-    safe_dt = np.where(dt > 0.0, dt, 1.0)
-    w = np.where(dt > 0.0, (dr - dl) / k.b / safe_dt, 0.0)
-    if yaw_rate_radps is not None:
-        g = np.asarray(yaw_rate_radps, dtype=np.float64)
-        w = np.where(np.isfinite(g), g, w)
-    alpha = np.where(avail, f - bias + k.lx * (w * w), 0.0)
-    # running sums (sequential, as the streaming totals)
-    a_cum = np.cumsum(alpha * dt)
-    a_obs = a_cum + k.ly * w                       # observer speed offset at each sample
-    a_prev = np.concatenate((a_obs[:1], a_obs[:-1]))
-    b_cum = np.cumsum(0.5 * (a_prev + a_obs) * dt)  # its time integral (trapezoid)
-    s_cum = np.cumsum(0.5 * (dl + dr))
-    v_cum = np.cumsum(_c00(dl, dr, k))
-    q_cum = np.cumsum(dt * dt)
+    g = None if yaw_rate_radps is None else np.asarray(yaw_rate_radps, dtype=np.float64)
     idx = np.arange(m)
-    last_restart = np.maximum.accumulate(np.where(restart, idx, -1))
-    last_miss = np.maximum.accumulate(np.where(avail, -1, idx))
-    # windows (t - window, t]: boundary sample bnd (-1 when none)
-    bnd = np.searchsorted(stamp, stamp - k.window_ns, side="right") - 1
-    has_b = bnd >= 0
-    bi = np.maximum(bnd, 0)
-    span = np.where(has_b, (stamp - stamp[bi]) * 1e-9, 1.0)
-    u = np.where(has_b, (s_cum - s_cum[bi]) / span, 0.0)
-    abar = np.where(has_b, (b_cum - b_cum[bi]) / span, 0.0)
-    var_u = np.where(has_b, (v_cum - v_cum[bi]) / (span * span), 0.0)
-    tol_a = np.where(orient, k.tol_a, k.tol_a_level)
+    # windows (t - window, t]: boundary sample bnd (-1 when none); anchors at the horizon
+    bnd = _sorted_search(stamp, stamp - k.window_ns)
+    horizon = _sorted_search(stamp, stamp - k.horizon_ns)
     cmd = None if inputs.cmd_v_mps is None else np.asarray(inputs.cmd_v_mps, dtype=np.float64)
-    horizon = np.searchsorted(stamp, stamp - k.horizon_ns, side="right") - 1
+    # per-sample arrays, filled block by block (a block reads earlier samples' values: bnd, anchors)
+    a_obs, b_cum, s_cum, v_cum, q_cum = (np.empty(m) for _ in range(5))
+    u, wd, var_u = np.empty(m), np.empty(m), np.empty(m)
+    lim = np.empty(m, dtype=np.int64)
+    tol_a = np.where(orient, k.tol_a, k.tol_a_level)
+    z = np.empty(m)
+    zc = None if cmd is None else np.empty(m)
+    carry = [0.0, 0.0, 0.0, 0.0, 0.0]              # running sums of alpha dt, A dt, ds, var(ds), dt^2
+    prev_a, last_r, last_m = None, -1, -1
 
-    def scores(at: np.ndarray, anchor: np.ndarray):
-        """Accelerometer score, observer distance and command score of samples ``at`` with ``anchor``."""
-        a = np.clip(anchor, 0, m - 1)
-        ba = bnd[a]
-        ok = ((anchor >= 0) & (anchor < at) & has_b[a] & (last_restart[at] <= ba) & (last_miss[at] < ba))
-        du = u[at] - u[a]
-        dv = abar[at] - abar[a]
-        d = du - dv
-        big_d = (stamp[at] - stamp[a]) * 1e-9
-        ta = tol_a[at] * big_d
-        var_acc = k.qa * (q_cum[at] - q_cum[a]) + ta * ta
-        var_w = var_u[at] + var_u[a]
-        var = var_w + var_acc + k.tol_s2 * (du * du) + k.tol_v2
-        z = np.where(ok, np.abs(d) / np.sqrt(np.where(ok, var, 1.0) * k.gate), 0.0)
-        ds = np.where(ok, (u[a] - abar[a]) * dt[at] + 0.5 * (a_prev[at] + a_obs[at]) * dt[at], np.nan)
-        if cmd is None:
-            zc = np.zeros(len(at))
+    def cum(x: np.ndarray, i: int) -> np.ndarray:
+        """Sequential running sum continuing carry[i] (the carry leads, so the additions are the
+        streaming form's)."""
+        out = np.cumsum(np.concatenate(((carry[i],), x)))[1:]
+        carry[i] = float(out[-1])
+        return out
+
+    def scores(lo: int, hi: int, anchor: np.ndarray | int):
+        """Accelerometer and command scores of samples [lo, hi) with ``anchor`` (array or one index)."""
+        at = slice(lo, hi)
+        if isinstance(anchor, np.ndarray):
+            def get(x: np.ndarray) -> np.ndarray:
+                return np.take(x, anchor, mode="clip")        # -1 reads sample 0; ``ok`` is False there
+            ok = lim[at] <= get(bnd)
         else:
-            dc = cmd[at] - cmd[a]
-            okc = ok & np.isfinite(dc)
-            dc = np.where(okc, dc, 0.0)
-            rw, ri = du - dc, dv - dc
-            vw = var_w + k.tol_s2 * (du * du) + k.tol_v2 + k.tol_c2
-            vi = var_acc + k.tol_s2 * (dv * dv) + k.tol_v2 + k.tol_c2
-            zw = np.where(okc, np.abs(rw) / np.sqrt(np.where(okc, vw, 1.0) * k.gate), 0.0)
-            zi = np.where(okc, np.abs(ri) / np.sqrt(np.where(okc, vi, 1.0) * k.gate), 0.0)
-            zc = np.maximum(np.where(zw <= 1.0, zi, 0.0), np.where(zi <= 1.0, zw, 0.0))
-        return z, ds, zc
+            a1 = min(max(anchor, 0), m - 1)
 
-    z_free, ds_free, zc_free = scores(idx, horizon)
-    z, ds_obs, zc = z_free.copy(), ds_free.copy(), zc_free.copy()
-    flag = np.zeros(m, dtype=bool)
-    pos, jmin = 0, -1
-    while pos < m:
-        # free: anchors at the horizon, but not before jmin (the first clean window after a flag)
-        bind_end = min(m, max(pos, int(np.searchsorted(horizon, jmin, side="left")))) if jmin >= 0 else pos
-        if bind_end > pos:
-            at = idx[pos:bind_end]
-            z[pos:bind_end], ds_obs[pos:bind_end], zc[pos:bind_end] = scores(at, np.full(len(at), jmin))
-        i1 = _search(lambda lo, hi: z[lo:hi] > 1.0, pos, m, stamp, k.set_ns)
-        if i1 < 0:
-            break
-        flag[i1] = True
-        # frozen anchor from i1 + 1 until the latch clears
-        af = max(int(horizon[i1]), jmin)
-        touched = [i1 + 1]
+            def get(x: np.ndarray):
+                return x[a1]
+            ok = (lim[at] <= bnd[a1]) & (anchor >= 0) & (anchor < idx[at])
+        d = wd[at] - get(wd)
+        du = u[at] - get(u)
+        ta = tol_a[at] * ((stamp[at] - get(stamp)) * 1e-9)
+        var_acc = k.qa * (q_cum[at] - get(q_cum)) + ta * ta
+        var_w = var_u[at] + get(var_u)
+        var = var_w + var_acc + k.tol_s2 * (du * du) + k.tol_v2
+        z = np.abs(d) / np.sqrt(var * k.gate)
+        z[~ok] = 0.0
+        if cmd is None:
+            return z, None
+        dc = cmd[at] - get(cmd)
+        okc = ok & np.isfinite(dc)
+        dv = du - d
+        rw, ri = du - dc, dv - dc
+        vw = var_w + k.tol_s2 * (du * du) + k.tol_v2 + k.tol_c2
+        vi = var_acc + k.tol_s2 * (dv * dv) + k.tol_v2 + k.tol_c2
+        zw = np.abs(rw) / np.sqrt(vw * k.gate)
+        zi = np.abs(ri) / np.sqrt(vi * k.gate)
+        zc = np.maximum(np.where(zw <= 1.0, zi, 0.0), np.where(zi <= 1.0, zw, 0.0))
+        zc[~okc] = 0.0
+        return z, zc
 
-        def frozen(lo: int, hi: int) -> np.ndarray:
-            touched[0] = max(touched[0], hi)
-            at = idx[lo:hi]
-            z[lo:hi], ds_obs[lo:hi], zc[lo:hi] = scores(at, np.full(len(at), af))
-            return z[lo:hi] < k.clear_fraction
+    for lo in range(0, m, _BLOCK):
+        hi = min(m, lo + _BLOCK)
+        sl = slice(lo, hi)
+        dtb, dlb, drb = dt[sl], dl[sl], dr[sl]
+        # yaw rate: gyro where read, else the wheels' step rate
+        pos_dt = dtb > 0.0
+        w = np.where(pos_dt, (drb - dlb) / k.b / np.where(pos_dt, dtb, 1.0), 0.0)
+        if g is not None:
+            gb = g[sl]
+            w = np.where(np.isfinite(gb), gb, w)
+        alpha = np.where(avail[sl], f[sl] - bias[sl] + k.lx * (w * w), 0.0)
+        ao = cum(alpha * dtb, 0) + k.ly * w        # observer speed offset at each sample
+        a_obs[sl] = ao
+        ap = np.concatenate(((ao[0] if prev_a is None else prev_a,), ao[:-1]))
+        prev_a = float(ao[-1])
+        b_cum[sl] = cum(0.5 * (ap + ao) * dtb, 1)  # its time integral (trapezoid)
+        s_cum[sl] = cum(0.5 * (dlb + drb), 2)
+        v_cum[sl] = cum(_c00(dlb, drb, k), 3)
+        q_cum[sl] = cum(dtb * dtb, 4)
+        # a window pair (anchor a, sample k) is usable when no restart lies after a's boundary and
+        # no missing reading at or after it: lim[k] <= bnd[a]
+        ib = idx[sl]
+        lr = np.maximum.accumulate(np.where(restart[sl], ib, last_r))
+        lm = np.maximum.accumulate(np.where(avail[sl], last_m, ib))
+        last_r, last_m = int(lr[-1]), int(lm[-1])
+        lim[sl] = np.maximum(lr, lm + 1)
+        bb = bnd[sl]
+        bi = np.maximum(bb, 0)
+        span = np.where(bb >= 0, (stamp[sl] - stamp[bi]) * 1e-9, 1.0)
+        ub = (s_cum[sl] - s_cum[bi]) / span
+        u[sl] = ub
+        wd[sl] = ub - (b_cum[sl] - b_cum[bi]) / span   # wheel minus observer window mean
+        var_u[sl] = (v_cum[sl] - v_cum[bi]) / (span * span)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            zb, cb = scores(lo, hi, horizon[sl])
+        z[sl] = zb
+        if zc is not None:
+            zc[sl] = cb
 
-        i2 = _search(frozen, i1 + 1, m, stamp, k.clear_ns)
-        if i2 < 0:
-            flag[i1 + 1:] = True
-            break
-        flag[i1 + 1:i2] = True
-        # the free regime resumes after i2 with anchors whose window lies wholly after i2
-        jmin = int(np.searchsorted(bnd, i2, side="left"))
-        back = slice(i2 + 1, touched[0])
-        z[back], ds_obs[back], zc[back] = z_free[back], ds_free[back], zc_free[back]
-        pos = i2 + 1
-    ds_obs = np.where(flag, ds_obs, np.nan)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        z_free, zc_free = z.copy(), (None if zc is None else zc.copy())
+        anc = horizon.copy()
+        flag = np.zeros(m, dtype=bool)
+        pos, jmin = 0, -1
+        while pos < m:
+            # free: anchors at the horizon, but not before jmin (the first clean window after a flag)
+            bind_end = min(m, max(pos, int(np.searchsorted(horizon, jmin, side="left")))) if jmin >= 0 else pos
+            if bind_end > pos:
+                zb, cb = scores(pos, bind_end, jmin)
+                z[pos:bind_end] = zb
+                if cmd is not None:
+                    zc[pos:bind_end] = cb
+                anc[pos:bind_end] = jmin
+            i1 = _search(lambda lo, hi: z[lo:hi] > 1.0, pos, m, stamp, k.set_ns)
+            if i1 < 0:
+                break
+            flag[i1] = True
+            # frozen anchor from i1 + 1 until the latch clears
+            af = int(anc[i1])
+            reach = [i1 + 1]
+
+            def frozen(lo: int, hi: int) -> np.ndarray:
+                reach[0] = max(reach[0], hi)
+                zf, cf = scores(lo, hi, af)
+                z[lo:hi] = zf
+                if cmd is not None:
+                    zc[lo:hi] = cf
+                return zf < k.clear_fraction
+
+            i2 = _search(frozen, i1 + 1, m, stamp, k.clear_ns)
+            if i2 < 0:
+                flag[i1 + 1:] = True
+                anc[i1 + 1:] = af
+                break
+            flag[i1 + 1:i2] = True
+            anc[i1 + 1:i2 + 1] = af
+            # the free regime resumes after i2 with anchors whose window lies wholly after i2
+            back = slice(i2 + 1, reach[0])
+            z[back] = z_free[back]
+            if cmd is not None:
+                zc[back] = zc_free[back]
+            jmin = int(np.searchsorted(bnd, i2, side="left"))
+            pos = i2 + 1
+    # the observer's distance of flagged samples: (u(a) - Abar(a)) dt + the step's integral of A
+    ds_obs = np.full(m, np.nan)
+    fi = np.flatnonzero(flag)
+    if len(fi):
+        a = anc[fi]
+        ok = (a >= 0) & (lim[fi] <= bnd[np.maximum(a, 0)]) & (a < fi)
+        ds = wd[np.maximum(a, 0)] * dt[fi] + 0.5 * (a_obs[np.maximum(fi - 1, 0)] + a_obs[fi]) * dt[fi]
+        ds_obs[fi] = np.where(ok, ds, np.nan)
+    if zc is None:
+        zc = np.zeros(m)
     return MotionResult(flag, np.zeros(m, dtype=bool), z, zc, ds_obs, bias)
 
 
@@ -354,7 +426,7 @@ def detect_motion(stamp_ns: np.ndarray, restart: np.ndarray, dt_s: np.ndarray, d
 class _E:
     """One sample's running totals and window values."""
 
-    __slots__ = ("stamp", "seq", "s", "b", "v", "q", "u", "abar", "var_u", "has_b", "bnd_seq", "cmd")
+    __slots__ = ("stamp", "seq", "s", "b", "v", "q", "u", "wd", "var_u", "has_b", "bnd_seq", "cmd")
 
 
 class MotionMonitor:
@@ -391,20 +463,19 @@ class MotionMonitor:
         if a is None or not at_ok or a.seq >= e.seq or not a.has_b or self._last_restart > a.bnd_seq \
                 or self._last_miss >= a.bnd_seq:
             return 0.0, math.nan, 0.0
+        d = e.wd - a.wd
         du = e.u - a.u
-        dv = e.abar - a.abar
-        d = du - dv
-        big_d = (e.stamp - a.stamp) * 1e-9
-        ta = tol_a * big_d
+        ta = tol_a * ((e.stamp - a.stamp) * 1e-9)
         var_acc = k.qa * (e.q - a.q) + ta * ta
         var_w = e.var_u + a.var_u
         var = var_w + var_acc + k.tol_s2 * (du * du) + k.tol_v2
         z = abs(d) / math.sqrt(var * k.gate)
-        ds = (a.u - a.abar) * dt + 0.5 * (a_prev + a_obs) * dt
+        ds = a.wd * dt + 0.5 * (a_prev + a_obs) * dt
         zc = 0.0
         if e.cmd is not None and a.cmd is not None:
             dc = e.cmd - a.cmd
             if math.isfinite(dc):
+                dv = du - d
                 rw, ri = du - dc, dv - dc
                 vw = var_w + k.tol_s2 * (du * du) + k.tol_v2 + k.tol_c2
                 vi = var_acc + k.tol_s2 * (dv * dv) + k.tol_v2 + k.tol_c2
@@ -486,12 +557,12 @@ class MotionMonitor:
             self._bnd = win.popleft()
         bnd = self._bnd
         if bnd is None:
-            e.has_b, e.bnd_seq, e.u, e.abar, e.var_u = False, -1, 0.0, 0.0, 0.0
+            e.has_b, e.bnd_seq, e.u, e.wd, e.var_u = False, -1, 0.0, 0.0, 0.0
         else:
             span = (e.stamp - bnd.stamp) * 1e-9
             e.has_b, e.bnd_seq = True, bnd.seq
             e.u = (e.s - bnd.s) / span
-            e.abar = (e.b - bnd.b) / span
+            e.wd = e.u - (e.b - bnd.b) / span
             e.var_u = (e.v - bnd.v) / (span * span)
         hor = self._hor
         hor.append(e)
