@@ -86,7 +86,7 @@ STANDARD_GRAVITY_MPS2 = 9.80665  # standard acceleration of gravity (3rd CGPM, 1
 BIAS_MIN_SAMPLES = 10            # standing-still samples needed before the bias estimate is used
 MAX_ACCEL_MPS2 = 160.0           # readings beyond this are not readings (MEMS full scale is up to 16 g)
 _CHUNK = 512                     # first chunk of the batch search for the next latch change
-_BLOCK = 16384                   # samples per block of the batch score pass
+_BLOCK = 8192                    # samples per block of the batch pass (cache-sized)
 
 
 def up_x_from_quaternion(qx, qy, qz, qw):
