@@ -205,6 +205,34 @@ def motion_speed(n_stream: int = 20_000) -> None:
     print(f"  MotionMonitor.step alone (the detectors' own work per step): {min(own) * 1e6:.1f} us")
 
 
+def motion_figures(seeds=(11, 12, 13, 14)) -> None:
+    """Detection figures of the accelerometer detector on simulator drives (fresh seeds, not the
+    tests'): both-wheel spin and drag 40 % with 0.5 s onsets, held bases, and the hard cases."""
+    import test_slip_motion as tm
+    from wheel_dr.core.slip import DETECTOR_ACCEL, DETECTOR_COMMAND
+    from wheel_dr.sim import simulate
+
+    print(f"accelerometer detector on simulator drives (seeds {', '.join(map(str, seeds))}):")
+    for kind, ratio in (("spin", tm.SPIN_40), ("drag", tm.DRAG_40)):
+        rec, false = [], []
+        for sd in seeds:
+            sc = tm._straights_with_events(sd, kind, ratio)
+            sim = simulate(sc, sd)
+            r, f, _ = tm._recall_after(tm._run(sim, tm._settings(sc), cmd=False), sim, 0.7)
+            rec.append(r)
+            false.append(f)
+        print(f"  both wheels {kind} 40 %, 0.5 s onset: recall from 0.7 s min {min(rec):.3f}, "
+              f"false flags max {max(false):.4f}")
+    for name, (build, values, orient) in tm.HARD.items():
+        worst = 0.0
+        for sd in seeds:
+            sc = build(sd)
+            sim = simulate(sc, sd)
+            traj = tm._run(sim, tm._settings(sc, **values), orientation=orient)
+            worst = max(worst, float(np.mean((traj.slip.detector & (DETECTOR_ACCEL | DETECTOR_COMMAND)) > 0)))
+        print(f"  hard case {name}: flagged fraction max {worst:.4f} (target <= 0.01)")
+
+
 def _timed(fn) -> float:
     t = time.perf_counter()
     fn()
@@ -224,6 +252,8 @@ def main() -> int:
     print()
     if args.speed_only:
         return 0
+    motion_figures()
+    print()
     print(f"seeds {', '.join(map(str, seeds))} ({'tuning' if args.tuning else 'held out'}), default settings, "
           "Quokka nominal geometry, 90 s rounds with 5 slip events each\n")
     family("with IMU (gyro, traction)", lambda sd: random_drive(sd), seeds)
