@@ -580,6 +580,55 @@ def test_diagnostics_report_counters_rate_settings_and_sim_time(node_run: dict[s
     _wait(lambda: int(probe.next_diag()[3]["imu_received"]) - imu_before == 5, 10, "five IMU messages counted")
 
 
+def test_wheels_speeding_up_while_the_accelerometer_reads_nothing_are_flagged(node_run: dict[str, Any]) -> None:
+    """A lifted base: the wheels spin up to 0.5 m/s while the IMU's x acceleration stays at zero
+    (level, gyro quiet). The node parses Imu linear_acceleration and flags the accelerometer
+    detector (bit 8 of the flags' detector field, wheel_dr.core.slip_motion); a cmd_vel Twist is
+    subscribed by type once it is published. Samples before the spin-up are not flagged."""
+    from geometry_msgs.msg import Twist
+
+    probe = node_run["probe"]
+    pub_cmd = probe.node.create_publisher(Twist, f"{NS}/cmd_vel", 10)
+    imu = probe.Imu()
+    imu.header.frame_id = "imu_link"
+    imu.orientation_covariance[0] = -1.0          # orientation unknown
+    imu.angular_velocity_covariance[0] = 1e-4
+    imu.linear_acceleration_covariance[0] = 4e-4
+    imu.linear_acceleration.z = 9.80665
+    cmd = Twist()
+    probe.stamp_ns += 1_000_000_000
+    angle, speed, stamps = 0.0, 0.0, []
+    start = time.monotonic()
+    for k in range(300):                          # 1.5 s still, then 0.5 s at 1 m/s^2, then 1 s cruise
+        t = k * DT_NS * 1e-9
+        speed = 0.0 if t < 1.5 else min(0.5, (t - 1.5) * 1.0)
+        angle += speed / RADIUS_M * DT_NS * 1e-9
+        probe.stamp_ns += DT_NS
+        imu.header.stamp.sec, imu.header.stamp.nanosec = divmod(probe.stamp_ns, 1_000_000_000)
+        probe.pub_imu.publish(imu)
+        cmd.linear.x = 0.0 if t < 1.5 else 0.5
+        if k % 5 == 0:
+            pub_cmd.publish(cmd)
+        probe.pub_js.publish(probe.js(probe.stamp_ns, [LEFT, RIGHT], [angle, angle]))
+        stamps.append(probe.stamp_ns)
+        delay = start + (k + 1) * 0.01 - time.monotonic()
+        if delay > 0:
+            time.sleep(delay)
+    last = probe.wait_flag(stamps[-1])
+    col = FLAG_FIELDS.index("detector")
+    with probe.lock:
+        rows = {int(f.data[0]) * 1_000_000_000 + int(f.data[1]): list(f.data) for f in probe.flags[-400:]}
+    before = [rows[s] for s in stamps[:140] if s in rows]
+    after = [rows[s] for s in stamps[220:] if s in rows]
+    assert before and after
+    assert not any(int(r[col]) & 8 for r in before)
+    assert sum(1 for r in after if int(r[col]) & 8 and r[FLAG_FIELDS.index("slip")] == 1.0) >= 0.9 * len(after)
+    assert int(last[col]) & 8
+    diag = probe.next_diag()[3]
+    assert diag["imu_acceleration"] == "read" and "8 accel" in diag["slip_detector_bits"]
+    probe.node.destroy_publisher(pub_cmd)
+
+
 def test_sigterm_ends_the_node_cleanly(node_run: dict[str, Any]) -> None:
     """SIGTERM: exit code 0, no traceback (runs last in this module)."""
     proc = node_run["proc"]
@@ -643,3 +692,4 @@ def test_without_tf2_msgs_the_node_runs_with_tf_disabled(tmp_path: Path, ros_env
     assert text.count("TF output disabled") == 1 and "TF off" in text
     assert "served by the general executor" in text
     assert "Traceback" not in text
+

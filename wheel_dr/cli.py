@@ -108,7 +108,8 @@ def _scenario(args: argparse.Namespace):
     if args.no_slip:
         fields.update(slip_events=(), floor_patches=())
     if args.no_noise:
-        fields.update(k_left_m=0.0, k_right_m=0.0, gyro_noise_sd_radps=0.0, gyro_bias_radps=0.0)
+        fields.update(k_left_m=0.0, k_right_m=0.0, gyro_noise_sd_radps=0.0, gyro_bias_radps=0.0,
+                      accel_noise_sd_mps2=0.0, accel_bias_mps2=0.0)
     return sc.with_values(**fields) if fields else sc
 
 
@@ -211,7 +212,7 @@ def _config_dir() -> Path:
 
 
 DEMO_CONFIGS = ("demo_nominal.yaml", "demo_corrected.yaml", "demo_motion_model.yaml", "demo_gyro.yaml")
-DEMO_CACHE_VERSION = 1
+DEMO_CACHE_VERSION = 2
 
 
 def _cmd_demo(args: argparse.Namespace) -> int:
@@ -268,7 +269,8 @@ def build_parser(command: str | None = None) -> argparse.ArgumentParser:
 
     p = sub.add_parser("synth", help="simulate a drive and write it as a real bag",
                        description="Simulate a differential-drive run (the invented 'Quokka' cart) and write a bag: "
-                       "/joint_states, /imu (gyro with bias and noise), /ground_truth (nav_msgs/Odometry), "
+                       "/joint_states, /imu (gyro and accelerometer with bias and noise, orientation), /cmd_vel "
+                       "(geometry_msgs/Twist, the commanded speed), /ground_truth (nav_msgs/Odometry), "
                        "/robot_description (URDF, nominal geometry) and /ground_truth/slip (true slip intervals, "
                        "diagnostic_msgs/DiagnosticArray). True radii and track differ from nominal. "
                        "Deterministic for a given --seed.")
@@ -284,7 +286,7 @@ def build_parser(command: str | None = None) -> argparse.ArgumentParser:
     p.add_argument("--duration", type=float, default=600.0, help="length of the varied drive in s (default 600)")
     p.add_argument("--truth-stride", type=int, default=5, help="ground truth every n-th joint sample (default 5)")
     p.add_argument("--no-slip", action="store_true", help="no slip events")
-    p.add_argument("--no-noise", action="store_true", help="no random wheel error and a perfect gyro")
+    p.add_argument("--no-noise", action="store_true", help="no random wheel error and a perfect gyro and accelerometer")
     p.add_argument("--overwrite", action="store_true", help="replace an existing output")
     p.set_defaults(func=_cmd_synth)
 

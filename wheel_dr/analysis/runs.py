@@ -104,7 +104,11 @@ def replay_run(data: RunData, sf: SettingsFile) -> ReplayResult:
     """Run the core over a decoded bag with one settings file (gyro held per sample when present)."""
     t0 = time.perf_counter()
     settings, notes = settings_for_run(sf, data)
-    traj = run(data.samples, settings, gyro_z_radps=data.gyro_z_radps)
+    cmd = data.cmd_v_mps
+    if cmd is not None and data.cmd_age_s is not None:
+        cmd = np.where(data.cmd_age_s <= settings.slip.command_timeout_s, cmd, np.nan)   # stale commands count as none
+    traj = run(data.samples, settings, gyro_z_radps=data.gyro_z_radps, accel_x_mps2=data.accel_x_mps2,
+               up_x=data.up_x, cmd_v_mps=cmd)
     if len(traj) == 0:
         raise InputError(f"no joint-state sample of '{data.path}' could be used (every one was skipped: "
                          f"{', '.join(f'{k} {v}' for k, v in traj.counters.items() if v)}); check the joint names "

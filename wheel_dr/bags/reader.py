@@ -37,6 +37,7 @@ POSE_TYPES = ("nav_msgs/msg/Odometry", "geometry_msgs/msg/PoseStamped", "geometr
 TF_TYPE = "tf2_msgs/msg/TFMessage"
 STRING_TYPE = "std_msgs/msg/String"
 DIAG_TYPE = "diagnostic_msgs/msg/DiagnosticArray"
+CMD_TYPES = ("geometry_msgs/msg/Twist", "geometry_msgs/msg/TwistStamped")
 
 
 BagError = _errors.BagError                # defined with every other error in wheel_dr.core.errors
@@ -102,6 +103,11 @@ class RunData:
     decode: str                        # 'bulk' or 'per-message'
     stamps_from: str                   # 'header' or 'record time'
     gyro_z_radps: np.ndarray | None = None
+    accel_x_mps2: np.ndarray | None = None   # (N,) accelerometer x held, NaN where unknown (covariance[0] -1)
+    up_x: np.ndarray | None = None           # (N,) up axis' x component from the IMU orientation, NaN where unknown
+    cmd_v_mps: np.ndarray | None = None      # (N,) commanded speed held (cmd_vel linear.x), NaN before the first
+    cmd_age_s: np.ndarray | None = None      # (N,) age of that command at each joint stamp
+    cmd_topic: str | None = None
     imu_topic: str | None = None
     imu_count: int = 0
     truth: PlanarPath | None = None
@@ -311,6 +317,50 @@ def _decode_gyro(reader: AnyReader, raws: list[bytes], msgtype: str, ros1: bool)
         st.append(m.header.stamp.sec * 1_000_000_000 + m.header.stamp.nanosec)
         wz.append(m.angular_velocity.z)
     return np.asarray(st, dtype=np.int64), np.asarray(wz, dtype=np.float64)
+
+
+def _decode_imu_motion(reader: AnyReader, raws: list[bytes], msgtype: str, ros1: bool):
+    """(stamp_ns, accel_x (NaN where unknown), up_x (NaN where no orientation)) of an Imu topic."""
+    from ..core.slip_motion import up_x_from_quaternion
+
+    bulk = codec.bulk_imu(raws, ros1)
+    if bulk is not None:
+        ref = reader.deserialize(bytes(raws[0]), msgtype)
+        if not (ref.linear_acceleration.x == bulk["linear_acceleration"][0, 0]
+                or math.isnan(ref.linear_acceleration.x)):
+            bulk = None
+    if bulk is None:
+        st, acc, q, acov, ocov = [], [], [], [], []
+        for raw in raws:
+            m = reader.deserialize(bytes(raw), msgtype)
+            st.append(m.header.stamp.sec * 1_000_000_000 + m.header.stamp.nanosec)
+            acc.append(m.linear_acceleration.x)
+            o = m.orientation
+            q.append((o.x, o.y, o.z, o.w))
+            acov.append(m.linear_acceleration_covariance[0])
+            ocov.append(m.orientation_covariance[0])
+        bulk = {"stamp_ns": np.asarray(st, dtype=np.int64), "linear_acceleration": np.asarray(acc)[:, None],
+                "orientation": np.asarray(q, dtype=np.float64).reshape(-1, 4),
+                "linear_acceleration_cov0": np.asarray(acov), "orientation_cov0": np.asarray(ocov)}
+    ax = np.where(bulk["linear_acceleration_cov0"] == -1.0, np.nan, bulk["linear_acceleration"][:, 0])
+    q = bulk["orientation"]
+    up = np.where(bulk["orientation_cov0"] == -1.0, np.nan, up_x_from_quaternion(q[:, 0], q[:, 1], q[:, 2], q[:, 3]))
+    return bulk["stamp_ns"], ax.astype(np.float64), up.astype(np.float64)
+
+
+def _decode_cmd(reader: AnyReader, raws: list[bytes], times: Sequence[int], msgtype: str):
+    """(stamp_ns, linear.x) of a Twist (record times) or TwistStamped (header stamps) topic."""
+    st, vx = [], []
+    for raw, rec in zip(raws, times):
+        m = reader.deserialize(bytes(raw), msgtype)
+        if hasattr(m, "twist"):
+            stamp = m.header.stamp.sec * 1_000_000_000 + m.header.stamp.nanosec
+            st.append(stamp if stamp > 0 else int(rec))
+            vx.append(m.twist.linear.x)
+        else:
+            st.append(int(rec))
+            vx.append(m.linear.x)
+    return np.asarray(st, dtype=np.int64), np.asarray(vx, dtype=np.float64)
 
 
 def _decode_poses(reader: AnyReader, raws: list[bytes], msgtype: str, ros1: bool) -> PlanarPath:
@@ -531,11 +581,14 @@ def read_run(path: str | os.PathLike, joint_topic: str | None = None, imu_topic:
                            f"'{p}'; fix --slip-topic.")
         desc = sorted(t for t, typ in types.items() if typ == STRING_TYPE and t.endswith("robot_description"))
         ut = desc[0] if desc else None
+        cmds = sorted(t for t, typ in types.items() if typ in CMD_TYPES and t.endswith("cmd_vel"))
+        ct = cmds[0] if len(cmds) == 1 and use_imu else None
 
-        wanted = [t for t in (jt, it, truth_topic, st_topic, ut) if t] + tf_topics
+        wanted = [t for t in (jt, it, truth_topic, st_topic, ut, ct) if t] + tf_topics
         sel = [c for t in wanted for c in conns[t]]
         buckets: dict[str, list] = {t: [] for t in wanted}
         record: list[int] = []
+        cmd_record: list[int] = []
         try:
             fast = None
             if not ros1:
@@ -548,6 +601,8 @@ def read_run(path: str | os.PathLike, joint_topic: str | None = None, imu_topic:
                     buckets[t] = raws
                     if t == jt:
                         record = times.tolist()
+                    elif t == ct:
+                        cmd_record = times.tolist()
                 rest = [c for c in sel if c.topic in tf_topics]
             else:
                 rest = sel
@@ -556,6 +611,9 @@ def read_run(path: str | os.PathLike, joint_topic: str | None = None, imu_topic:
                 if t == jt:
                     buckets[t].append(raw)
                     record.append(ts)
+                elif t == ct:
+                    buckets[t].append(raw)
+                    cmd_record.append(ts)
                 elif t in tf_topics:
                     buckets[t].append((raw, c.msgtype))
                 else:
@@ -578,6 +636,15 @@ def read_run(path: str | os.PathLike, joint_topic: str | None = None, imu_topic:
                 run.gyro_z_radps = _hold(g_st, g_wz, samples.stamp_ns)
                 run.imu_topic = it
                 run.imu_count = len(g_st)
+                a_st, a_x, a_up = _decode_imu_motion(reader, buckets[it], IMU_TYPE, ros1)
+                if np.isfinite(a_x).any():
+                    run.accel_x_mps2 = _hold(a_st, a_x, samples.stamp_ns)
+                    run.up_x = _hold(a_st, a_up, samples.stamp_ns)
+            if ct and len(buckets[ct]):
+                c_st, c_v = _decode_cmd(reader, buckets[ct], cmd_record, types[ct])
+                run.cmd_v_mps = _hold(c_st, c_v, samples.stamp_ns)
+                run.cmd_age_s = (samples.stamp_ns - _hold(c_st, c_st.astype(np.float64), samples.stamp_ns)) * 1e-9
+                run.cmd_topic = ct
             if truth_topic:
                 run.truth = _decode_poses(reader, buckets[truth_topic], types[truth_topic], ros1)
                 run.truth_source = f"topic {truth_topic} ({types[truth_topic].replace('/msg/', '/')})"

@@ -19,6 +19,7 @@ from .motion import body_increment, integrate, pose_increment_scalar, wrap_angle
 from .noise import UNOBSERVED_VARIANCE, increment_noise, increment_noise_scalar, propagate_covariance, propagate_step
 from .settings import Settings
 from .slip import SlipMonitor, SlipResult, SlipStep, detect_slip
+from .slip_motion import MotionInputs
 from .wheels import JointSamples, SampleStatus, Travel, TravelTracker, count_statuses, wheel_travel
 
 __all__ = ["Trajectory", "run", "run_travel", "Estimator"]
@@ -68,22 +69,35 @@ class Trajectory:
 
 
 def run(samples: JointSamples, settings: Settings, start_pose: Sequence[float] = (0.0, 0.0, 0.0),
-        start_cov: np.ndarray | None = None, gyro_z_radps: np.ndarray | None = None) -> Trajectory:
-    """Estimate over a whole run. ``gyro_z_radps`` (N,), if given, is the IMU z rate held at each sample."""
+        start_cov: np.ndarray | None = None, gyro_z_radps: np.ndarray | None = None,
+        accel_x_mps2: np.ndarray | None = None, up_x: np.ndarray | None = None,
+        cmd_v_mps: np.ndarray | None = None) -> Trajectory:
+    """Estimate over a whole run. ``gyro_z_radps`` (N,), if given, is the IMU z rate held at each sample;
+    ``accel_x_mps2``, ``up_x`` and ``cmd_v_mps`` (N,) the accelerometer x reading, the up axis' x
+    component (``slip_motion.up_x_from_quaternion``) and the commanded speed, NaN where unknown."""
     travel = wheel_travel(samples, settings)
-    gyro = None if gyro_z_radps is None else np.asarray(gyro_z_radps, dtype=np.float64)[travel.index]
-    return run_travel(travel, settings, start_pose, start_cov, gyro)
+
+    def pick(a: np.ndarray | None) -> np.ndarray | None:
+        return None if a is None else np.asarray(a, dtype=np.float64)[travel.index]
+
+    return run_travel(travel, settings, start_pose, start_cov, pick(gyro_z_radps), pick(accel_x_mps2),
+                      pick(up_x), pick(cmd_v_mps))
 
 
 def run_travel(travel: Travel, settings: Settings, start_pose: Sequence[float] = (0.0, 0.0, 0.0),
-               start_cov: np.ndarray | None = None, gyro_z_radps: np.ndarray | None = None) -> Trajectory:
-    """Estimate from wheel travel already computed (gyro given per accepted sample)."""
+               start_cov: np.ndarray | None = None, gyro_z_radps: np.ndarray | None = None,
+               accel_x_mps2: np.ndarray | None = None, up_x: np.ndarray | None = None,
+               cmd_v_mps: np.ndarray | None = None) -> Trajectory:
+    """Estimate from wheel travel already computed (IMU and command given per accepted sample)."""
     b = settings.wheels.track_width
     dl, dr, dt = travel.ds_left_m, travel.ds_right_m, travel.dt_s
     ds, dth = body_increment(dl, dr, b)
-    slip = detect_slip(travel, gyro_z_radps, settings)
+    motion = None if accel_x_mps2 is None else MotionInputs(accel_x_mps2, up_x, cmd_v_mps)
+    slip = detect_slip(travel, gyro_z_radps, settings, motion)
     if slip.dtheta_rad is not None:
         dth = slip.dtheta_rad
+    if slip.ds_m is not None:
+        ds = slip.ds_m
     scheme = settings.integration
     x, y, theta, theta_before, _, _ = integrate(ds, dth, scheme, tuple(start_pose))
     n = settings.noise
@@ -145,8 +159,13 @@ class Estimator:
 
     # -- one sample ------------------------------------------------------------------------------
     def step(self, stamp_ns: int, names: Sequence[str], positions: Sequence[float],
-             velocities: Sequence[float], gyro_z_radps: float | None = None) -> SampleStatus:
-        """Process one joint-state sample; returns its status (skipped kinds leave the state as it was)."""
+             velocities: Sequence[float], gyro_z_radps: float | None = None, accel_x_mps2: float | None = None,
+             up_x: float | None = None, cmd_v_mps: float | None = None) -> SampleStatus:
+        """Process one joint-state sample; returns its status (skipped kinds leave the state as it was).
+
+        ``accel_x_mps2`` (m/s^2), ``up_x`` and ``cmd_v_mps`` (m/s) are the latest accelerometer x
+        reading, the up axis' x component from the IMU orientation and the commanded speed (None: unknown).
+        """
         status, dt, dl, dr = self._tracker.step(stamp_ns, names, positions, velocities)
         self.counters[status.name.lower()] += 1
         if status >= 10:
@@ -155,10 +174,12 @@ class Estimator:
         b = s.wheels.track_width
         restart = status != SampleStatus.USED
         ds, dth = body_increment(dl, dr, b)
-        slip = self._slip.step(self._tracker, status, dt, dl, dr, gyro_z_radps)
+        slip = self._slip.step(self._tracker, status, dt, dl, dr, gyro_z_radps, accel_x_mps2, up_x, cmd_v_mps)
         self.last_slip = slip
         if slip.dtheta_rad is not None:
             dth = slip.dtheta_rad
+        if slip.ds_m is not None:
+            ds = slip.ds_m
         theta = self.theta_rad
         dx, dy = pose_increment_scalar(theta, ds, dth, s.integration)
         n = s.noise

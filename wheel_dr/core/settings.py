@@ -22,6 +22,7 @@ __all__ = [
     "LimitSettings",
     "SlipSettings",
     "OutputSettings",
+    "ImuSettings",
     "Settings",
     "INTEGRATION_SCHEMES",
     "NOISE_MODELS",
@@ -238,6 +239,27 @@ class SlipSettings:
     inflate_factor: float = _p(100.0, "Factor on the step noise (and twist covariance) of flagged samples "
                                "for the 'inflate' response, and in 'gyro' for samples without a gyro "
                                "reading.", "", 1.0, 1e9)
+    accel_horizon_s: float = _p(1.0, "Horizon of the accelerometer's speed observer: while no slip is flagged, the "
+                                "observer is the wheel speed this long ago plus the acceleration integrated since "
+                                "(see wheel_dr.core.slip_motion); 0 turns the accelerometer and command detectors "
+                                "off.", "s", 0.0, 30.0)
+    accel_gate: float = _p(6.63, "Chi-square gate (1 degree of freedom) on the wheel-versus-observer speed "
+                           "difference; 6.63 is the 99 % quantile.", "", 0.0, 1e6, lo_open=True)
+    accel_bias_tolerance_mps2: float = _p(0.03, "Extra standard deviation of the longitudinal acceleration for bias "
+                                          "drift, mounting tilt and floor unevenness; grows the allowance with the "
+                                          "integration time.", "m/s^2", 0.0, 5.0)
+    accel_speed_tolerance_mps: float = _p(0.03, "Extra standard deviation of the wheel-versus-observer speed "
+                                          "difference for timing and vibration (common practice).", "m/s", 0.0, 5.0)
+    accel_scale_tolerance: float = _p(0.05, "Extra standard deviation of that difference as a fraction of the speed "
+                                      "change over the horizon (wheel radius and accelerometer scale errors).", "",
+                                      0.0, 1.0)
+    command_tolerance_mps: float = _p(0.1, "Extra standard deviation of the commanded-versus-measured speed change "
+                                      "for the drive's tracking error (command detector).", "m/s", 0.0, 5.0)
+    command_timeout_s: float = _p(0.5, "A cmd_vel older than this counts as no command (drivers stop on a stale "
+                                  "command).", "s", 0.0, 60.0, lo_open=True)
+    distance_source: str = _p("wheels", "Distance of samples the accelerometer detector flags: 'wheels' (as "
+                              "measured) or 'observer' (the observer's speed times dt; the heading keeps its "
+                              "source).", choices=("wheels", "observer"))
 
 
 @dataclass(frozen=True)
@@ -248,6 +270,25 @@ class OutputSettings:
     diagnostics_period_s: float = _p(1.0, "Period of the /diagnostics status.", "s", 0.05, 60.0)
 
 
+@dataclass(frozen=True)
+class ImuSettings:
+    """The IMU's accelerometer and mounting (slip detection; the gyro's settings are under slip.)."""
+
+    position_m: tuple[float, ...] = _p((0.0, 0.0, 0.0), "Position of the IMU in the base frame, x forward, y left, "
+                                       "z up (REP 103), for the lever-arm correction of the accelerometer (z is "
+                                       "not used by the planar estimator).", "m", -10.0, 10.0, length=3)
+    accel_noise_mps2: float = _p(0.02, "Standard deviation of one accelerometer reading (white noise; about "
+                                 "0.01 to 0.05 m/s^2 for MEMS IMUs at 100 Hz).", "m/s^2", 0.0, 10.0, lo_open=True)
+    accel_bias_mps2: float = _p(0.0, "Accelerometer x bias assumed until the base has stood still long enough to "
+                                "estimate it.", "m/s^2", -5.0, 5.0)
+    use_orientation: bool = _p(True, "Remove gravity's share from the x acceleration with the IMU's orientation "
+                               "where the Imu message gives one (orientation_covariance[0] != -1).")
+    max_slope_deg: float = _p(0.0, "Steepest slope the base drives on without orientation: its gravity share "
+                              "g sin(slope) widens the accelerometer allowance (0: floors level beyond what the "
+                              "standstill bias absorbed; ramps in buildings are up to about 5 deg).", "deg",
+                              0.0, 30.0)
+
+
 SECTIONS: dict[str, type] = {
     "wheels": WheelSettings,
     "frames": FrameSettings,
@@ -256,6 +297,7 @@ SECTIONS: dict[str, type] = {
     "limits": LimitSettings,
     "slip": SlipSettings,
     "output": OutputSettings,
+    "imu": ImuSettings,
 }
 
 _INTEGRATION_SPEC = dict(
@@ -275,6 +317,7 @@ class Settings:
     limits: LimitSettings = field(default_factory=LimitSettings)
     slip: SlipSettings = field(default_factory=SlipSettings)
     output: OutputSettings = field(default_factory=OutputSettings)
+    imu: ImuSettings = field(default_factory=ImuSettings)
 
     # -- schema -----------------------------------------------------------------------------
     @staticmethod

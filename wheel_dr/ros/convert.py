@@ -35,6 +35,8 @@ __all__ = [
     "RawOdometryWriter",
     "parse_joint_state",
     "parse_imu_gyro_z",
+    "parse_imu_motion",
+    "DETECTOR_BITS_TEXT",
     "pose_cov_index",
     "flag_values",
     "pose_from_msg",
@@ -50,10 +52,11 @@ FLAG_FIELDS: tuple[str, ...] = (
     "slip",            # 1 when either side is flagged as slipping
     "slip_left",       # 1 when the left side is flagged
     "slip_right",      # 1 when the right side is flagged
-    "detector",        # bit mask of the detectors that fired (1 gyro, 2 traction, 4 same side)
+    "detector",        # bit mask of the detectors that fired (1 gyro, 2 traction, 4 same side, 8 accel, 16 command)
     "score",           # largest detector score (1 = at its threshold); 0 for skipped samples
 )
 FLAGS_LABEL = "wheel_dr_flags:" + ",".join(FLAG_FIELDS)
+DETECTOR_BITS_TEXT = "1 gyro, 2 traction, 4 same side, 8 accel, 16 command"
 STATUS_NAMES: dict[int, str] = {int(s): s.name.lower() for s in SampleStatus}
 
 
@@ -182,6 +185,31 @@ def parse_imu_gyro_z(raw: bytes) -> tuple[float, bool]:
     wz = _IMU_WZ.unpack_from(raw, pos + 8 * 15)[0]
     cov0 = _IMU_WZ.unpack_from(raw, pos + 8 * 16)[0]
     return wz, cov0 != -1.0
+
+
+_IMU_DOUBLES = 37  # orientation 4 + 9, angular velocity 3 + 9, linear acceleration 3 + 9
+
+
+def parse_imu_motion(raw: bytes) -> tuple[float, bool, float, bool, float]:
+    """Serialised sensor_msgs/Imu -> (angular_velocity.z, its flag, linear_acceleration.x, its flag, up_x).
+
+    A flag is False where the message marks the field unknown (its covariance[0] == -1); up_x is
+    the x component of the world's up axis in the IMU frame from the orientation
+    (``wheel_dr.core.slip_motion.up_x_from_quaternion``), NaN where the orientation is unknown.
+    Bounds-checked: raises ValueError when the buffer is not a whole little-endian CDR Imu.
+    """
+    if len(raw) < 16 or raw[:2] != _CDR_LE:
+        raise ValueError("imu message is not little-endian CDR")
+    n = _u32.unpack_from(raw, 12)[0]
+    pos = _align(16 + n, 8)
+    if n > len(raw) or pos + 8 * _IMU_DOUBLES > len(raw):
+        raise ValueError("imu message is shorter than an Imu")
+    d = struct.unpack_from(f"<{_IMU_DOUBLES}d", raw, pos)
+    qx, qy, qz, qw, o_cov0 = d[0], d[1], d[2], d[3], d[4]
+    wz, w_cov0 = d[15], d[16]
+    ax, a_cov0 = d[25], d[28]
+    up = 2.0 * (qx * qz - qw * qy) if o_cov0 != -1.0 else math.nan
+    return wz, w_cov0 != -1.0, ax, a_cov0 != -1.0, up
 
 
 def pose_cov_index(layout: Any, size: int) -> tuple[np.ndarray, np.ndarray]:

@@ -5,8 +5,11 @@ calls ``Estimator.step`` once per joint-state message and publishes what the cor
 
 Interfaces (relative names follow the node's namespace and remaps):
 
-* subscribes ``joint_states`` (sensor_msgs/JointState, sensor-data QoS: best effort, depth 100)
-  and ``imu`` (sensor_msgs/Imu, optional: the latest z rate goes to the slip detectors);
+* subscribes ``joint_states`` (sensor_msgs/JointState, sensor-data QoS: best effort, depth 100),
+  ``imu`` (sensor_msgs/Imu, optional: the latest z rate, x acceleration and orientation go to the
+  slip detectors; fields whose covariance[0] is -1 are unknown) and ``cmd_vel`` (optional,
+  geometry_msgs/Twist or TwistStamped, whichever the graph offers: the commanded speed for the
+  command detector; subscribed once a publisher appears);
 * publishes ``odom`` (nav_msgs/Odometry, frame ``frames.odom`` -> child ``frames.base``, stamped
   with the joint-state stamp), ``/tf`` (tf2_msgs/TFMessage, when ``output.publish_tf``),
   ``odom_flags`` (std_msgs/Float64MultiArray, one per joint-state sample, fields in
@@ -51,7 +54,7 @@ from ..core.wheels import RESTART_KINDS, SKIP_KINDS, SampleStatus
 from ..params import NODE_NAME
 from ..safety import SAFETY_TEXT
 from .convert import (RawOdometryWriter, flag_values, key_values, parameter_descriptor, parameter_value,
-                      parse_imu_gyro_z, parse_joint_state, pose_from_msg, python_value)
+                      parse_imu_motion, parse_joint_state, pose_from_msg, python_value, DETECTOR_BITS_TEXT)
 
 __all__ = ["OdometryNode", "create", "main", "READ_ONLY_PARAMETERS", "LOG_THROTTLE_S", "ROS_OWNED_PREFIXES"]
 
@@ -147,6 +150,13 @@ class OdometryNode:
         self.reanchor_refused = 0
         self._gyro_z: float | None = None
         self._gyro_mono = -math.inf
+        self._accel_x: float | None = None
+        self._up_x: float | None = None
+        self._cmd_v: float | None = None
+        self._cmd_mono = -math.inf
+        self.cmd_received = 0
+        self.sub_cmd = None
+        self._cmd_type = "none"
         self._period_received = 0
         self._period_start = time.monotonic()
         self._period_slip = 0
@@ -173,6 +183,7 @@ class OdometryNode:
         self.sub_reanchor = node.create_subscription(PoseWithCovarianceStamped, "~/reanchor",
                                                      self._on_reanchor, 10)
         self._diag_timer = node.create_timer(settings.output.diagnostics_period_s, self._on_diagnostics)
+        self._cmd_timer = node.create_timer(1.0, self._find_cmd_vel)
 
         js_qos = QoSProfile(depth=JOINT_STATE_DEPTH, reliability=qos_profile_sensor_data.reliability,
                             durability=qos_profile_sensor_data.durability,
@@ -217,18 +228,54 @@ class OdometryNode:
         self.on_imu(raw)
 
     def on_imu(self, raw: bytes) -> None:
-        """Keep the latest gyro z rate (rad/s, IMU frame assumed aligned with the base z axis)."""
+        """Keep the latest gyro z rate (rad/s), x acceleration (m/s^2) and up_x (IMU axes assumed
+        aligned with the base's; its position is ``imu.position_m``)."""
         try:
             self.imu_received += 1
-            wz, provided = parse_imu_gyro_z(raw)
+            wz, provided, ax, accel_ok, up = parse_imu_motion(raw)
+            self._accel_x = ax if accel_ok and math.isfinite(ax) else None
+            self._up_x = up if math.isfinite(up) else None
+            self._gyro_mono = time.monotonic()
             if not provided or not math.isfinite(wz):
                 self._gyro_z = None
                 return
             self._gyro_z = wz
-            self._gyro_mono = time.monotonic()
         except Exception as exc:  # never die on a bad message
             self.handler_errors += 1
             self._throttled("imu_error", "warning", f"imu message could not be used ({exc.__class__.__name__}: "
+                                                    f"{exc}); it is ignored.")
+
+    def _find_cmd_vel(self) -> None:
+        """Subscribe ``cmd_vel`` with the type its publishers use (Twist or TwistStamped), once."""
+        try:
+            if self.sub_cmd is not None:
+                self._cmd_timer.cancel()
+                return
+            from geometry_msgs.msg import Twist, TwistStamped
+
+            name = self.node.resolve_topic_name("cmd_vel")
+            types = dict(self.node.get_topic_names_and_types()).get(name, [])
+            if "geometry_msgs/msg/TwistStamped" in types:
+                self.sub_cmd = self.node.create_subscription(TwistStamped, "cmd_vel", self.on_cmd_vel, 10)
+                self._cmd_type = "geometry_msgs/TwistStamped"
+            elif "geometry_msgs/msg/Twist" in types:
+                self.sub_cmd = self.node.create_subscription(Twist, "cmd_vel", self.on_cmd_vel, 10)
+                self._cmd_type = "geometry_msgs/Twist"
+        except Exception as exc:
+            self.handler_errors += 1
+            self._throttled("cmd_find", "warning", f"cmd_vel could not be subscribed ({exc.__class__.__name__}: "
+                                                   f"{exc}); the command detector stays off.")
+
+    def on_cmd_vel(self, msg: Any) -> None:
+        """Keep the latest commanded forward speed (m/s) and when it came."""
+        try:
+            self.cmd_received += 1
+            vx = float(msg.twist.linear.x if hasattr(msg, "twist") else msg.linear.x)
+            self._cmd_v = vx if math.isfinite(vx) else None
+            self._cmd_mono = time.monotonic()
+        except Exception as exc:  # never die on a bad message
+            self.handler_errors += 1
+            self._throttled("cmd_error", "warning", f"cmd_vel message could not be used ({exc.__class__.__name__}: "
                                                     f"{exc}); it is ignored.")
 
     def on_joint_state(self, raw: bytes, received_ns: int) -> None:
@@ -244,14 +291,17 @@ class OdometryNode:
         self.received += 1
         sec, nanosec, names, positions, velocities = parse_joint_state(raw)
         stamp_ns = sec * 1_000_000_000 + nanosec
-        gyro = self._gyro_z
+        gyro, accel, up, cmd = self._gyro_z, self._accel_x, self._up_x, self._cmd_v
         with self.lock:
             self._period_received += 1
             writer = self._writer
             est = self.estimator
-            if gyro is not None and time.monotonic() - self._gyro_mono > self.settings.limits.max_gap_s:
-                gyro = None  # stale IMU
-            status = est.step(stamp_ns, names, positions, velocities, gyro)
+            now = time.monotonic()
+            if now - self._gyro_mono > self.settings.limits.max_gap_s:
+                gyro = accel = up = None  # stale IMU
+            if cmd is not None and now - self._cmd_mono > self.settings.slip.command_timeout_s:
+                cmd = None  # stale command
+            status = est.step(stamp_ns, names, positions, velocities, gyro, accel, up, cmd)
             if status < 10:
                 self.pub_odom.publish(writer.odometry(sec, nanosec, est.x_m, est.y_m, est.yaw_rad, est.cov,
                                                       est.v_mps, est.w_radps, est.twist_cov))
@@ -423,6 +473,13 @@ class OdometryNode:
             "last_slip_score": "none" if last_slip is None else last_slip[1],
             "last_slip_detector": "none" if last_slip is None else last_slip[2],
             "imu_received": self.imu_received,
+            "imu_acceleration": "read" if self._accel_x is not None else "unknown or none",
+            "imu_orientation": "read" if self._up_x is not None else "unknown or none",
+            "accel_bias_mps2": ("none" if self.estimator.last_slip.accel_bias_mps2 is None
+                                else self.estimator.last_slip.accel_bias_mps2),
+            "cmd_vel_type": self._cmd_type,
+            "cmd_vel_received": self.cmd_received,
+            "slip_detector_bits": DETECTOR_BITS_TEXT,
             "handler_errors": self.handler_errors,
             "reanchor_refused": self.reanchor_refused,
             "tf": "on" if (self.pub_tf is not None and settings.output.publish_tf) else
