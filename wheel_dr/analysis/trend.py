@@ -98,7 +98,7 @@ def weighted_trend(distance_m: Sequence[float], value: Sequence[float], std_erro
                  math.sqrt(var_ac))
 
 
-def drift_alert(name: str, reference: float, trend: Trend, alert_pct: float, sigmas: float = 2.0) -> str:
+def drift_alert(name: str, reference: float, trend: Trend, alert_pct: float, sigmas: float = 3.0) -> str:
     """A short sentence when the current value (``trend.value_at_end``) is more than ``alert_pct`` %
     away from ``reference`` and that change is beyond ``sigmas`` standard errors (a change the fits
     cannot resolve is not reported); else ''."""

@@ -27,7 +27,7 @@ _READING = [
      "1/standard error squared; the shaded band is one standard error of the line. Tyre wear shows as a "
      "falling radius. The slope is given per 1000 km in robots.csv."),
     ("Alert", "The line's current value differs from the geometry the robot's parameters file (or its URDF) "
-     "gives by more than the alert percentage, and by more than two standard errors. The suggested values "
+     "gives by more than the alert percentage, and by more than three standard errors. The suggested values "
      "are the line's current values; confirm them with a calibration drive before changing the file."),
     ("Slip map", "Where the slip monitor flagged samples, in the truth frame (the floor's own frame when the "
      "truth is a map localisation): clusters mark places where wheels slip (wet floor, a threshold, a ramp)."),
