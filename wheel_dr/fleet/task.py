@@ -120,14 +120,22 @@ def analyse_bag(job: BagJob) -> BagResult:
     t0 = time.perf_counter()
     row: dict[str, Any] = {"robot": job.robot, "bag": job.rel}
     try:
-        return _analyse(job, row, t0)
+        res = _analyse(job, row, t0)
+        res.row["fit_note"] = _relative(res.row["fit_note"], job)
+        res.notes = [_relative(n, job) for n in res.notes]
+        return res
     except Exception as exc:     # a corrupt bag may fail anywhere in a third-party reader: report, go on
         from ..core.errors import WheelDrError
         text = str(exc).strip() if isinstance(exc, WheelDrError) else \
             f"the bag cannot be read ({type(exc).__name__}: {str(exc).strip()[:160]}); re-copy or re-record it."
-        row["error"] = text.splitlines()[0] if text else type(exc).__name__
+        row["error"] = _relative(text.splitlines()[0], job) if text else type(exc).__name__
         row["fit_note"] = "not analysed (the bag could not be read)"
         return BagResult(row, seconds=time.perf_counter() - t0)
+
+
+def _relative(text: str, job: BagJob) -> str:
+    """Messages name the bag by its path below ROOT, so results do not depend on where ROOT is mounted."""
+    return text.replace(job.path, job.rel)
 
 
 def _analyse(job: BagJob, row: dict[str, Any], t0: float) -> BagResult:
