@@ -101,3 +101,33 @@ def wear_text(robot: DemoRobot) -> str:
             f"({1000 * robot.radius_m * robot.wear_per_km:.2f} mm, exaggerated for the demo)")
 
 
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """``python -m wheel_dr.fleet.demo [--out DIR]`` (run by ``make demo``): build the invented fleet
+    under DIR/bags once (kept as a cache), analyse it with ``wheel-dr fleet`` on a local Dask cluster
+    and print where its page is."""
+    import argparse
+
+    from ..cli import main as cli_main
+    ap = argparse.ArgumentParser(prog="python -m wheel_dr.fleet.demo", description=main.__doc__)
+    ap.add_argument("--out", default="out/demo/fleet", help="output directory (default out/demo/fleet)")
+    ap.add_argument("--workers", type=int, help="local Dask workers (default: the CPUs)")
+    args = ap.parse_args(argv)
+    out = Path(args.out)
+    root = out / "bags"
+    print(f"fleet demo: three invented carts of the Ferncliff Seed Bank, {DEMO_BAGS_PER_ROBOT} shifts each, in {root}")
+    for robot in DEMO_FLEET:
+        print(f"  {wear_text(robot)}")
+    build_demo_fleet(root, bags_per_robot=DEMO_BAGS_PER_ROBOT, duration_s=150.0, rate_hz=20.0)
+    cmd = ["fleet", str(root), "--out", str(out), "--resume", "--quiet"]
+    if args.workers:
+        cmd += ["--workers", str(args.workers)]
+    return cli_main(cmd)
+
+
+DEMO_BAGS_PER_ROBOT = 4
+
+if __name__ == "__main__":
+    import sys
+    sys.exit(main())

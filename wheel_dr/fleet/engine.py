@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import contextlib
 import logging
+import warnings
 from typing import Any, Callable, Iterator, Sequence
 
 from ..core.errors import InputError, WheelDrError
@@ -57,8 +58,10 @@ def open_client(scheduler: str | None = LOCAL, workers: int | None = None) -> It
         n = default_jobs() if workers is None else int(workers)
         if n < 1:
             raise InputError(f"--workers {n} is below 1; give the number of worker processes (default: the CPUs).")
-        cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, host="127.0.0.1",
-                               dashboard_address=None, silence_logs=logging.ERROR)
+        with warnings.catch_warnings():   # "port 8787 in use, another one taken": harmless, not for the user
+            warnings.filterwarnings("ignore", message=".*already in use", category=UserWarning)
+            cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, host="127.0.0.1",
+                                   dashboard_address=None, silence_logs=logging.ERROR)
         try:
             with Client(cluster) as client:
                 yield client
