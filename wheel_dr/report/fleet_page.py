@@ -64,8 +64,17 @@ def _robot_figure(s, colour: str):
         ref = s.reference.get(c, math.nan)
         if math.isfinite(ref):
             ax.axhline(ref * 1000.0, color=TRUTH_COLOUR, lw=0.9, ls="--", label="parameters file")
-        ax.set_title(c[4:].replace("_", " ") + " (mm)", fontsize=9)
+        ax.set_title(c[4:].replace("_", " ") + " (mm)", fontsize=9, loc="left")
         ax.set_xlabel("cumulative distance (km)", fontsize=8)
+        if len(d_km):       # the bags' dates on top, at their distances (at most six labels)
+            top = ax.twiny()
+            top.set_xlim(ax.get_xlim())
+            keep = np.unique(np.linspace(0, len(d_km) - 1, min(6, len(d_km))).round().astype(int))
+            top.set_xticks(d_km[keep])
+            top.set_xticklabels([str(s.start[i])[5:10] for i in keep], fontsize=7)
+            top.tick_params(length=2, pad=1)
+            for side in ("right",):
+                top.spines[side].set_visible(False)
     np.atleast_1d(axes)[0].legend(fontsize=7, loc="best")
     return fig
 
