@@ -220,7 +220,9 @@ def test_worker_killed_mid_run_completes(fleet_root, reference, dask_cluster, tm
     t.start()
     assert first.wait(120), "".join(lines)
     os.kill(next(iter(pids.values())), signal.SIGKILL)          # one worker process dies with its task
-    stdout = proc.communicate(timeout=240)[0]
+    stdout = proc.stdout.read()          # stderr is the watcher's: no second reader of it
+    proc.wait(timeout=240)
+    t.join(10)
     assert proc.returncode == 0, "".join(lines)
     assert "fleet [" in "".join(lines)
     assert (out / "bags.csv").read_text() == (ref / "bags.csv").read_text()
@@ -239,8 +241,9 @@ def test_ctrl_c_cancels_and_writes_nothing(fleet_root, dask_cluster, tmp_path):
     t.start()
     assert first.wait(120), "".join(lines)
     proc.send_signal(signal.SIGINT)
-    proc.communicate(timeout=60)
-    t.join(5)
+    proc.wait(timeout=60)
+    t.join(10)
+    proc.stdout.close()
     assert proc.returncode == 130, "".join(lines)
     assert "interrupted" in "".join(lines) and "Traceback" not in "".join(lines)
     for name in OUTPUT_NAMES:
