@@ -30,6 +30,7 @@ colcon-check: venv tf-msgs
 
 demo: venv
 	$(VENV)/bin/wheel-dr demo
+	$(PY) -m wheel_dr.fleet.demo --out out/demo/fleet
 
 test: venv tf-msgs
 	$(ROS_ENV) && $(PY) -m pytest -q test

@@ -179,7 +179,8 @@ def _cmd_compare(args: argparse.Namespace, title: str = "wheel_dr comparison", n
     out = _out_dir(args.out, "out/compare")
     t0 = time.perf_counter()
     res = compare_bags(args.bags, sfs, truth=args.truth, joint_topic=args.joint_topic, imu_topic=args.imu_topic,
-                       use_imu=not args.no_imu, jobs=args.jobs, progress=not args.quiet)
+                       use_imu=not args.no_imu, jobs=args.jobs, progress=not args.quiet,
+                       scheduler=getattr(args, "scheduler", None), workers=getattr(args, "workers", None))
     for label, info in res.bag_info.items():
         _say(f"bag {label}: {info['samples']} joint states ({info['decode']} decoding, {info['decode_s']:.2f} s), "
              f"IMU {info['imu_topic'] or 'none'}, truth {info['truth']}, {info['slip_labels']} slip labels")
@@ -197,6 +198,21 @@ def _cmd_compare(args: argparse.Namespace, title: str = "wheel_dr comparison", n
     _say(f"time: decoding and {len(res.evaluations)} runs with metrics {t1 - t0:.1f} s, tables and report {t2 - t1:.1f} s")
     _say(f"report: {page.resolve()}")
     return 0
+
+
+# -- fleet -------------------------------------------------------------------------------------
+def _cmd_fleet(args: argparse.Namespace) -> int:
+    from .fleet.run import cmd_fleet
+    return cmd_fleet(args)
+
+
+def _add_scheduler_flags(p: argparse.ArgumentParser, default: str | None) -> None:
+    p.add_argument("--scheduler", metavar="local|ADDRESS", default=default,
+                   help="run on Dask: 'local' starts a LocalCluster of worker processes on this machine, "
+                   "tcp://HOST:PORT connects to a running 'dask scheduler' (workers must see the same paths)"
+                   + (" (default local)" if default else "; without it a process pool of --jobs is used"))
+    p.add_argument("--workers", type=int, metavar="N",
+                   help="worker processes of --scheduler local (default: the CPUs available)")
 
 
 # -- demo ----------------------------------------------------------------------------------------
@@ -250,7 +266,7 @@ def _add_topic_flags(p: argparse.ArgumentParser) -> None:
     p.add_argument("--no-imu", action="store_true", help="ignore the IMU (no gyro for the slip detectors)")
 
 
-OWN_COMMANDS = ("synth", "replay", "compare", "demo")
+OWN_COMMANDS = ("synth", "replay", "compare", "demo", "fleet")
 
 
 def build_parser(command: str | None = None) -> argparse.ArgumentParser:
@@ -322,8 +338,41 @@ def build_parser(command: str | None = None) -> argparse.ArgumentParser:
     p.add_argument("--out", metavar="DIR", help="output directory (default out/compare)")
     p.add_argument("--jobs", type=int, default=default_jobs(), help="worker processes (default: CPUs available)")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
+    _add_scheduler_flags(p, None)
     _add_topic_flags(p)
     p.set_defaults(func=_cmd_compare)
+
+    p = sub.add_parser("fleet", help="analyse every robot's bags on a Dask cluster: geometry trends, wear alerts",
+                       description="Find every bag under ROOT (rosbag2 directories, .mcap and ROS 1 .bag files at any "
+                       "depth; ROOT/<robot>/... names the robot), and per bag as one Dask task: decode, replay "
+                       "with the robot's settings (ROOT/<robot>/params.yaml wins over --params), compare with its "
+                       "truth, fit the wheel radii and track with standard errors, score slip. Per robot: a "
+                       "weighted trend of the geometry against distance and an alert when a value moved beyond "
+                       "--alert-pct. Writes DIR/bags.csv, DIR/robots.csv, DIR/fleet.json and DIR/index.html. "
+                       + SAFETY_NOTE)
+    p.add_argument("root", metavar="ROOT", help="fleet directory: ROOT/<robot>/<bags at any depth>")
+    p.add_argument("--params", metavar="FILE", help="ROS 2 parameters file for robots without their own "
+                   "ROOT/<robot>/params.yaml (default: built-in defaults and the URDF in each bag)")
+    p.add_argument("--truth", metavar="TOPIC|PARENT->CHILD",
+                   help="ground truth in each bag: a pose topic or a TF pair such as map->base_link (a robot's own "
+                   "localisation is a fine truth for trends); bags without it are replayed but not fitted "
+                   "(default: the bag's only pose topic)")
+    p.add_argument("--out", metavar="DIR", default="out/fleet", help="output directory (default out/fleet)")
+    _add_scheduler_flags(p, "local")
+    p.add_argument("--robot-pattern", metavar="REGEX",
+                   help="regular expression with one group, searched in the path below ROOT, naming the robot "
+                   "(default: the first path component)")
+    p.add_argument("--alert-pct", type=float, default=0.5,
+                   help="alert when a radius or the track moved by more than this from the parameters file "
+                   "(percent, default 0.5)")
+    p.add_argument("--resume", action="store_true",
+                   help="reuse results cached in DIR/cache (keyed by bag content and settings): only new or "
+                   "changed bags are analysed")
+    p.add_argument("--segment-m", type=float, default=2.0,
+                   help="segment length (m of wheel travel) of the geometry fit (default 2)")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    _add_topic_flags(p)
+    p.set_defaults(func=_cmd_fleet)
 
     p = sub.add_parser("demo", help="synthesise the demo drive and compare four shipped settings files",
                        description="Synthesise the demo scenario (the invented 'Quokka' cart on its night round "
