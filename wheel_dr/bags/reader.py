@@ -23,7 +23,7 @@ from rosbags.typesys import Stores, get_typestore
 
 from ..analysis.path import PlanarPath
 from ..core.errors import InputError, WheelDrError
-from ..core.wheels import JointSamples
+from ..core.wheels import JointSamples, samples_from_messages
 from . import codec
 from .writer import SLIP_STATUS_NAME
 
@@ -261,34 +261,12 @@ def _decode_joint_states(reader: AnyReader, raws: list[bytes], record_ns: list[i
         samples = JointSamples(stamps, tuple(names), pos, vel)
         decode = "bulk"
     else:
-        index: dict[str, int] = {}
         per = []
         for raw in raws:
             m = reader.deserialize(bytes(raw), msgtype)
-            nm = list(m.name)
-            for n in nm:
-                index.setdefault(n, len(index))
-            per.append((m.header.stamp.sec * 1_000_000_000 + m.header.stamp.nanosec, nm, np.asarray(m.position),
-                        np.asarray(m.velocity)))
-        j = len(index)
-        n = len(per)
-        stamps = np.zeros(n, dtype=np.int64)
-        pos = np.full((n, j), np.nan)
-        vel = np.full((n, j), np.nan)
-        present = np.zeros((n, j), dtype=bool)
-        malformed = np.zeros(n, dtype=bool)
-        for i, (st, nm, p, v) in enumerate(per):
-            stamps[i] = st
-            if (len(p) not in (0, len(nm))) or (len(v) not in (0, len(nm))) or (len(p) == 0 and len(v) == 0 and nm):
-                malformed[i] = True
-                continue
-            cols = [index[x] for x in nm]
-            present[i, cols] = True
-            if len(p):
-                pos[i, cols] = p
-            if len(v):
-                vel[i, cols] = v
-        samples = JointSamples(stamps, tuple(index), pos, vel, present, malformed)
+            per.append((m.header.stamp.sec * 1_000_000_000 + m.header.stamp.nanosec, list(m.name),
+                        np.asarray(m.position), np.asarray(m.velocity)))
+        samples = samples_from_messages(per)   # the node's rules for every message
         decode = "per-message"
     stamps_from = "header"
     if len(samples) and not np.any(samples.stamp_ns):

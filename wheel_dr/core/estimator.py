@@ -148,8 +148,8 @@ class Estimator:
              velocities: Sequence[float], gyro_z_radps: float | None = None) -> SampleStatus:
         """Process one joint-state sample; returns its status (skipped kinds leave the state as it was)."""
         status, dt, dl, dr = self._tracker.step(stamp_ns, names, positions, velocities)
-        self.counters[status.name.lower()] += 1
         if status >= 10:
+            self.counters[status.name.lower()] += 1
             return status
         s = self.settings
         b = s.wheels.track_width
@@ -175,4 +175,5 @@ class Estimator:
         else:
             self.v_mps, self.w_radps = ds / dt, dth / dt
             self.twist_cov = c_in / (dt * dt)
+        self.counters[status.name.lower()] += 1   # counted once the sample is fully applied
         return status
