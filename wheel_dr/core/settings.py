@@ -240,6 +240,8 @@ class OutputSettings:
 
     publish_tf: bool = _p(True, "Publish the odom -> base transform on /tf.")
     diagnostics_period_s: float = _p(1.0, "Period of the /diagnostics status.", "s", 0.05, 60.0)
+    rate_hz: float = _p(0.0, "Rate of the odometry, TF and flags outputs by sample stamp (every sample is still "
+                        "integrated); 0 publishes one output per joint-state message.", "Hz", 0.0, 10000.0)
 
 
 SECTIONS: dict[str, type] = {
