@@ -423,3 +423,14 @@ def test_mcap_ros2_encoder_output_replays_equal(bags, original, tmp_path) -> Non
         topics = {c.topic for c in reader.connections}
     _mcap_ros2_write(path, bags["mcap"], topics)
     _assert_same(original, _trajectory(path))
+
+
+def test_help_imports_no_numerical_or_bag_library() -> None:
+    """`wheel-dr --help` lists every command (calibrate included) without importing numpy, scipy or
+    rosbags: commands import what they need when they run (start-up figures: tools/bench_startup.py)."""
+    probe = ("import sys\nfrom wheel_dr.cli import main\n"
+             "try:\n    main(['--help'])\nexcept SystemExit:\n    pass\n"
+             "print(sorted(m for m in ('numpy', 'scipy', 'rosbags', 'matplotlib') if m in sys.modules))")
+    r = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True, timeout=60)
+    assert r.stdout.strip().splitlines()[-1] == "[]", r.stdout
+    assert "calibrate" in r.stdout and "replay" in r.stdout

@@ -63,7 +63,8 @@ sys.exit(node.main(sys.argv))
 """
 
 
-def _start(folder: Path, ros_env: dict[str, str], rate_hz: float, faulty: bool = False):
+def _start(folder: Path, ros_env: dict[str, str], rate_hz: float, faulty: bool = False, ns: str = NS,
+           js_topic: str = JS_TOPIC):
     params = folder / "wombat.yaml"
     params.write_text(PARAMS.format(rate=rate_hz))
     log_path = folder / "node.log"
@@ -74,12 +75,12 @@ def _start(folder: Path, ros_env: dict[str, str], rate_hz: float, faulty: bool =
         cmd = [sys.executable, str(script)]
     else:
         cmd = [NODE_EXE]
-    proc = subprocess.Popen(cmd + ["--ros-args", "--params-file", str(params), "-r", f"joint_states:={JS_TOPIC}",
-                                   "-r", f"__ns:={NS}"], env=ros_env, stdout=log, stderr=subprocess.STDOUT)
-    probe = Probe(ns=NS, js_topic=JS_TOPIC)
+    proc = subprocess.Popen(cmd + ["--ros-args", "--params-file", str(params), "-r", f"joint_states:={js_topic}",
+                                   "-r", f"__ns:={ns}"], env=ros_env, stdout=log, stderr=subprocess.STDOUT)
+    probe = Probe(ns=ns, js_topic=js_topic)
     _wait(lambda: probe.pub_js.get_subscription_count() > 0 or proc.poll() is not None, 30, "the node")
     assert proc.poll() is None, log_path.read_text()
-    _wait(lambda: probe.node.count_publishers(f"{NS}/odom_flags") > 0, 10, "the node's flags publisher")
+    _wait(lambda: probe.node.count_publishers(f"{ns}/odom_flags") > 0, 10, "the node's flags publisher")
     probe.handshake([LEFT, RIGHT])
     return proc, probe, log, log_path
 
@@ -230,7 +231,8 @@ def test_a_failing_handler_is_an_error_in_diagnostics_never_used(tmp_path: Path,
     """A fault inside the estimator step (injected into the slip monitor): the sample is not
     counted as used, no odometry is published for it, diagnostics report ERROR (level 2) with the
     count, the log says it at most once per throttle period, and the node goes on."""
-    proc, probe, log, log_path = _start(tmp_path, ros_env, 0.0, faulty=True)
+    proc, probe, log, log_path = _start(tmp_path, ros_env, 0.0, faulty=True, ns="/wombat_faulty",
+                                        js_topic="/wombat_faulty_js")
     try:
         before = probe.next_diag()[3]
         s = probe.stamp_ns + 1_000_000_000
