@@ -185,13 +185,17 @@ def main(argv: list[str] | None = None) -> int:
     msg.name = [LEFT, RIGHT]
     w_l, w_r = 4.0, 6.0  # rad/s: Quokka turning left at 0.4 rad/s
 
+    t0_ns = time.time_ns()
+
     def send(n: int, rate_hz: float, t_offset_s: float) -> int:
+        """Joint states stamped with the wall clock at publish; the wheel angles are those at the
+        stamp (an encoder read when it is stamped), so timing jitter is not wheel-speed noise."""
         period = 1.0 / rate_hz
         start = time.perf_counter()
         for i in range(n):
             ns = time.time_ns()
             msg.header.stamp.sec, msg.header.stamp.nanosec = divmod(ns, 1_000_000_000)
-            t = t_offset_s + i * period
+            t = (ns - t0_ns) * 1e-9
             msg.position = [w_l * t, w_r * t]
             pub.publish(msg)
             delay = start + (i + 1) * period - time.perf_counter()

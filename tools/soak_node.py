@@ -176,14 +176,14 @@ def main(argv: list[str] | None = None) -> int:
     rng = random.Random(args.seed)
     msg = JointState()
     w_l, w_r = 4.0, 6.0            # rad/s: the Quokka cart turning left at 0.4 rad/s
-    garbage_template = b""
     sent = {"good": 0, "bad": 0, **{k: 0 for k in KINDS}}
     rss: list[tuple[float, float]] = []
     last_ns = [0]
+    t0_ns = time.time_ns()
 
     def one(i: int, t_s: float) -> None:
-        nonlocal garbage_template
         ns = time.time_ns()
+        t_s = (ns - t0_ns) * 1e-9      # wheel angles at the stamp (an encoder read when stamped)
         names = [LEFT, RIGHT]
         pos = [w_l * t_s, w_r * t_s]
         vel: list[float] = []
@@ -237,8 +237,10 @@ def main(argv: list[str] | None = None) -> int:
         warm = int(args.rate)                                   # one second of clean warm-up
         start = time.perf_counter()
         for i in range(warm):
-            msg.header.stamp.sec, msg.header.stamp.nanosec = divmod(time.time_ns(), 1_000_000_000)
-            msg.name, msg.position, msg.velocity = [LEFT, RIGHT], [w_l * i * period, w_r * i * period], []
+            ns = time.time_ns()
+            t_s = (ns - t0_ns) * 1e-9
+            msg.header.stamp.sec, msg.header.stamp.nanosec = divmod(ns, 1_000_000_000)
+            msg.name, msg.position, msg.velocity = [LEFT, RIGHT], [w_l * t_s, w_r * t_s], []
             pub.publish(msg)
             delay = start + (i + 1) * period - time.perf_counter()
             if delay > 0:
