@@ -467,16 +467,16 @@ def test_parameters_declared_with_ranges_and_changes_validated(node_run: dict[st
     spec = Settings.spec("wheels.track_width")
     assert described[0].floating_point_range[0].from_value == spec.lo
     assert described[0].floating_point_range[0].to_value == spec.hi
-    assert spec.description in described[0].description and "(0, 10]" in described[0].description
+    assert spec.description in described[0].description and spec.range_text() in described[0].description
     assert described[1].read_only
 
     # Outside the descriptor's closed range rclpy itself refuses (its reason names the parameter and
     # the bounds); on the open bound the settings check refuses with its own sentence.
     refused = _set_parameter(probe, "wheels.track_width", -0.3)
     assert not refused.successful and "wheels.track_width" in refused.reason and "10" in refused.reason
-    open_bound = _set_parameter(probe, "wheels.track_width", 0.0)
-    assert not open_bound.successful and "wheels.track_width" in open_bound.reason
-    assert "(0, 10]" in open_bound.reason
+    open_bound = _set_parameter(probe, "slip.clear_fraction", 0.0)
+    assert not open_bound.successful and "slip.clear_fraction" in open_bound.reason
+    assert "(0, 1)" in open_bound.reason
     both = _set_parameter(probe, "wheels.right_joints", [LEFT])
     assert not both.successful and LEFT in both.reason
     frame = _set_parameter(probe, "frames.odom", "elsewhere")
@@ -640,7 +640,10 @@ def test_sigterm_ends_the_node_cleanly(node_run: dict[str, Any]) -> None:
 
 # --- start-up failures and the no-TF fallback (own short processes) ---------------------------------
 @pytest.mark.parametrize("body, expect", [
-    ("/**:\n  ros__parameters:\n    wheels:\n      track_width: -1.0\n", ["wheels.track_width", "(0, 10]"]),
+    ("/**:\n  ros__parameters:\n    wheels:\n      track_width: -1.0\n", ["wheels.track_width", "[0.001, 10]"]),
+    ("/**:\n  ros__parameters:\n    wheels:\n      source: ticks\n      ticks_per_revolution: 1.0e-200\n"
+     "      gear_ratio: 1.0e-200\n", ["wheels.ticks_per_revolution", "[1, 1e+09]"]),
+    ("/**:\n  ros__parameters:\n    slip:\n      long_window_s: 0.05\n", ["slip.long_window_s", "slip.window_s"]),
     ("/**:\n  ros__parameters:\n    noise:\n      k_lft: 0.1\n", ["noise.k_lft", "not a wheel_dr parameter"]),
     ("/**:\n  ros__parameters:\n    integration: rk4\n", ["integration", "euler, midpoint, exact"]),
     ("/**:\n  ros__parameters:\n    wheels: [track_width: 1\n", ["not valid YAML"]),

@@ -8,20 +8,20 @@ The safety caution it prints is ``wheel_dr.safety.SAFETY_TEXT``.
 from __future__ import annotations
 
 import argparse
-import importlib.util
+import importlib
 import os
 import sys
-import tempfile
 import time
 from pathlib import Path
 from typing import Sequence
-
-import numpy as np
 
 from . import __version__
 from .core import errors as _errors
 from .core.errors import WheelDrError
 from .safety import SAFETY_TEXT
+
+# Heavy modules (numpy, rosbags, the analysis) are imported by the command that needs them, so
+# `wheel-dr --help` starts in a fraction of a second and an interrupt while importing is handled.
 
 __all__ = ["main", "build_parser", "SAFETY_NOTE", "write_trajectory_csv", "write_tum", "TRAJECTORY_COLUMNS"]
 
@@ -36,10 +36,18 @@ SCENARIOS = ("demo", "square-cw", "square-ccw", "varied")
 UsageError = _errors.UsageError            # defined with every other error in wheel_dr.core.errors
 
 
+# Subcommands kept in their own modules, imported only when they run: name -> (module, one-line
+# help for `wheel-dr --help`). The module's ``add_parser(subparsers)`` defines the full command.
+LAZY_COMMANDS: dict[str, tuple[str, str]] = {
+    "calibrate": ("wheel_dr.calibrate_cmd",
+                  "fit wheel radii, track and noise from bags with ground truth, or run the square test"),
+}
+
+
 # -- output helpers ------------------------------------------------------------------------------
 def _atomic_bytes(path: Path, data: bytes) -> None:
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
+    from .partfiles import make_part_file
+    fd, tmp = make_part_file(path)   # also removes the parts a killed run left beside path
     try:
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
@@ -70,6 +78,8 @@ def write_trajectory_csv(path: Path, traj) -> None:
 
 def write_tum(path: Path, traj) -> None:
     """The trajectory in the TUM RGB-D benchmark format (Sturm et al. 2012): ``t tx ty tz qx qy qz qw``."""
+    import numpy as np
+
     from .bags.textout import float_field, join_fields, stamp_field
     half = 0.5 * np.asarray(traj.yaw_rad)
     n = len(traj)
@@ -135,6 +145,8 @@ def _cmd_synth(args: argparse.Namespace) -> int:
 
 # -- replay --------------------------------------------------------------------------------------
 def _cmd_replay(args: argparse.Namespace) -> int:
+    import numpy as np
+
     from .analysis.runs import load_settings_file, replay_run
     from .bags.reader import read_run
     sf = load_settings_file(args.params)
@@ -243,12 +255,11 @@ def _cmd_demo(args: argparse.Namespace) -> int:
     else:
         _say(f"using the cached demo drive {bag}")
     sections = []
-    if importlib.util.find_spec("wheel_dr.calibrate_cmd") is not None and not args.no_calibration:
+    if not args.no_calibration:
         from . import calibrate_cmd
-        if hasattr(calibrate_cmd, "demo_calibration"):
-            _say("calibrating the demo cart from a simulated ten-minute drive (wheel-dr calibrate)")
-            _, section = calibrate_cmd.demo_calibration()
-            sections.append(section)
+        _say("calibrating the demo cart from a simulated ten-minute drive (wheel-dr calibrate)")
+        _, section = calibrate_cmd.demo_calibration()
+        sections.append(section)
     ns = argparse.Namespace(bags=[str(bag)], params=[str(cfg / c) for c in DEMO_CONFIGS], truth="/ground_truth",
                             joint_topic=None, imu_topic=None, no_imu=False, jobs=args.jobs, quiet=args.quiet,
                             out=str(out))
@@ -269,13 +280,20 @@ def _add_topic_flags(p: argparse.ArgumentParser) -> None:
 OWN_COMMANDS = ("synth", "replay", "compare", "demo", "fleet")
 
 
+def default_jobs() -> int:
+    """Worker processes by default: the CPUs this process may use."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # pragma: no cover - not Linux
+        return max(1, os.cpu_count() or 1)
+
+
 def build_parser(command: str | None = None) -> argparse.ArgumentParser:
     """The ``wheel-dr`` argument parser with every subcommand.
 
-    ``command`` (the subcommand about to run, if known) only saves importing the calibration
-    module, which is large, when one of this module's own subcommands runs.
+    ``command`` is the subcommand about to run, if known: the subcommands of LAZY_COMMANDS are
+    imported only when they are that command (otherwise they are listed with their one-line help).
     """
-    from .analysis.runs import default_jobs
     parser = argparse.ArgumentParser(
         prog="wheel-dr", description="Offline wheel odometry: replay the wheel_dr estimator over bags, compare "
         "settings against ground truth, synthesise test drives. " + SAFETY_NOTE,
@@ -387,9 +405,11 @@ def build_parser(command: str | None = None) -> argparse.ArgumentParser:
                    help="leave out the calibration section (a simulated calibration drive fitted by wheel-dr calibrate)")
     p.set_defaults(func=_cmd_demo)
 
-    if command not in OWN_COMMANDS and importlib.util.find_spec("wheel_dr.calibrate_cmd") is not None:
-        from . import calibrate_cmd
-        calibrate_cmd.add_parser(sub)
+    for name, (module, help_text) in LAZY_COMMANDS.items():
+        if command == name:
+            importlib.import_module(module).add_parser(sub)
+        else:
+            sub.add_parser(name, help=help_text, add_help=False)
     return parser
 
 
@@ -402,29 +422,46 @@ def _rosbags_errors() -> tuple[type[BaseException], ...]:
 
 
 def main(argv: list[str] | None = None) -> int:
-    """Entry point of ``wheel-dr``; returns the exit status."""
+    """Entry point of ``wheel-dr``; returns the exit status (2 for errors a user can cause, 130 on Ctrl-C)."""
     tokens = sys.argv[1:] if argv is None else list(argv)
     first = next((t for t in tokens if not t.startswith("-")), None)
+    try:
+        return _main(tokens, first)
+    except KeyboardInterrupt:   # also while modules are still importing
+        name = f"wheel-dr {first}" if first else "wheel-dr"
+        print(f"{name}: interrupted; outputs not completed were not written.", file=sys.stderr)
+        return 130
+
+
+def _main(tokens: list[str], first: str | None) -> int:
+    import warnings
+
+    # The CLI prints its own sentences only: floating-point warnings of numerical code on extreme
+    # inputs (overflow, invalid values) are not messages for a user; results stay checked.
+    warnings.filterwarnings("ignore", category=RuntimeWarning)
     parser = build_parser(first)
     args = parser.parse_args(tokens)
+    from .core.errors import WheelDrError
     try:
         return int(args.func(args) or 0)
-    except WheelDrError as exc:
+    except (WheelDrError, UsageError) as exc:
         print(f"wheel-dr {args.command}: error: {exc}", file=sys.stderr)
         return 2
     except BrokenPipeError:
         return 141
     except _rosbags_errors() as exc:
-        print(f"wheel-dr {args.command}: error: the bag library reports '{str(exc).strip() or type(exc).__name__}'; "
-              "check that the bag is complete and the output path is new.", file=sys.stderr)
+        print(f"wheel-dr {args.command}: error: a bag cannot be read or written ({_bag_problem(exc)}); check that "
+              "the bag is complete and the output path is new.", file=sys.stderr)
         return 2
-    except KeyboardInterrupt:
-        print(f"wheel-dr {args.command}: interrupted; outputs not completed were not written.", file=sys.stderr)
-        return 130
     except OSError as exc:
-        print(f"wheel-dr {args.command}: error: {exc.strerror or exc} ({exc.filename or 'file'}); check the path "
-              "and its permissions.", file=sys.stderr)
+        print(f"wheel-dr {args.command}: error: {exc.strerror or 'the system refused the operation'} "
+              f"({exc.filename or 'file'}); check the path and its permissions.", file=sys.stderr)
         return 2
+
+
+def _bag_problem(exc: BaseException) -> str:
+    from .bags.reader import _why
+    return _why(exc)
 
 
 if __name__ == "__main__":

@@ -14,7 +14,6 @@ from __future__ import annotations
 
 import os
 import re
-import tempfile
 from pathlib import Path
 from typing import Any, Mapping
 
@@ -22,6 +21,7 @@ import yaml
 
 from .core.errors import SettingsError
 from .core.settings import Settings
+from .partfiles import make_part_file
 
 __all__ = ["NODE_NAME", "load_settings", "parse_params_text", "flatten", "write_params_text",
            "update_params_text", "atomic_write_text"]
@@ -102,14 +102,19 @@ def load_settings(path: str | os.PathLike | None, node_name: str = NODE_NAME,
     if path is None:
         return base or Settings()
     p = Path(path)
+    if p.exists() and not p.is_file():
+        raise SettingsError(f"parameters file '{p}' is not a regular file (a directory, pipe or device); give the "
+                            "path of a YAML file such as config/wheel_dr.yaml.")
     if not p.is_file():
         raise SettingsError(f"parameters file '{p}' does not exist; give the path of a YAML file such as "
                             "config/wheel_dr.yaml.")
     try:
         text = p.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as exc:
-        raise SettingsError(f"parameters file '{p}' cannot be read ({exc.__class__.__name__}); check the "
-                            "path and its permissions.") from None
+    except UnicodeDecodeError:
+        raise SettingsError(f"parameters file '{p}' is not UTF-8 text; give a YAML file such as "
+                            "config/wheel_dr.yaml.") from None
+    except OSError:
+        raise SettingsError(f"parameters file '{p}' cannot be read; check the path and its permissions.") from None
     return Settings.from_flat(parse_params_text(text, f"parameters file '{p}'", node_name), base=base)
 
 
@@ -236,8 +241,7 @@ def _plain(value: Any) -> Any:
 def atomic_write_text(path: str | os.PathLike, text: str) -> None:
     """Write ``text`` to a temporary file beside ``path`` and rename it into place when complete."""
     p = Path(path)
-    p.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.", suffix=".part", dir=p.parent)
+    fd, tmp = make_part_file(p)   # also removes the parts a killed run left beside p
     try:
         with os.fdopen(fd, "w", encoding="utf-8") as fh:
             fh.write(text)

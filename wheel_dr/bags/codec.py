@@ -223,6 +223,8 @@ def bulk_joint_states(raws: Sequence[bytes], ros1: bool = False):
         out.append(_column(arr, off, j, "<f8") if count == j else np.full((len(arr), j), np.nan))
     has_pos = layout.fields["position"][1] == j
     has_vel = layout.fields["velocity"][1] == j
+    if j and not has_pos and not has_vel:
+        return None  # names without values: malformed (core.wheels.samples_from_messages)
     return layout.names, stamps, out[0], out[1], has_pos, has_vel
 
 

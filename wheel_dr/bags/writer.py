@@ -22,7 +22,6 @@ from __future__ import annotations
 
 import os
 import shutil
-import tempfile
 from pathlib import Path
 from contextlib import contextmanager
 from typing import Iterator, Mapping
@@ -35,6 +34,7 @@ from rosbags.typesys import Stores, get_typestore
 
 from ..core.conventions import pose_covariance_6x6, yaw_to_quaternion
 from ..core.errors import InputError
+from ..partfiles import make_part_dir
 from ..sim.drive import SimResult
 from .codec import imu_layout, joint_state_layout, encode_joint_states, pose_layout
 from .urdf import quokka_urdf
@@ -241,8 +241,7 @@ def write_bag(sim: SimResult, path: str | os.PathLike, fmt: str = "mcap", *, typ
 def bag_writer_into_place(target: Path, fmt: str) -> Iterator[Writer1 | Writer2]:
     """An open bag writer ('mcap', 'sqlite3' or 'ros1') on a temporary name beside ``target``; the bag
     is renamed onto ``target`` only when the block completes, so nothing half-written is left."""
-    target.parent.mkdir(parents=True, exist_ok=True)
-    tmpdir = Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent))
+    tmpdir = make_part_dir(target)   # also removes the parts a killed run left beside target
     tmp = tmpdir / target.name
     try:
         if fmt == "ros1":

@@ -155,7 +155,7 @@ class _Constants:
         self.half_b = 0.5 * w.track_width
         self.nl = len(w.left_joints)
         self.nr = len(w.right_joints)
-        self.window_ns = int(round(s.window_s * 1e9))
+        self.window_ns = max(1, int(round(s.window_s * 1e9)))   # a window always holds its own sample
         self.set_ns = int(round(s.set_delay_s * 1e9))
         self.clear_ns = int(round(s.clear_delay_s * 1e9))
         self.clear_fraction = s.clear_fraction
