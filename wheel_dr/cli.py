@@ -425,10 +425,29 @@ def main(argv: list[str] | None = None) -> int:
     """Entry point of ``wheel-dr``; returns the exit status (2 for errors a user can cause, 130 on Ctrl-C)."""
     tokens = sys.argv[1:] if argv is None else list(argv)
     first = next((t for t in tokens if not t.startswith("-")), None)
+    import signal
+
+    interrupted = []
+
+    def _on_sigint(signum: int, frame: object) -> None:
+        interrupted.append(signum)
+        signal.default_int_handler(signum, frame)
+
+    try:
+        signal.signal(signal.SIGINT, _on_sigint)
+    except ValueError:          # not the main thread: keep the interpreter's handler
+        pass
+    name = f"wheel-dr {first}" if first else "wheel-dr"
     try:
         return _main(tokens, first)
     except KeyboardInterrupt:   # also while modules are still importing
-        name = f"wheel-dr {first}" if first else "wheel-dr"
+        print(f"{name}: interrupted; outputs not completed were not written.", file=sys.stderr)
+        return 130
+    except ImportError:
+        # An interrupt inside a compiled module's import can surface as an ImportError of that
+        # module (numpy re-raises it so): still an interrupt, not a broken install.
+        if not interrupted:
+            raise
         print(f"{name}: interrupted; outputs not completed were not written.", file=sys.stderr)
         return 130
 
