@@ -14,7 +14,6 @@ from __future__ import annotations
 
 import os
 import re
-import tempfile
 from pathlib import Path
 from typing import Any, Mapping
 
@@ -22,6 +21,7 @@ import yaml
 
 from .core.errors import SettingsError
 from .core.settings import Settings
+from .fileio import atomic_write_text  # re-exported: parameters files are written with it
 
 __all__ = ["NODE_NAME", "load_settings", "parse_params_text", "flatten", "write_params_text",
            "update_params_text", "atomic_write_text"]
@@ -231,20 +231,3 @@ def _plain(value: Any) -> Any:
     if hasattr(value, "item"):
         return value.item()
     return value
-
-
-def atomic_write_text(path: str | os.PathLike, text: str) -> None:
-    """Write ``text`` to a temporary file beside ``path`` and rename it into place when complete."""
-    p = Path(path)
-    p.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.", suffix=".part", dir=p.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            fh.write(text)
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes it private; give it the usual mode
-        os.replace(tmp, p)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
