@@ -320,3 +320,106 @@ def test_truth_body_offset_from_base_link_is_found_and_fitted(fitted) -> None:
     assert any("was fitted" in n for n in res.notes)
     # no false alarm on truth at base_link
     assert not any("NOT accounted" in n for n in fitted["res"].notes)
+
+
+# ---------------------------------------------------------------------------------------------
+# the truth's own noise and honest standard errors of the noise fit
+def _noisy_truth(sim, seed: int, sd_xy_m: float, sd_yaw_rad: float) -> PlanarPath:
+    """The simulator's truth with white noise on every pose (a motion-capture-like jitter)."""
+    rng = np.random.default_rng(seed)
+    p = sim.truth_path()
+    n = len(p.stamp_ns)
+    return PlanarPath(p.stamp_ns, p.x_m + sd_xy_m * rng.standard_normal(n), p.y_m + sd_xy_m * rng.standard_normal(n),
+                      p.yaw_rad + sd_yaw_rad * rng.standard_normal(n), "odom")
+
+
+def test_truth_noise_basis_matches_monte_carlo() -> None:
+    """The first-order covariance of a segment's truth relative motion under white pose noise
+    (truth_noise_basis) matches the sample covariance of 20000 noisy repetitions (Monte Carlo,
+    within 5 %; the relative motion is r = R(-th_i)(p_j - p_i), dth = th_j - th_i)."""
+    from wheel_dr.analysis.calibration import CalibrationRun, Segments, _relative, truth_noise_basis
+    x, y, th = np.array([0.3, 1.9]), np.array([-0.2, 0.9]), np.array([0.4, 1.1])
+    run = CalibrationRun("mc", np.array([0, 1]), np.zeros(2), np.zeros(2), np.zeros(2, dtype=bool), x, y, th,
+                         np.ones(2, dtype=bool))
+    basis = truth_noise_basis(run, Segments(np.array([0]), np.array([1]), 2.0))[0]
+    sd_xy, sd_yaw = 0.002, 0.003
+    rng = np.random.default_rng(5)
+    n = 20000
+    nx, ny, nt = (x + sd_xy * rng.standard_normal((n, 2)), y + sd_xy * rng.standard_normal((n, 2)),
+                  th + sd_yaw * rng.standard_normal((n, 2)))
+    rel = np.array([_relative(nx[k], ny[k], nt[k], np.array([0]), np.array([1]))[0] for k in range(n)])
+    sample = np.cov(rel.T)
+    model = sd_xy ** 2 * basis[0] + sd_yaw ** 2 * basis[1]
+    assert np.allclose(sample, model, rtol=0.05, atol=0.05 * np.max(np.abs(model)))
+
+
+def test_correlation_notes_name_pairs_that_cannot_be_told_apart() -> None:
+    """A joint covariance with correlation -0.97 between two parameters gives one sentence naming
+    both; 0.5 gives none (the threshold is TIED_CORRELATION)."""
+    from wheel_dr.analysis.calibration import correlation_notes
+    tied = np.array([[4.0, -0.97 * 2 * 3, 0.0], [-0.97 * 2 * 3, 9.0, 0.0], [0.0, 0.0, 1.0]])
+    notes = correlation_notes(("a", "b", "c"), tied)
+    assert len(notes) == 1 and "a and b cannot be told apart" in notes[0] and "-0.97" in notes[0]
+    assert correlation_notes(("a", "b"), np.array([[1.0, 0.5], [0.5, 1.0]])) == []
+
+
+@pytest.fixture(scope="module")
+def noise_free_wheels():
+    """Two drives of one route whose wheels carry no noise at all; the only noise is on the truth
+    (1 mm and 0.002 rad per pose), as in a motion-capture recording."""
+    out = []
+    for seed in (2, 5):
+        sc = Scenario(name="clean", segments=varied_route(1, 600.0), k_left_m=0.0, k_right_m=0.0)
+        sim = simulate(sc, seed=seed)
+        start = Settings.from_flat({**sc.nominal_params, "noise.k_left": 5e-4, "noise.k_right": 5e-4})
+        out.append((start, prepare_run(sim.joint_samples(), _noisy_truth(sim, seed + 100, 0.001, 0.002), start)))
+    return out
+
+
+def test_truth_jitter_is_not_blamed_on_the_wheels(noise_free_wheels) -> None:
+    """With the truth's noise modelled, the fitted truth noise is near the simulated 1 mm / 0.002 rad,
+    the wheel noise k is not distinguishable from zero (and the notes say so), and two drives of the
+    same robot agree within their standard errors, where a fit blaming the wheels split k between
+    left and right at random."""
+    ks = []
+    for start, run in noise_free_wheels:
+        res = calibrate([run], start)
+        nf = res.noise
+        assert nf.truth_fitted and nf.names[-2:] == ("truth.sd_xy", "truth.sd_yaw")
+        assert nf.truth_sd[0] == pytest.approx(0.001, rel=0.15)
+        assert nf.truth_sd[1] == pytest.approx(0.002, rel=0.3)
+        assert np.all(nf.theta < 2.0 * nf.std_error), (nf.theta, nf.std_error)
+        assert sum("not distinguishable from zero" in n for n in res.notes) == 2
+        assert nf.cov.shape == (4, 4) and np.allclose(nf.cov, nf.cov.T)
+        ks.append((nf.theta, nf.std_error))
+    (k1, s1), (k2, s2) = ks
+    assert np.all(np.abs(k1 - k2) < 3.0 * np.hypot(s1, s2))
+
+
+def test_given_truth_noise_is_used_as_is(noise_free_wheels) -> None:
+    """--truth-sd: the given truth noise is used, not fitted; the wheel noise is again not
+    distinguishable from zero; a negative value is refused with one sentence."""
+    start, run = noise_free_wheels[0]
+    res = calibrate([run], start, truth_sd=(0.001, 0.002))
+    assert not res.noise.truth_fitted and len(res.noise.names) == 2
+    assert np.allclose(res.noise.truth_sd, [0.001, 0.002])
+    assert np.all(res.noise.theta < 2.0 * res.noise.std_error)
+    with pytest.raises(CalibrationError, match="truth's noise"):
+        calibrate([run], start, truth_sd=(-0.001, 0.0))
+
+
+def test_noise_standard_errors_match_the_spread_over_repeated_drives() -> None:
+    """The noise fit's standard errors (joint covariance, sandwich form) match the spread of k over
+    repeated drives of one route with fresh wheel noise and an exact truth (Monte Carlo, within a
+    factor 2)."""
+    sc = Scenario(name="repeat", segments=varied_route(7, duration_s=150.0), k_left_m=2e-5, k_right_m=2e-5)
+    start = Settings.from_flat({**sc.true_params, "noise.k_left": 2e-5, "noise.k_right": 2e-5})
+    est, se = [], []
+    for seed in range(8):
+        sim = simulate(sc, seed=seed)
+        res = calibrate([prepare_run(sim.joint_samples(), sim.truth_path(), start)], start, fit_geometry=False,
+                        iterations=1, reject_outliers=False, truth_sd=(0.0, 0.0))
+        est.append(res.noise.theta)
+        se.append(res.noise.std_error)
+    ratio = np.std(est, axis=0, ddof=1) / np.mean(se, axis=0)
+    assert np.all((ratio > 0.5) & (ratio < 2.0)), ratio

@@ -62,6 +62,12 @@ def test_calibrate_writes_the_tuned_file_with_the_input_structure(bags) -> None:
     assert proc.returncode == 0, proc.stderr
     page = (bags["root"] / "report" / "index.html").read_text(encoding="utf-8")
     assert "Calibration" in page and "before calibration" in page and "after calibration" in page
+    # the calibration section is made of real tables and captioned figures in the page's style
+    calib = page[page.index('<section id="extra-1">'):page.index('<section id="reading">')]
+    assert "<pre" not in calib and calib.count('<table class="rank">') >= 3
+    assert "<td class=\"name\">wheels.left_radius</td>" in calib and "truth noise, position" in calib
+    assert calib.count("<figcaption>") == 2 and "figure 1" not in calib and "track width error" in calib
+    assert page.count("Caution.") == 1
     text = out.read_text(encoding="utf-8")
     values = parse_params_text(text)
     start = parse_params_text(START)
@@ -76,6 +82,8 @@ def test_calibrate_writes_the_tuned_file_with_the_input_structure(bags) -> None:
     # the comment block names what was fitted, from which bag, before and after figures
     head = text[:text.index("/**:")]
     assert "wheels.track_width" in head and "train" in head and "NEES" in head and "ATE" in head
+    from wheel_dr.report.describe import settings_description
+    assert settings_description(out).startswith("Tuned by `wheel-dr calibrate`")
     # fitted values: the simulator's truth (radii 0.1 %, track 0.2 %); the noise, whose 10 % target is
     # checked in test_calibration.py, within 20 % here (truth recorded at a fifth of the samples)
     assert values["wheels.left_radius"] == pytest.approx(QUOKKA_TRUE_LEFT_RADIUS_M, rel=1e-3)
@@ -115,6 +123,7 @@ def test_square_synth_and_square_csv(bags) -> None:
     ("short", "drive at least"),
     ("no_truth_flag", "--truth"),
     ("bad_csv", "header"),
+    ("bad_truth_sd", "--truth-sd"),
 ])
 def test_bad_input_is_one_sentence_without_traceback(bags, case: str, needle: str) -> None:
     args = {
@@ -123,6 +132,8 @@ def test_bad_input_is_one_sentence_without_traceback(bags, case: str, needle: st
         "short": [str(bags["short"]), "--truth", "/ground_truth", "--params", str(bags["start"])],
         "no_truth_flag": [str(bags["short"]), "--params", str(bags["start"])],
         "bad_csv": ["--square", str(bags["start"])],
+        "bad_truth_sd": [str(bags["short"]), "--truth", "/ground_truth", "--params", str(bags["start"]),
+                         "--truth-sd=-1,0"],
     }[case]
     proc = calibrate_cli(*args)
     assert proc.returncode == 2

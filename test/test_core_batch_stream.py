@@ -1,6 +1,6 @@
 """Batch ``run`` and streaming ``Estimator.step`` agree to 1e-9 on the same input, bad samples included.
 
-What is held equal (issue 2, "Two entry points on the same formulas"): pose (x, y, yaw, unwrapped
+What is held equal (two entry points on the same formulas): pose (x, y, yaw, unwrapped
 heading), pose covariance, twist and twist covariance after every accepted sample, the status of
 every sample and the counters, for every integration scheme x noise model and each wheel source
 (positions, velocities, encoder ticks with a 16-bit rollover, positions wrapping at +-pi).

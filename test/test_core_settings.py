@@ -2,7 +2,8 @@
 
 Sources: the ROS 2 parameters-file layout (a node name or the wildcard ``/**`` at the top, then
 ``ros__parameters``, nested keys; ROS 2 documentation, "Parameters", common practice); REP 105
-frame names ``odom`` and ``base_link`` as the defaults; issue 2, item 5, for the required names.
+frame names ``odom`` and ``base_link`` as the defaults; the required names are those the node and
+analyser document (docs/parameters.md).
 """
 from __future__ import annotations
 
@@ -44,7 +45,7 @@ def test_every_parameter_is_in_the_config_file_and_nothing_else() -> None:
 
 
 def test_required_names_and_rep105_defaults() -> None:
-    """Names the issue fixes exist; frames default to REP 105's odom and base_link; the default
+    """The documented required names exist; frames default to REP 105's odom and base_link; the default
     noise gives a non-zero covariance."""
     names = {s.name for s in Settings.specs()}
     assert set(REQUIRED) <= names
@@ -165,7 +166,7 @@ def test_update_params_text_keeps_comments_and_changes_only_given_values() -> No
 
 
 def test_core_imports_no_ros_bags_or_yaml() -> None:
-    """The core is pure numpy/scipy (issue 2): importing it pulls in no rclpy, rosbags, yaml or ROS
+    """The core is pure numpy/scipy: importing it pulls in no rclpy, rosbags, yaml or ROS
     message packages (checked in a fresh interpreter)."""
     code = ("import sys, json; import wheel_dr.core, wheel_dr.core.slip, wheel_dr.core.noise, "
             "wheel_dr.core.motion, wheel_dr.core.wheels, wheel_dr.core.conventions; "

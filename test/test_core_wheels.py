@@ -5,7 +5,7 @@ Sources (from /work/shared/REFERENCES.md):
   32 bits roll over and must be unwrapped (common practice).
 * Wheel travel ds = r dphi per side, and velocity x dt for drivers without usable positions
   (Siegwart, Nourbakhsh & Scaramuzza 2011, ch. 3; common practice).
-* Bad samples (issue 2, item 6, and the rules in wheel_dr.core.wheels' docstring): NaN or inf,
+* Bad samples (the rules in wheel_dr.core.wheels' docstring): NaN or inf,
   a stamp that repeats, goes backwards or is zero, a gap longer than limits.max_gap_s, a missing
   configured joint, names and values of different lengths, a jump above
   limits.max_wheel_speed_mps; each counted by kind, never raising out of the step.

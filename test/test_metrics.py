@@ -9,7 +9,8 @@ import pytest
 from scipy import stats
 
 from wheel_dr.analysis.consistency import chi2_bounds, mean_nees_bounds, nees, segment_covariance
-from wheel_dr.analysis.metrics import evaluate, rank, rpe_distance, slip_scores, slip_side_scores, step_noise_of
+from wheel_dr.analysis.metrics import (evaluate, nees_stats, rank, rpe_distance, slip_scores, slip_side_scores,
+                                       step_noise_of)
 from wheel_dr.analysis.path import PlanarPath
 from wheel_dr.core import JointSamples, Settings, run
 from wheel_dr.core.errors import InputError
@@ -134,6 +135,44 @@ def test_segment_nees_of_the_real_estimator_is_consistent_when_its_noise_model_i
         over_means.append(bad.metrics["nees_mean"])
     assert consistent >= 2              # each check is a 95 % interval
     assert 9.0 < np.mean(over_means) < 15.0
+
+
+def test_segments_the_estimator_flagged_are_scored_apart_from_the_rest() -> None:
+    """A consistent drive with five spins of the left wheel that the estimator flags: the flagged
+    segments carry the large NEES and are counted apart; the rest stay consistent (mean inside its
+    chi-square interval, Bar-Shalom et al. 2001 sec. 5.4); the median of all segments stays near the
+    chi-square(3) median, 2.366 (scipy.stats.chi2.median(3)), while the mean is pulled far up."""
+    k = 5e-4
+    samples, truth = drive(7, k)
+    n = len(samples.stamp_ns)
+    spin = np.zeros(n, dtype=bool)
+    for start in range(1000, 11000, 2000):
+        spin[start:start + 50] = True                          # 1 s at 50 Hz
+    pos = samples.position.copy()
+    pos[:, 0] += np.cumsum(spin * 0.01 / RADIUS_M)            # the left wheel turns 1 cm a step more
+    traj = run(JointSamples(samples.stamp_ns, samples.names, pos, samples.velocity), _settings(k))
+    flags = np.zeros(len(traj), dtype=bool)
+    flags[np.isin(traj.stamp_ns, samples.stamp_ns[spin])] = True
+    traj.slip.slip = flags                                      # the estimator's own flags on those samples
+    m = evaluate(traj, truth, _settings(k)).metrics
+    assert 5 <= m["nees_flagged_segments"] <= 10
+    assert m["nees_flagged_segments"] + m["nees_unflagged_segments"] == m["nees_segments"]
+    assert m["nees_flagged_median"] > 100
+    assert m["nees_unflagged_consistent"] and not m["nees_consistent"]
+    assert m["nees_mean"] > 10 * m["nees_unflagged_mean"]
+    assert abs(m["nees_median"] - stats.chi2.median(3)) < 0.6
+    assert 0.88 <= m["nees_unflagged_frac_inside_95"] <= 1.0
+
+
+def test_nees_stats_of_known_values() -> None:
+    """Count, mean, median and share inside the chi-square(3) 95 % band [0.2158, 9.348] (scipy.stats.chi2)
+    of five hand-picked values; empty input gives NaN, not an error."""
+    s = nees_stats(np.array([0.1, 1.0, 2.0, 3.0, 20.0]), "x")
+    assert s["x_segments"] == 5 and s["x_mean"] == pytest.approx(5.22) and s["x_median"] == 2.0
+    assert s["x_frac_inside_95"] == pytest.approx(0.6)
+    assert (s["x_mean_lo"], s["x_mean_hi"]) == pytest.approx(mean_nees_bounds(5, 3, 0.95))
+    empty = nees_stats(np.zeros(0), "y")
+    assert empty["y_segments"] == 0 and math.isnan(empty["y_mean"]) and math.isnan(empty["y_median"])
 
 
 def test_recorded_step_noise_equals_the_recomputed_one() -> None:
@@ -312,8 +351,7 @@ def test_truth_covering_part_of_the_run_is_compared_there_only() -> None:
 
 
 # ---------------------------------------------------------------------------------------------
-# slip scores (targets of issue 5: coverage after the first 0.2 s, false flags of non-slip time,
-# latency); expected counts worked out by hand below
+# slip scores (coverage after the first 0.2 s, false flags of non-slip time, latency); expected counts worked out by hand below
 def test_slip_scores_on_hand_made_flags() -> None:
     stamp = np.arange(200, dtype=np.int64) * 10_000_000          # 100 Hz, 0.00 .. 1.99 s
     t = stamp * 1e-9

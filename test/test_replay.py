@@ -128,3 +128,23 @@ def test_fast_text_fields_parse_back():
     stamps = np.array([1_800_000_000_123_456_789, 5, 999_999_999_999_999_999], dtype=np.int64)
     text = join_fields([stamp_field(stamps)]).decode().splitlines()
     assert [int(t.strip().replace(".", "")) for t in text] == stamps.tolist()
+
+
+def test_fast_text_fields_print_as_python_and_c_do():
+    """Every float is written exactly as Python's ``f"{x:.9e}"`` (the C printf "%.9e" layout: a sign
+    only when negative, at least two exponent digits; Python language reference, format
+    specification mini-language) and stamps carry no padding, so trajectory.csv reads like any other
+    CSV. Values cover eighteen decades, ties of the tenth digit, powers of ten, zero, -0.0 and
+    subnormals."""
+    from wheel_dr.bags.textout import float_field, join_fields, stamp_field
+    rng = np.random.default_rng(3)
+    v = np.concatenate([rng.normal(size=20000) * 10.0 ** rng.integers(-9, 9, 20000),
+                        rng.normal(size=2000) * 10.0 ** rng.integers(-320, 308, 2000),
+                        np.round(rng.uniform(-10, 10, 2000), 10) + 5e-11,        # near ties of the tenth digit
+                        [0.0, -0.0, 1.0, 9.9999999995, 3.494150237e-03, 0.5, 1e100, 1e-100, 5e-324]])
+    assert join_fields([float_field(v)]).decode().splitlines() == [f"{x:.9e}" for x in v]
+    assert join_fields([float_field(np.array([3.494150237e-03, -2.5]))]) == b"3.494150237e-03\n-2.500000000e+00\n"
+    assert join_fields([float_field(np.array([np.nan, np.inf, -1.0]))]).decode().splitlines() == \
+        ["nan", "inf", "-1.000000000e+00"]
+    stamps = np.array([5, 12_000_000_001, 1_700_000_000_123_456_789], dtype=np.int64)
+    assert join_fields([stamp_field(stamps)], sep=",") == b"0.000000005\n12.000000001\n1700000000.123456789\n"

@@ -140,10 +140,77 @@ def test_page_embeds_every_figure_and_needs_nothing_beside_it(page: Path) -> Non
         assert png.startswith(PNG_SIGNATURE)
         img = imread(io.BytesIO(png))
         assert img.shape[0] > 50 and img.shape[1] > 50
-    assert parser.sections[:3] == ["ranking", "bag-1", "bag-2"] and "extra-1" in parser.sections
+    assert parser.sections[:4] == ["ranking", "consistency", "bag-1", "bag-2"] and "extra-1" in parser.sections
     assert "Calibration" in parser.headings and "calib-fragment" in text
     assert CAUTION_TEXT.split(".")[0] in text           # the safety caution is shown
     assert sorted(p.name for p in tmp_path.iterdir()) == ["index.html"]   # no temporary file left
+
+
+def test_caution_is_shown_once_even_when_a_note_repeats_it(tmp_path: Path, evaluations) -> None:
+    """The page shows the one safety text (wheel_dr.safety) once, in its box; a note with the same
+    words (as the command line passes) is not printed a second time; other notes are."""
+    import html as _html
+    from wheel_dr.safety import SAFETY_TEXT
+    assert CAUTION_TEXT == SAFETY_TEXT
+    text = write_report(tmp_path, evaluations[:2], notes=[SAFETY_TEXT, "Demo data: invented."]).read_text("utf-8")
+    assert text.count(_html.escape(SAFETY_TEXT)) == 1
+    assert "Demo data: invented." in text
+
+
+def test_settings_are_described_from_each_file(tmp_path: Path, evaluations) -> None:
+    """Each settings file is listed with the description its header gives (a '# description:' line,
+    else the first comment paragraph, else a sentence saying how to add one), never a fixed text."""
+    a = tmp_path / "nominal.yaml"
+    a.write_text("# description: Design radii for the Wombat tug.\n#   Second line of it.\n# Other text.\n/**:\n"
+                 "  ros__parameters: {}\n", encoding="utf-8")
+    b = tmp_path / "radius_plus_2pct.yaml"
+    b.write_text("# Radii two per cent over the design,\n# for the comparison.\n\n/**:\n  ros__parameters: {}\n",
+                 encoding="utf-8")
+    c = tmp_path / "bare.yaml"
+    c.write_text("/**:\n  ros__parameters: {}\n", encoding="utf-8")
+    out = tmp_path / "page"
+    text = write_report(out, evaluations[:2], settings_files=[("nominal", a), ("radius_plus_2pct", b), ("bare", c)]
+                        ).read_text("utf-8")
+    parser = _PageParser()
+    parser.feed(text)
+    assert "settings" in parser.sections
+    described = {r[0]: r[2] for r in parser.rows if len(r) == 3}
+    assert described["nominal"] == "Design radii for the Wombat tug. Second line of it."
+    assert described["radius_plus_2pct"] == "Radii two per cent over the design, for the comparison."
+    assert "add a '# description: ...' comment line" in described["bare"]
+
+
+def test_consistency_table_scores_flagged_stretches_apart(page: Path, evaluations) -> None:
+    """The consistency table shows, per settings, count, mean, median and share in band for all
+    stretches, the unflagged ones and the flagged ones, as the metrics give them."""
+    parser = _PageParser()
+    parser.feed(page.read_text(encoding="utf-8"))
+    rows = [r for r in parser.rows if len(r) == 13 and r[0] in {e.name for e in evaluations}]
+    assert len(rows) == len(evaluations)
+    by_bag = {}
+    for e in rank(evaluations):
+        by_bag.setdefault(e.bag, []).append(e)
+    for row, e in zip(rows, [e for group in by_bag.values() for e in group]):
+        m = e.metrics
+        assert row[0] == e.name
+        for k, prefix in enumerate(("nees", "nees_unflagged", "nees_flagged")):
+            n, mean, median, share = row[1 + 4 * k: 5 + 4 * k]
+            assert int(n) == m[f"{prefix}_segments"]
+            assert mean.startswith(f"{m[f'{prefix}_mean']:.2f}")
+            assert median == f"{m[f'{prefix}_median']:.2f}"
+            assert share == f"{m[f'{prefix}_frac_inside_95']:.0%}"
+        assert m["nees_flagged_segments"] >= 1            # the hand-made flags fall inside one stretch
+
+
+def test_extra_section_images_carry_their_own_captions(tmp_path: Path, evaluations) -> None:
+    """An extra section's (image, caption) pairs are shown with those captions."""
+    fig = new_figure(3, 2)
+    fig.add_subplot(1, 1, 1).plot([0, 1], [1, 0])
+    text = write_report(tmp_path, evaluations[:2], extra_sections=[("Calibration", "<p>x</p>",
+                                                                    [(fig, "Heading error per segment.")])]
+                        ).read_text("utf-8")
+    assert "<figcaption>Heading error per segment.</figcaption>" in text
+    assert "figure 1" not in text
 
 
 def test_ranking_table_lists_each_recording_best_first(page: Path, evaluations) -> None:
@@ -163,6 +230,17 @@ def test_ranking_table_lists_each_recording_best_first(page: Path, evaluations) 
     # slip precision is the same for both settings (same hand-made flags): nothing singled out
     p_col = 2 + [t for _, t, _ in RANK_COLUMNS].index("slip P")
     assert not any(c == p_col for _, c in parser.best_cells)
+
+
+def test_summary_columns_are_the_documented_ones(evaluations) -> None:
+    """docs/report.md lists summary.csv's columns in order; they are the columns a real evaluation
+    writes (the per-length RPE columns follow)."""
+    import re
+    doc = (Path(__file__).resolve().parents[1] / "docs" / "report.md").read_text(encoding="utf-8")
+    listed = doc[doc.index("## summary.csv columns"):doc.index("then per RPE length L:")]
+    names = re.findall(r"[a-z_0-9]+", listed[listed.index("`"):].replace("`", " "))
+    row = evaluations[0].summary_row()
+    assert names == [k for k in row if not re.match(r"rpe_(trans_pct|rot_degpm|segments)_\d", k)]
 
 
 def test_summary_files_read_back_equal(tmp_path: Path, evaluations) -> None:

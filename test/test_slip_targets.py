@@ -1,8 +1,8 @@
-"""Issue 5's slip targets, asserted on held-out synthetic rounds, and hard cases that must not fire.
+"""The slip detectors' targets, asserted on held-out synthetic rounds, and hard cases that must not fire.
 
 The scenarios come from test/slip_scenarios.py (known slip intervals of both kinds, on straights
 and in arcs). Seeds 201-208 were never looked at while the defaults were chosen (those used
-seeds 1-6 and 101-108, see tools/bench_slip.py --tuning). Targets (issue 5): flags cover at least
+seeds 1-6 and 101-108, see tools/bench_slip.py --tuning). Targets: flags cover at least
 95 % of slip time after the first 0.2 s of each event; at most 1 % of non-slip time flagged;
 detection latency under 0.2 s; with gyro substitution the heading error over a slip event at
 least 5x smaller than without.

@@ -17,7 +17,7 @@ this process with sensor_msgs/JointState at ``--rate`` Hz for ``--seconds`` s, a
 * CPU of the node's process as % of one core, from utime + stime in /proc/<pid>/stat over the
   driven window.
 
-Targets (issue 3): none lost, p99 under 1 ms, under 15 % of a core. The machine is shared (2 cores),
+Aims: none lost, p99 under 1 ms, under 15 % of a core. The machine is shared (2 cores),
 so run it when nothing else is busy and repeat it; the figures vary with load.
 Usage: .venv/bin/python tools/bench_node.py [--rate 1000] [--seconds 10] [--no-e2e]
 """

@@ -8,7 +8,7 @@ Run: ``.venv/bin/python tools/bench_replay.py [--minutes 60] [--keep DIR]``. Pri
 * replay: ``wheel-dr replay BAG`` (bulk decode, the core's batch run, trajectory.csv and .tum);
 * compare: ``wheel-dr compare BAG --params x8`` (decode once, 8 runs, metrics, summary, HTML page).
 
-Targets (issue 4): replay at least 5x faster than the naive loop (aim 20x); compare with 8 settings
+Aims: replay at least 5x faster than the naive loop (aim 20x); compare with 8 settings
 under 2x one replay.
 """
 from __future__ import annotations

@@ -4,8 +4,7 @@ Shell only: it reads bags and files, calls wheel_dr.analysis.calibration / umbma
 and writes the tuned parameters file (same structure and names as the input, only fitted values
 changed, ``wheel_dr.params.update_params_text``). Errors a user can cause are one sentence, exit 2.
 
-Caution: wheel odometry and its covariance are not a safety function; test a tuned file in a clear
-area with an emergency stop at hand and defer to the machine's safety assessment.
+The safety caution it prints is ``wheel_dr.safety.SAFETY_TEXT``.
 """
 from __future__ import annotations
 
@@ -16,9 +15,6 @@ import sys
 from pathlib import Path
 from typing import Sequence
 
-import numpy as np
-
-
 from .analysis.calibration import (GEOMETRY_NAMES, CalibrationError, CalibrationResult, CalibrationRun,
                                    RunFigures, TruthError, calibrate, prepare_run)
 from .core.path import PlanarPath
@@ -28,13 +24,13 @@ from .core.errors import WheelDrError
 from .core.settings import NOISE_MODELS, Settings
 from .core.wheels import JointSamples
 from .params import atomic_write_text, parse_params_text, update_params_text, write_params_text
+from .safety import SAFETY_TEXT
 
 __all__ = ["add_parser", "run_calibrate", "main", "load_bag", "default_params_text", "SAFETY_NOTE", "figures_table",
            "result_lines", "header_text", "calibration_section",
            "demo_calibration"]
 
-SAFETY_NOTE = ("Caution: odometry, its covariance and slip flags are not safety functions; try the tuned file in a "
-               "clear area with an emergency stop at hand and defer to the machine's safety assessment.")
+SAFETY_NOTE = SAFETY_TEXT
 
 
 def load_bag(path: str | Path, truth: str, joint_topic: str | None = None) -> tuple[JointSamples, PlanarPath]:
@@ -105,7 +101,7 @@ def figures_table(before: Sequence[RunFigures], after: Sequence[RunFigures], tit
              f"{'NEES before':>11} {'after':>7}  {'95% interval':>15}  segs"]
     for b, a in zip(before, after):
         inside = "ok" if a.nees_inside else "OUT"
-        lines.append(f"  {b.name[-28:]:<28} {_fmt(b.ate_m, '10.3f')} {_fmt(a.ate_m, '8.3f')}  "
+        lines.append(f"  {b.name[:28]:<28} {_fmt(b.ate_m, '10.3f')} {_fmt(a.ate_m, '8.3f')}  "
                      f"{_fmt(b.drift_pct, '13.2f')} {_fmt(a.drift_pct, '7.2f')}  {_fmt(b.nees_mean, '11.2f')} "
                      f"{_fmt(a.nees_mean, '7.2f')}  [{_fmt(a.nees_lo, '.2f')}, {_fmt(a.nees_hi, '.2f')}] {inside:>3} "
                      f"{a.n_segments:5d}")
@@ -130,9 +126,15 @@ def result_lines(res: CalibrationResult, bag_names: Sequence[str]) -> list[str]:
             "alpha1", "alpha2", "alpha3", "alpha4")
         old = ([before["noise.k_left"], before["noise.k_right"]] if res.noise.model == "per_wheel"
                else list(before["noise.alphas"]))
-        lines.append(f"  noise model {res.noise.model} ({res.noise.n_segments} segments, maximum likelihood):")
+        lines.append(f"  noise model {res.noise.model} ({res.noise.n_segments} segments, maximum likelihood; "
+                     "standard errors from the joint covariance):")
         for n, o, v, se in zip(names, old, res.noise.theta, res.noise.std_error):
             lines.append(f"    {n:<20} {float(o):.4g} -> {v:.4g}  (+- {se:.2g})")
+        sd, sd_se = res.noise.truth_sd, res.noise.truth_sd_se
+        how = "fitted" if res.noise.truth_fitted else "given"
+        err = (f"  (+- {1000 * sd_se[0]:.2g} mm, {math.degrees(sd_se[1]):.2g} deg)" if res.noise.truth_fitted else "")
+        lines.append(f"    truth noise ({how}, not written to the file): {1000 * sd[0]:.3g} mm, "
+                     f"{math.degrees(sd[1]):.3g} deg per pose{err}")
     e = res.excitation
     lines.append(f"  drive: {e.travel_m:.0f} m wheel travel, {e.straight_m:.0f} m straight, turns "
                  f"{math.degrees(e.left_turn_rad):.0f} deg left / {math.degrees(e.right_turn_rad):.0f} deg right")
@@ -149,7 +151,9 @@ def header_text(res: CalibrationResult, bag_names: Sequence[str], holdout_names:
                 start_label: str) -> str:
     """The comment block on top of TUNED.yaml."""
     when = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
-    lines = [f"Tuned by `wheel-dr calibrate` on {when}, starting from {start_label}.",
+    lines = [f"description: Tuned by `wheel-dr calibrate` on {when} from {start_label}; fitted "
+             f"{', '.join(res.values)}.",
+             f"Tuned by `wheel-dr calibrate` on {when}, starting from {start_label}.",
              f"Fitted: {', '.join(res.values)}; every other value is as in the starting file."]
     lines += result_lines(res, bag_names)
     if holdout_names:
@@ -177,6 +181,7 @@ def _bags(args: argparse.Namespace) -> int:
     if not args.truth:
         raise TruthError("no ground truth given; name its topic with --truth TOPIC (nav_msgs/Odometry or "
                          "geometry_msgs/PoseStamped), or use --square for the square test without truth.")
+    truth_sd = _truth_sd(getattr(args, "truth_sd", None))
     text, settings, label = _read_params(args.params)
     prepared = _prepare(args.bags, args, settings)
     held = _prepare(args.holdout or [], args, settings)
@@ -184,7 +189,8 @@ def _bags(args: argparse.Namespace) -> int:
     holdout = [r for *_, r in held]
     res = calibrate(runs, settings, segment_length_m=args.segment_m, noise_segment_m=args.noise_segment_m,
                     fit_geometry=not args.no_geometry, fit_noise_params=not args.no_noise,
-                    noise_model=args.noise_model, holdout=holdout, fit_truth_offset=args.truth_offset)
+                    noise_model=args.noise_model, holdout=holdout, fit_truth_offset=args.truth_offset,
+                    truth_sd=truth_sd)
     names = [r.name for r in runs]
     for line in result_lines(res, names):
         print(line)
@@ -193,72 +199,34 @@ def _bags(args: argparse.Namespace) -> int:
         atomic_write_text(args.write, update_params_text(text, _rounded(res.values), header))
         print(f"Wrote {args.write}: launch the node with --ros-args --params-file {args.write}")
     if args.report:
-        _write_report(args.report, prepared, held, res)
+        _write_report(args.report, prepared, held, res, label, args.write)
     print(SAFETY_NOTE)
     return 0
 
 
+def _truth_sd(text: str | None) -> tuple[float, float] | None:
+    """--truth-sd POS_M,YAW_RAD (one number: the same for both is refused; 0 means an exact truth)."""
+    if text is None:
+        return None
+    parts = [p.strip() for p in str(text).split(",")]
+    try:
+        values = [float(p) for p in parts]
+    except ValueError:
+        values = []
+    if len(values) == 1 and values[0] == 0.0:
+        return (0.0, 0.0)
+    if len(values) != 2 or not all(math.isfinite(v) and v >= 0 for v in values):
+        raise CalibrationError(f"--truth-sd is '{text}'; give the truth's noise per pose as POSITION_M,HEADING_RAD "
+                               "(for example 0.001,0.002), or 0 for an exact truth.")
+    return values[0], values[1]
+
+
 def calibration_section(res: CalibrationResult, runs: Sequence[CalibrationRun], bag_names: Sequence[str],
                         holdout: Sequence[CalibrationRun] = ()) -> tuple[str, str, list]:
-    """A report section (title, HTML fragment, figures) for ``wheel_dr.report.write_report``'s
-    ``extra_sections``: the fitted values with standard errors, the before/after figures and a plot of
-    the segment errors before and after (yaw error against the segment's turn: its slope is the track
-    error; forward error against the segment's forward travel: its slope is the mean radius error)."""
-    import html
-
-    import matplotlib
-    matplotlib.use("Agg")
-    from matplotlib.figure import Figure
-
-    from .analysis.calibration import geometry_of, make_segments, segment_errors, _relative
-
-    esc = html.escape
-    rows = "".join(f"<tr><td>{esc(line.strip())}</td></tr>" for line in result_lines(res, bag_names)
-                   if not line.startswith(("Fitted bags", "Held-out", "  bag ")) and "[" not in line)
-
-    def table(before: Sequence[RunFigures], after: Sequence[RunFigures], caption: str) -> str:
-        head = ("<tr><th>bag</th><th>ATE m before</th><th>after</th><th>drift % before</th><th>after</th>"
-                "<th>NEES before</th><th>after</th><th>95 % interval</th><th>segments</th></tr>")
-        body = "".join(
-            f"<tr><td>{esc(b.name)}</td><td>{_fmt(b.ate_m, '.3f')}</td><td>{_fmt(a.ate_m, '.3f')}</td>"
-            f"<td>{_fmt(b.drift_pct, '.2f')}</td><td>{_fmt(a.drift_pct, '.2f')}</td>"
-            f"<td>{_fmt(b.nees_mean, '.2f')}</td><td>{_fmt(a.nees_mean, '.2f')}</td>"
-            f"<td>[{_fmt(a.nees_lo, '.2f')}, {_fmt(a.nees_hi, '.2f')}] {'inside' if a.nees_inside else 'outside'}</td>"
-            f"<td>{a.n_segments}</td></tr>" for b, a in zip(before, after))
-        return f"<table><caption>{esc(caption)}</caption>{head}{body}</table>"
-
-    frag = (f"<p>Radii and track by least squares on segment-relative motion against ground truth, noise by "
-            f"maximum likelihood of segment errors under the propagated covariance. {esc(SAFETY_NOTE)}</p>"
-            f"<table>{rows}</table>" + table(res.figures_before, res.figures_after, "Fitted bags")
-            + (table(res.holdout_before, res.holdout_after, "Held-out bags (not used in the fit)")
-               if res.holdout_after else ""))
-    fig = Figure(figsize=(10, 4))
-    ax1, ax2 = fig.subplots(1, 2)
-    scheme = res.before.integration
-    for label, settings, colour in (("before", res.before, "tab:red"), ("after", res.after, "tab:blue")):
-        turn, eyaw, fwd, ex = [], [], [], []
-        for run in list(runs) + list(holdout):
-            seg = make_segments(run, res.segment_length_m)
-            if len(seg) == 0:
-                continue
-            err = segment_errors(run, seg, geometry_of(settings), scheme)
-            tru = _relative(run.truth_x_m, run.truth_y_m, run.truth_yaw_rad, seg.start, seg.end)
-            turn.append(tru[:, 2])
-            eyaw.append(err[:, 2])
-            fwd.append(tru[:, 0])
-            ex.append(err[:, 0])
-        if turn:
-            ax1.plot(np.degrees(np.concatenate(turn)), np.degrees(np.concatenate(eyaw)), ".", ms=3, color=colour,
-                     label=label)
-            ax2.plot(np.concatenate(fwd), 100 * np.concatenate(ex), ".", ms=3, color=colour, label=label)
-    ax1.set(xlabel="segment turn (deg, truth)", ylabel="yaw error (deg)", title="heading error per segment")
-    ax2.set(xlabel="segment forward motion (m, truth)", ylabel="forward error (cm)",
-            title="forward error per segment")
-    for ax in (ax1, ax2):
-        ax.grid(True, alpha=0.3)
-        ax.legend()
-    fig.tight_layout()
-    return "Calibration", frag, [fig]
+    """A report section (title, HTML fragment, (figure, caption) pairs) for ``write_report``'s
+    ``extra_sections``: see ``wheel_dr.report.calibration_section``."""
+    from .report.calibration_section import calibration_section as section
+    return section(res, runs, bag_names, holdout)
 
 
 def demo_calibration(duration_s: float = 600.0, route_seed: int = 7, seed: int = 11, k_m: float = 2e-5
@@ -281,7 +249,8 @@ def demo_calibration(duration_s: float = 600.0, route_seed: int = 7, seed: int =
 
 
 def _write_report(out_dir: str, prepared: Sequence[tuple[str, JointSamples, PlanarPath, CalibrationRun]],
-                  held: Sequence[tuple[str, JointSamples, PlanarPath, CalibrationRun]], res: CalibrationResult) -> None:
+                  held: Sequence[tuple[str, JointSamples, PlanarPath, CalibrationRun]], res: CalibrationResult,
+                  start_label: str = "the starting file", tuned_path: str | None = None) -> None:
     from .analysis.metrics import evaluate
     from .core.estimator import run as run_estimator
     from .report import write_report
@@ -292,8 +261,12 @@ def _write_report(out_dir: str, prepared: Sequence[tuple[str, JointSamples, Plan
             traj = run_estimator(samples, settings)
             evaluations.append(evaluate(traj, truth, settings, bag=name, name=label))
     section = calibration_section(res, [r for *_, r in prepared], [n for n, *_ in prepared], [r for *_, r in held])
+    described = {"before calibration": f"the starting settings: {start_label}",
+                 "after calibration": "the same with the fitted values ("
+                                      + ", ".join(res.values) + ")"
+                                      + (f", written to {tuned_path}" if tuned_path else ", not written (no --write)")}
     path = write_report(out_dir, evaluations, title="wheel_dr calibration", extra_sections=[section],
-                        notes=[SAFETY_NOTE])
+                        settings_files=described)
     print(f"Report: {path}")
 
 
@@ -346,7 +319,8 @@ def _square(args: argparse.Namespace) -> int:
     if args.write:
         values = _rounded(dict(zip(GEOMETRY_NAMES, (rl, rr, b))))
         when = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
-        header = "\n".join([f"Tuned by `wheel-dr calibrate --square` on {when}, starting from {label}.",
+        header = "\n".join([f"description: Tuned by `wheel-dr calibrate --square` on {when} from {label}.",
+                            f"Tuned by `wheel-dr calibrate --square` on {when}, starting from {label}.",
                             f"Fitted: {', '.join(values)}; every other value is as in the starting file."]
                            + lines + [SAFETY_NOTE])
         atomic_write_text(args.write, update_params_text(text, values, header))
@@ -392,6 +366,9 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                    help="segment length (mean wheel travel, m) for the geometry fit and figures (default 2)")
     p.add_argument("--noise-segment-m", type=float, default=0.2,
                    help="segment length (m) for the noise fit (default 0.2; lengthen it when the truth is noisy)")
+    p.add_argument("--truth-sd", metavar="POS_M,YAW_RAD",
+                   help="the truth's own noise per pose (standard deviations, e.g. 0.001,0.002; 0 = exact); "
+                        "default: fitted with the wheel noise")
     p.add_argument("--truth-offset", action="store_true",
                    help="also fit where the truth's body frame sits in base_link (a marker set off the base's "
                         "origin or turned); without it a clear offset is reported")

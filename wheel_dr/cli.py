@@ -3,9 +3,7 @@
 A shell: it reads files and bags, calls the core and wheel_dr.analysis, writes files and prints.
 Errors a user can cause are one sentence on stderr with exit status 2, never a traceback.
 
-Caution: wheel odometry, its covariance and slip flags are not safety functions; use them as advisory
-inputs to navigation, never instead of a safety-rated stop, and defer to local codes and the
-machine's safety assessment.
+The safety caution it prints is ``wheel_dr.safety.SAFETY_TEXT``.
 """
 from __future__ import annotations
 
@@ -21,12 +19,13 @@ from typing import Sequence
 import numpy as np
 
 from . import __version__
+from .core import errors as _errors
 from .core.errors import WheelDrError
+from .safety import SAFETY_TEXT
 
 __all__ = ["main", "build_parser", "SAFETY_NOTE", "write_trajectory_csv", "write_tum", "TRAJECTORY_COLUMNS"]
 
-SAFETY_NOTE = ("Odometry, its covariance and slip flags are not safety functions: advisory inputs to navigation, "
-               "never a substitute for a safety-rated stop; defer to local codes and the machine's safety assessment.")
+SAFETY_NOTE = SAFETY_TEXT
 
 TRAJECTORY_COLUMNS = ("t", "x", "y", "yaw", "cov_xx", "cov_xy", "cov_xyaw", "cov_yy", "cov_yyaw", "cov_yawyaw", "slip",
                       "v", "w", "slip_left", "slip_right")
@@ -34,8 +33,7 @@ TRAJECTORY_COLUMNS = ("t", "x", "y", "yaw", "cov_xx", "cov_xy", "cov_xyaw", "cov
 SCENARIOS = ("demo", "square-cw", "square-ccw", "varied")
 
 
-class UsageError(WheelDrError):
-    """A command-line value is wrong."""
+UsageError = _errors.UsageError            # defined with every other error in wheel_dr.core.errors
 
 
 # -- output helpers ------------------------------------------------------------------------------
@@ -191,7 +189,7 @@ def _cmd_compare(args: argparse.Namespace, title: str = "wheel_dr comparison", n
             "truth": args.truth or "auto", "bag_info": res.bag_info}
     t1 = time.perf_counter()
     csv_path, json_path = write_summary(out, res.evaluations, meta=meta)
-    page = write_report(out, res.evaluations, title=title, notes=list(notes) + [SAFETY_NOTE],
+    page = write_report(out, res.evaluations, title=title, notes=list(notes), settings_files=sfs,
                         extra_sections=list(extra_sections))
     t2 = time.perf_counter()
     _say(ranking_text(res.evaluations))
@@ -241,9 +239,7 @@ def _cmd_demo(args: argparse.Namespace) -> int:
                             out=str(out))
     return _cmd_compare(ns, title="wheel_dr demo: the Quokka cart's night round (invented scenario)",
                         notes=["Demo data: the 'Quokka' cart and the 'Ferncliff Seed Bank' are invented; the numbers "
-                               "are demo-only.",
-                               "Settings: nominal geometry (design values), corrected geometry (what calibration "
-                               "finds), and the odometry motion model instead of the per-wheel noise model."],
+                               "are demo-only."],
                         extra_sections=sections)
 
 

@@ -1,4 +1,4 @@
-"""Documentation generated from the settings schema: the README's parameter reference table."""
+"""Documentation generated from the settings schema: the parameter reference table of docs/parameters.md."""
 from __future__ import annotations
 
 from .core.settings import Settings

@@ -23,7 +23,20 @@ Chiaverini & Fusco, IEEE T-RO 21(5), 2005, and Censi et al., IEEE T-RO 29(2), 20
    P(theta) = sum_a theta_a P_a with basis covariances P_a propagated once. Steps 3 and 4 alternate
    until stable; segments whose NEES is beyond the chi-square(3) 99.9 % quantile (slip, truth
    glitches) are set aside. The noise uses shorter segments than the geometry (more independent
-   samples); truth noise is not modelled, so it must be small against the wheel noise over them.
+   samples).
+   The truth's own noise is modelled too, so that truth jitter is not blamed on the wheels: each
+   truth pose carries white noise of standard deviation sd_xy (each of x, y) and sd_yaw, which adds
+   to every segment the covariance sd_xy^2 B_xy + sd_yaw^2 B_yaw of its relative motion
+   (``truth_noise_basis``: both end positions, and the start heading turning the displacement).
+   The two variances are fitted with the wheel noise (the same linear-in-parameters likelihood) or
+   given (``truth_sd``). Segments that share an end pose share its noise; that correlation is
+   neglected (common practice for a first-order model; the segments stay much longer than the
+   truth noise).
+   Standard errors of the noise come from the joint fit's covariance (wheel and truth parameters
+   together), the sandwich F^-1 (sum_s u_s u_s^T) F^-1 of the expected information F and the
+   per-segment scores u_s, which stays honest when the noise model does not fit (Huber 1967;
+   White 1982, from memory), so correlations between parameters are in it; pairs with a
+   correlation beyond ``TIED_CORRELATION`` are reported as not told apart.
 5. Optionally (``fit_truth_offset``) the pose of the truth's body frame in base_link is fitted
    too (three more parameters): B_rel = M (+) T_rel (+) M^-1 for each segment.
 
@@ -42,7 +55,7 @@ from typing import Sequence
 import numpy as np
 from scipy import optimize, stats
 
-from ..core.errors import InputError
+from ..core import errors as _errors
 from ..core.motion import body_increment, integrate, wrap_angle
 from ..core.noise import increment_noise, segment_covariance as segment_propagate
 from ..core.se2 import Poses, rotate_covariance, umeyama_se2
@@ -79,6 +92,9 @@ __all__ = [
     "run_figures",
     "calibrate",
     "mean_nees_interval",
+    "truth_noise_basis",
+    "correlation_notes",
+    "TRUTH_NOISE_NAMES",
 ]
 
 GEOMETRY_NAMES = ("wheels.left_radius", "wheels.right_radius", "wheels.track_width")
@@ -91,18 +107,14 @@ LOOSE_TRACK = 2e-3
 MOUNT_NOTE_M = 0.005          # a truth body offset beyond these (and 4 sigma) is reported when not fitted
 MOUNT_NOTE_RAD = math.radians(0.2)      # chi-square(3) quantile beyond which a segment is set aside
 _MIN_VARIANCE = 1e-14         # added to the diagonal of segment covariances (m^2, rad^2)
+TIED_CORRELATION = 0.9        # |correlation| beyond this: the two parameters cannot be told apart
+TRUTH_NOISE_NAMES = ("truth.sd_xy", "truth.sd_yaw")     # m, rad per truth pose (not written to the file)
 
 
-class CalibrationError(InputError):
-    """Calibration cannot proceed with the data given; the message names what to record or drive."""
-
-
-class TruthError(CalibrationError):
-    """Ground truth is missing, too sparse or does not overlap the joint states."""
-
-
-class ExcitationError(CalibrationError):
-    """The drive does not excite the parameters enough to fit them (too short, too straight, one-sided)."""
+# defined with every other error in wheel_dr.core.errors
+CalibrationError = _errors.CalibrationError
+TruthError = _errors.TruthError
+ExcitationError = _errors.ExcitationError
 
 
 # ------------------------------------------------------------------------------------------------
@@ -312,6 +324,46 @@ def segment_covariance_basis(run: CalibrationRun, seg: Segments, geometry: Seque
     return out
 
 
+def truth_noise_basis(run: CalibrationRun, seg: Segments) -> np.ndarray:
+    """(S, 2, 3, 3) covariance of each segment's truth relative motion per unit of the truth's
+    position variance (sd_xy^2, each of x and y) and heading variance (sd_yaw^2) per pose.
+
+    The relative motion is r = R(-th_i) (p_j - p_i), dth = th_j - th_i. Position noise at both ends
+    adds 2 sd_xy^2 to x and y (isotropic, so the rotation does not change it); heading noise at the
+    start turns the displacement, dr/dth_i = (r_y, -r_x), and enters dth with -1; heading noise at
+    the end enters dth with +1 (first order)."""
+    tru = _relative(run.truth_x_m, run.truth_y_m, run.truth_yaw_rad, seg.start, seg.end)
+    out = np.zeros((len(seg), 2, 3, 3))
+    out[:, 0, 0, 0] = out[:, 0, 1, 1] = 2.0
+    v = np.column_stack([tru[:, 1], -tru[:, 0], -np.ones(len(seg))])
+    out[:, 1] = v[:, :, None] * v[:, None, :]
+    out[:, 1, 2, 2] += 1.0
+    return out
+
+
+def correlation_notes(names: Sequence[str], cov: np.ndarray, threshold: float = TIED_CORRELATION) -> list[str]:
+    """One sentence per pair of parameters whose correlation (from their joint covariance ``cov``)
+    exceeds ``threshold`` in size: they cannot be told apart on this drive, only a combination is
+    known (their sum for a negative correlation, their difference for a positive one)."""
+    cov = np.asarray(cov, dtype=np.float64)
+    sd = np.sqrt(np.maximum(np.diag(cov), 0.0))
+    out = []
+    for a in range(len(names)):
+        for b in range(a + 1, len(names)):
+            if not (sd[a] > 0 and sd[b] > 0 and math.isfinite(sd[a]) and math.isfinite(sd[b])):
+                continue
+            r = float(cov[a, b] / (sd[a] * sd[b]))
+            if abs(r) > threshold:
+                combo = "a sum of the two" if r < 0 else "a difference of the two"
+                if any(n in TRUTH_NOISE_NAMES for n in (names[a], names[b])):
+                    todo = "give the truth's noise with --truth-sd, or fit on longer noise segments (--noise-segment-m)"
+                else:
+                    todo = "drive more of what separates them (turns both ways, arcs, straight runs at several speeds)"
+                out.append(f"{names[a]} and {names[b]} cannot be told apart on this drive (correlation {r:+.2f}): "
+                           f"only {combo} is well known; {todo} before relying on either value.")
+    return out
+
+
 def noise_vector(settings: Settings, model: str | None = None) -> np.ndarray:
     """The noise parameters of ``model`` (default the settings' own) as a vector."""
     n = settings.noise
@@ -345,6 +397,14 @@ def _combine(basis: np.ndarray, theta: np.ndarray, extra: np.ndarray | None = No
     return (vec * lam[:, None, :]) @ np.swapaxes(vec, 1, 2)
 
 
+def _truth_cov(basis: np.ndarray, truth_var: Sequence[float]) -> np.ndarray | None:
+    """sd_xy^2 B_xy + sd_yaw^2 B_yaw per segment (None when the truth is taken as exact)."""
+    tv = np.asarray(truth_var, dtype=np.float64)
+    if not np.any(tv > 0):
+        return None
+    return np.einsum("a,sakl->skl", tv, basis)
+
+
 def mean_nees_interval(n: int, dof: int = 3, prob: float = 0.95) -> tuple[float, float]:
     """Two-sided interval of the mean of n chi-square(dof) NEES values (Bar-Shalom et al. 2001, sec. 5.4;
     quantiles from scipy.stats.chi2)."""
@@ -369,6 +429,7 @@ class SystematicFit:
     success: bool
     mount: np.ndarray = field(default_factory=lambda: np.zeros(3))       # truth body in base_link (m, m, rad)
     mount_std_error: np.ndarray = field(default_factory=lambda: np.full(3, math.nan))
+    cov: np.ndarray = field(default_factory=lambda: np.full((3, 3), math.nan))   # of the geometry (m^2)
 
     @property
     def relative_std_error(self) -> np.ndarray:
@@ -432,9 +493,11 @@ def fit_systematic(runs: Sequence[CalibrationRun], segs: Sequence[Segments], sta
         cov_u = s2 * np.linalg.inv(jac.T @ jac)
         se_u = np.sqrt(np.maximum(np.diag(cov_u), 0.0))
     except np.linalg.LinAlgError:
+        cov_u = np.full((n_par, n_par), math.inf)
         se_u = np.full(n_par, math.inf)
     g = g0 * res.x[:3]
     out = SystematicFit(g, np.abs(g0) * se_u[:3], s2, cond, sv, m, float(res.cost), bool(res.success))
+    out.cov = cov_u[:3, :3] * np.outer(g0, g0)          # ratios to metres (the mount's part included)
     if fit_mount:
         out.mount = m0 + (res.x[3:] - 1.0)
         out.mount_std_error = se_u[3:]
@@ -448,7 +511,13 @@ def fit_systematic(runs: Sequence[CalibrationRun], segs: Sequence[Segments], sta
 # ------------------------------------------------------------------------------------------------
 @dataclass
 class NoiseFit:
-    """Maximum-likelihood noise parameters of ``model`` with standard errors (from the Fisher information)."""
+    """Maximum-likelihood noise parameters of ``model`` with standard errors from their joint covariance.
+
+    ``theta`` / ``std_error`` are the wheel noise parameters; ``cov`` is the joint covariance of every
+    fitted parameter (``names``: the wheel ones, then the truth variances when they were fitted),
+    the sandwich estimate (see the module docstring). ``truth_sd`` is the truth's noise used
+    (sd_xy m, sd_yaw rad; fitted or given) and ``truth_sd_se`` its standard errors (NaN when given).
+    """
 
     model: str
     theta: np.ndarray
@@ -456,6 +525,18 @@ class NoiseFit:
     nees_mean: float
     n_segments: int
     success: bool
+    cov: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)))
+    names: tuple[str, ...] = ()
+    truth_sd: np.ndarray = field(default_factory=lambda: np.zeros(2))
+    truth_sd_se: np.ndarray = field(default_factory=lambda: np.full(2, math.nan))
+    truth_fitted: bool = False
+
+    @property
+    def correlation(self) -> np.ndarray:
+        """Correlation matrix of the fitted parameters (from ``cov``)."""
+        sd = np.sqrt(np.maximum(np.diag(self.cov), 0.0))
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return self.cov / np.outer(sd, sd)
 
 
 def fit_noise(errs: np.ndarray, basis: np.ndarray, model: str, start: np.ndarray | None = None,
@@ -495,12 +576,18 @@ def fit_noise(errs: np.ndarray, basis: np.ndarray, model: str, start: np.ndarray
     cov = _combine(basis, th, extra_cov)
     inv = np.linalg.inv(cov)
     ib = np.einsum("skl,salm->sakm", inv, basis)
-    fisher = 0.5 * np.einsum("sakm,sbmk->ab", ib, ib)
+    fisher = 0.5 * np.einsum("sakm,sbmk->ab", ib, ib)         # expected information of the log-likelihood
+    w = np.einsum("skl,sl->sk", inv, errs)
+    score = -0.5 * (np.einsum("sakk->sa", ib) - np.einsum("sk,sakl,sl->sa", w, basis, w))   # per segment
     try:
-        se = np.sqrt(np.maximum(np.diag(np.linalg.inv(fisher)), 0.0))
+        f_inv = np.linalg.inv(fisher)
+        par_cov = f_inv @ (score.T @ score) @ f_inv             # sandwich: honest under a misfit model
+        par_cov = 0.5 * (par_cov + par_cov.T)
+        se = np.sqrt(np.maximum(np.diag(par_cov), 0.0))
     except np.linalg.LinAlgError:
+        par_cov = np.full((a, a), math.inf)
         se = np.full(a, math.inf)
-    return NoiseFit(model, th, se, float(np.mean(_nees(errs, cov))), s, bool(res.success))
+    return NoiseFit(model, th, se, float(np.mean(_nees(errs, cov))), s, bool(res.success), par_cov)
 
 
 # ------------------------------------------------------------------------------------------------
@@ -609,8 +696,10 @@ def _aligned_rmse(src: np.ndarray, dst: np.ndarray) -> float:
 
 
 def run_figures(run: CalibrationRun, settings: Settings, segment_length_m: float = 2.0,
-                seg: Segments | None = None, mount: Sequence[float] = (0.0, 0.0, 0.0)) -> RunFigures:
-    """ATE, drift % and mean segment NEES of ``run`` under ``settings`` (geometry, scheme, noise)."""
+                seg: Segments | None = None, mount: Sequence[float] = (0.0, 0.0, 0.0),
+                truth_var: Sequence[float] = (0.0, 0.0)) -> RunFigures:
+    """ATE, drift % and mean segment NEES of ``run`` under ``settings`` (geometry, scheme, noise);
+    ``truth_var`` (sd_xy^2 m^2, sd_yaw^2 rad^2) adds the truth's own noise to each segment's covariance."""
     seg = seg if seg is not None else make_segments(run, segment_length_m)
     g = geometry_of(settings)
     scheme = settings.integration
@@ -626,7 +715,7 @@ def run_figures(run: CalibrationRun, settings: Settings, segment_length_m: float
     length = float(np.sum(cum[seg.end] - cum[seg.start]))
     drift = 100.0 * float(np.sum(np.hypot(err[:, 0], err[:, 1]))) / length if length > 0 else math.nan
     basis = segment_covariance_basis(run, seg, g, scheme, settings.noise.model)
-    nees = _nees(err, _combine(basis, noise_vector(settings)))
+    nees = _nees(err, _combine(basis, noise_vector(settings), _truth_cov(truth_noise_basis(run, seg), truth_var)))
     lo, hi = mean_nees_interval(len(seg))
     return RunFigures(run.name, ate, drift, float(np.mean(nees)), lo, hi, len(seg))
 
@@ -655,8 +744,14 @@ class CalibrationResult:
 def calibrate(runs: Sequence[CalibrationRun], settings: Settings, *, segment_length_m: float = 2.0,
               noise_segment_m: float = 0.2, fit_geometry: bool = True, fit_noise_params: bool = True,
               noise_model: str | None = None, holdout: Sequence[CalibrationRun] = (), iterations: int = 4,
-              reject_outliers: bool = True, fit_truth_offset: bool = False) -> CalibrationResult:
+              reject_outliers: bool = True, fit_truth_offset: bool = False,
+              truth_sd: Sequence[float] | None = None) -> CalibrationResult:
     """Fit the geometry (least squares) then the noise (maximum likelihood) jointly over ``runs``.
+
+    ``truth_sd`` (sd_xy m, sd_yaw rad per truth pose) gives the truth's own noise; None fits it with
+    the wheel noise (when the noise is fitted; otherwise the truth is taken as exact). Pairs of
+    parameters that cannot be told apart and noise values not distinguishable from zero are said in
+    ``notes``.
 
     The geometry is fitted on segments of ``segment_length_m``, the noise on shorter segments of
     ``noise_segment_m`` (more independent samples: the noise fit's precision grows with their
@@ -692,6 +787,17 @@ def calibrate(runs: Sequence[CalibrationRun], settings: Settings, *, segment_len
     masks = [np.ones(len(s), dtype=bool) for s in segs]
     nmasks = [np.ones(len(s), dtype=bool) for s in nsegs]
     gate = float(stats.chi2.ppf(OUTLIER_QUANTILE, 3))
+    fit_truth = truth_sd is None and fit_noise_params
+    if truth_sd is not None:
+        sd = np.asarray(truth_sd, dtype=np.float64)
+        if sd.shape != (2,) or not np.all(np.isfinite(sd)) or np.any(sd < 0):
+            raise CalibrationError(f"the truth's noise is {tuple(truth_sd)}; give two standard deviations, position "
+                                   "(m) and heading (rad), both zero or more (for example 0.001,0.002).")
+        truth_var = sd ** 2
+    else:
+        truth_var = np.array([1e-6, 1e-5]) if fit_truth else np.zeros(2)
+    tg = [truth_noise_basis(r, s) for r, s in zip(runs, segs)]
+    tn = [truth_noise_basis(r, s) for r, s in zip(runs, nsegs)]
     mount = np.zeros(3)
     sysfit: SystematicFit | None = None
     nfit: NoiseFit | None = None
@@ -709,7 +815,7 @@ def calibrate(runs: Sequence[CalibrationRun], settings: Settings, *, segment_len
     gbases = [segment_covariance_basis(r, s, geometry, scheme, model) for r, s in zip(runs, segs)]
     for it in range(max(1, iterations)):
         if fit_geometry:
-            covs = [_combine(b, theta) for b in gbases]
+            covs = [_combine(b, theta, _truth_cov(tb, truth_var)) for b, tb in zip(gbases, tg)]
             sysfit = fit_systematic(runs, segs, geometry, scheme, covs, masks, fit_mount=fit_truth_offset,
                                     start_mount=mount)
             geometry, mount = sysfit.geometry, sysfit.mount
@@ -717,14 +823,22 @@ def calibrate(runs: Sequence[CalibrationRun], settings: Settings, *, segment_len
         if fit_noise_params:
             e_all = np.concatenate([e[m] for e, m in zip(nerrs, nmasks)])
             b_all = np.concatenate([b[m] for b, m in zip(nbases, nmasks)])
-            nfit = fit_noise(e_all, b_all, model, start=theta)
-            theta = nfit.theta
+            t_all = np.concatenate([b[m] for b, m in zip(tn, nmasks)])
+            if fit_truth:
+                nfit = fit_noise(e_all, np.concatenate([b_all, t_all], axis=1), model,
+                                 start=np.concatenate([theta, truth_var]))
+                theta, truth_var = nfit.theta[:len(theta)], nfit.theta[len(theta):]
+            else:
+                nfit = fit_noise(e_all, b_all, model, start=theta, extra_cov=_truth_cov(t_all, truth_var))
+                theta = nfit.theta
         if not reject_outliers:
             if it > 0:
                 break
             continue
-        new_n = [_nees(e, _combine(b, theta)) <= gate for e, b in zip(nerrs, nbases)]
-        new_g = [_nees(e, _combine(b, theta)) <= gate for e, b in zip(gerrs, gbases)]
+        new_n = [_nees(e, _combine(b, theta, _truth_cov(tb, truth_var))) <= gate
+                 for e, b, tb in zip(nerrs, nbases, tn)]
+        new_g = [_nees(e, _combine(b, theta, _truth_cov(tb, truth_var))) <= gate
+                 for e, b, tb in zip(gerrs, gbases, tg)]
         changed = any(np.any(x != y) for x, y in zip(new_n + new_g, nmasks + masks))
         nmasks, masks = new_n, new_g
         if not changed and it > 0:
@@ -736,7 +850,7 @@ def calibrate(runs: Sequence[CalibrationRun], settings: Settings, *, segment_len
     if sysfit is not None and fit_truth_offset:
         notes.append(_mount_text(sysfit.mount, sysfit.mount_std_error, "was fitted and accounted for"))
     elif sysfit is not None:
-        covs = [_combine(b, theta) for b in gbases]
+        covs = [_combine(b, theta, _truth_cov(tb, truth_var)) for b, tb in zip(gbases, tg)]
         probe = fit_systematic(runs, segs, geometry, scheme, covs, masks, fit_mount=True)
         off, se = probe.mount, probe.mount_std_error
         if (math.hypot(off[0], off[1]) > max(MOUNT_NOTE_M, 4.0 * float(np.hypot(se[0], se[1])))
@@ -749,6 +863,11 @@ def calibrate(runs: Sequence[CalibrationRun], settings: Settings, *, segment_len
             todo = "; ".join(exc.advice) if exc.advice else "drive longer with the same mix of straight runs and turns"
             notes.append(f"the fit is loose (standard errors {100 * rel[0]:.2f} %, {100 * rel[1]:.2f} % of the radii, "
                          f"{100 * rel[2]:.2f} % of the track); to tighten it: {todo}.")
+    if nfit is not None:
+        nfit = _finish_noise_fit(nfit, model, fit_truth, truth_var)
+        notes += _noise_notes(nfit)
+    if sysfit is not None:
+        notes += correlation_notes(GEOMETRY_NAMES, sysfit.cov)
     if n_out:
         notes.append(f"{n_out} of {sum(len(s) for s in segs)} segments were set aside as outliers (NEES beyond the "
                      "chi-square 99.9 % quantile: slip or truth glitches).")
@@ -760,12 +879,52 @@ def calibrate(runs: Sequence[CalibrationRun], settings: Settings, *, segment_len
             values["noise.model"] = model
         values.update(noise_values(model, theta))
     after = settings.with_values(values)
-    fb = [run_figures(r, settings, segment_length_m, s, mount) for r, s in zip(runs, segs)]
-    fa = [run_figures(r, after, segment_length_m, s, mount) for r, s in zip(runs, segs)]
-    hb = [run_figures(r, settings, segment_length_m, None, mount) for r in holdout]
-    ha = [run_figures(r, after, segment_length_m, None, mount) for r in holdout]
+    fb = [run_figures(r, settings, segment_length_m, s, mount, truth_var) for r, s in zip(runs, segs)]
+    fa = [run_figures(r, after, segment_length_m, s, mount, truth_var) for r, s in zip(runs, segs)]
+    hb = [run_figures(r, settings, segment_length_m, None, mount, truth_var) for r in holdout]
+    ha = [run_figures(r, after, segment_length_m, None, mount, truth_var) for r in holdout]
     return CalibrationResult(settings, after, values, sysfit, nfit, exc, int(sum(len(s) for s in segs)), n_out,
                              notes, fb, fa, hb, ha, segment_length_m, mount)
+
+
+def noise_parameter_names(model: str) -> tuple[str, ...]:
+    """Names of the wheel noise parameters of ``model`` as reported."""
+    return ("noise.k_left", "noise.k_right") if model == "per_wheel" else tuple(f"alpha{k}" for k in range(1, 5))
+
+
+def _finish_noise_fit(nfit: NoiseFit, model: str, fit_truth: bool, truth_var: np.ndarray) -> NoiseFit:
+    """Split a joint fit into the wheel parameters and the truth's noise, with names for the report."""
+    a = len(noise_parameter_names(model))
+    names = noise_parameter_names(model) + (TRUTH_NOISE_NAMES if fit_truth else ())
+    sd = np.sqrt(np.maximum(np.asarray(truth_var, dtype=np.float64), 0.0))
+    if fit_truth:
+        var_se = nfit.std_error[a:]
+        # delta method, d sd = d var / (2 sd), where sd is well above its own uncertainty; near zero
+        # (a truth about as good as exact) the square root of the variance's standard error instead
+        root = np.sqrt(np.maximum(var_se, 0.0))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            sd_se = np.where(sd > root, var_se / (2.0 * sd), root)
+    else:
+        sd_se = np.full(2, math.nan)
+    return NoiseFit(model, nfit.theta[:a], nfit.std_error[:a], nfit.nees_mean, nfit.n_segments, nfit.success,
+                    nfit.cov, names, sd, sd_se, fit_truth)
+
+
+def _noise_notes(nfit: NoiseFit) -> list[str]:
+    out = correlation_notes(nfit.names, nfit.cov)
+    for name, value, se in zip(nfit.names, nfit.theta, nfit.std_error):
+        if math.isfinite(se) and value < 2.0 * se:
+            out.append(f"{name} = {value:.3g} +- {se:.2g} is not distinguishable from zero on this drive: over "
+                       "the noise segments the wheels add less error than the truth's own noise and the "
+                       "other sources; lengthen --noise-segment-m or record a more precise truth to measure it.")
+    if nfit.truth_fitted:
+        exact = bool(np.all(nfit.truth_sd < 2.0 * nfit.truth_sd_se))
+        out.append(f"the truth's own noise was fitted with the wheel noise: {1000 * nfit.truth_sd[0]:.2f} mm "
+                   f"(+- {1000 * nfit.truth_sd_se[0]:.2f}) in x and y and {math.degrees(nfit.truth_sd[1]):.3f} deg "
+                   f"(+- {math.degrees(nfit.truth_sd_se[1]):.3f}) in heading per pose"
+                   + ("; that is no more than an exact truth would show" if exact else "")
+                   + "; give it with --truth-sd when it is known.")
+    return out
 
 
 def _mount_text(mount: np.ndarray, se: np.ndarray, what: str) -> str:

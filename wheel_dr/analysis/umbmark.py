@@ -37,7 +37,7 @@ import numpy as np
 
 from scipy import optimize
 
-from ..core.errors import InputError
+from ..core import errors as _errors
 from ..core.motion import body_increment, integrate
 
 __all__ = [
@@ -57,8 +57,7 @@ __all__ = [
 CSV_COLUMNS = ("direction", "x_m", "y_m")
 
 
-class SquareTestError(InputError):
-    """The square-test input cannot be used (bad CSV, a direction missing, a bad side length)."""
+SquareTestError = _errors.SquareTestError  # defined with every other error in wheel_dr.core.errors
 
 
 @dataclass

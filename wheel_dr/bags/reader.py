@@ -21,6 +21,7 @@ import numpy as np
 from rosbags.highlevel import AnyReader
 from rosbags.typesys import Stores, get_typestore
 
+from ..core import errors as _errors
 from ..core.path import PlanarPath
 from ..core.se2 import quaternion_to_yaw_array
 from ..core.errors import InputError, WheelDrError
@@ -39,8 +40,7 @@ STRING_TYPE = "std_msgs/msg/String"
 DIAG_TYPE = "diagnostic_msgs/msg/DiagnosticArray"
 
 
-class BagError(InputError):
-    """A bag cannot be opened or read, or lacks what is asked of it."""
+BagError = _errors.BagError                # defined with every other error in wheel_dr.core.errors
 
 
 @dataclass(frozen=True)

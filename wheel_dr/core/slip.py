@@ -60,8 +60,7 @@ replaces the heading increment of every flagged sample that has a gyro reading b
 bias-corrected gyro increment (w_z - bias) dt (gyrodometry, Borenstein & Feng 1996), and
 inflates flagged samples without one. ``score`` is the largest detector score of the sample.
 
-Slip flags are advisory inputs to navigation, not a safety function: never use them in place of a
-safety-rated stop; defer to local codes and the machine's safety assessment.
+Slip flags are advisory, not a safety function (the caution in ``wheel_dr.safety``).
 """
 from __future__ import annotations
 

@@ -126,7 +126,8 @@ def error_figure(evals: Sequence[Evaluation], colours: Sequence[str]) -> Figure:
 
 def nees_figure(evals: Sequence[Evaluation], colours: Sequence[str]) -> Figure:
     """Segment NEES against distance on a log axis, the chi-square(3) 95 % band per segment shaded,
-    and each settings' mean NEES with its 95 % interval at the right edge."""
+    segments the estimator flagged as slipping as open markers, and each settings' mean NEES with its
+    95 % interval at the right edge."""
     fig = new_figure()
     ax = fig.add_subplot(1, 1, 1)
     _style(ax)
@@ -136,11 +137,21 @@ def nees_figure(evals: Sequence[Evaluation], colours: Sequence[str]) -> Figure:
     xmax = 1.0
     for ev, col in zip(evals, colours):
         v = np.asarray(ev.nees_segments)
-        d = ev.series.get("nees_dist_m", np.zeros(0))
+        d = np.asarray(ev.series.get("nees_dist_m", np.zeros(0)))
+        flagged = np.asarray(ev.series.get("nees_flagged", np.zeros(len(v), dtype=bool)), dtype=bool)
+        if len(flagged) != len(v):
+            flagged = np.zeros(len(v), dtype=bool)
         if len(v):
-            ax.plot(d, np.clip(v, 1e-3, None), "o", ms=3, color=col, alpha=0.75,
-                    label=f"{ev.name or 'estimate'}: mean {ev.metrics['nees_mean']:.3g}")
+            med = ev.metrics.get("nees_median", float("nan"))
+            ax.plot(d[~flagged], np.clip(v[~flagged], 1e-3, None), "o", ms=3, color=col, alpha=0.75,
+                    label=f"{ev.name or 'estimate'}: mean {ev.metrics['nees_mean']:.3g}, median {med:.3g}")
+            if flagged.any():
+                ax.plot(d[flagged], np.clip(v[flagged], 1e-3, None), "o", ms=4.5, mfc="none", mew=0.9, color=col,
+                        alpha=0.9)
             xmax = max(xmax, float(np.max(d)))
+    if any(np.any(np.asarray(ev.series.get("nees_flagged", []), dtype=bool)) for ev in evals):
+        ax.plot([], [], "o", ms=4.5, mfc="none", mew=0.9, color="#6b705c",
+                label="open marker: segment the estimator flagged as slipping")
     for k, (ev, col) in enumerate(zip(evals, colours)):
         mm, mlo, mhi = ev.metrics.get("nees_mean"), ev.metrics.get("nees_mean_lo"), ev.metrics.get("nees_mean_hi")
         if mm is not None and np.isfinite(mm):

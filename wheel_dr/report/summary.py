@@ -22,6 +22,7 @@ RANK_COLUMNS: tuple[tuple[str, str, str], ...] = (
     ("rpe_rot_degpm", "RPE deg/m", "{:.3f}"),
     ("drift_endpoint_pct", "end drift %", "{:.2f}"),
     ("nees_mean", "NEES mean", "{:.2f}"),
+    ("nees_median", "NEES median", "{:.2f}"),
     ("nees_frac_inside_95", "NEES in 95%", "{:.0%}"),
     ("slip_precision", "slip P", "{:.0%}"),
     ("slip_recall", "slip R", "{:.0%}"),

@@ -7,6 +7,8 @@ import sys
 from collections.abc import Mapping
 from pathlib import Path
 
+from ..core import errors as _errors
+
 __all__ = [
     "RosWorkspaceMissingError",
     "default_workspace_install",
@@ -22,8 +24,7 @@ _PYTHON_DIR = f"python{sys.version_info.major}.{sys.version_info.minor}"
 _BOOTSTRAP_GUARD = "_ROS_WHEELS_BOOTSTRAP_COMPLETE"
 
 
-class RosWorkspaceMissingError(FileNotFoundError):
-    """The local interface workspace (tf2_msgs in .ros_ws/install) has not been built."""
+RosWorkspaceMissingError = _errors.RosWorkspaceMissingError   # defined in wheel_dr.core.errors
 
 
 def default_workspace_install() -> Path:

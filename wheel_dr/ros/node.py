@@ -27,9 +27,7 @@ on each wake-up and costs more than the estimator at 1 kHz. Services, parameters
 topic and the diagnostics timer run in a SingleThreadedExecutor on a second thread; a lock keeps
 the estimator consistent between the two.
 
-Caution: odometry, its covariance and the slip flags are advisory inputs to navigation, not a
-safety function; never use them in place of a safety-rated stop. Defer to local codes and the
-machine's safety assessment.
+The safety caution (``wheel_dr.safety.SAFETY_TEXT``) is part of ``--help``.
 """
 from __future__ import annotations
 
@@ -38,6 +36,7 @@ import math
 import os
 import signal
 import sys
+import textwrap
 import threading
 import time
 from contextlib import ExitStack
@@ -50,6 +49,7 @@ from ..core.estimator import Estimator
 from ..core.settings import Settings
 from ..core.wheels import RESTART_KINDS, SKIP_KINDS, SampleStatus
 from ..params import NODE_NAME
+from ..safety import SAFETY_TEXT
 from .convert import (RawOdometryWriter, flag_values, key_values, parameter_descriptor, parameter_value,
                       parse_imu_gyro_z, parse_joint_state, pose_from_msg, python_value)
 
@@ -379,9 +379,10 @@ class OdometryNode:
             return SetParametersResult(successful=False, reason=f"{exc.__class__.__name__}: {exc}")
         old_period = self.settings.output.diagnostics_period_s
         with self.lock:
+            frames_changed = new.frames != self.settings.frames     # compared before the new ones are taken
             self.settings = new
             self.estimator.update_settings(new)
-            if new.frames != self.settings.frames:
+            if frames_changed:
                 self._writer = RawOdometryWriter(new.frames.odom, new.frames.base, self._tf_type)
         if new.output.diagnostics_period_s != old_period:
             self._diag_timer.cancel()
@@ -525,8 +526,9 @@ _USAGE = """usage: wheel_dr_node [--ros-args --params-file FILE [-r joint_states
                      [-p use_sim_time:=true] [-p wheels.track_width:=0.41 ...]]
 
 Wheel odometry node of wheel_dr: subscribes joint_states (and imu), publishes odom, /tf,
-odom_flags and /diagnostics; service ~/reset, topic ~/reanchor. See the README.
-Odometry and slip flags are not a safety function."""
+odom_flags and /diagnostics; service ~/reset, topic ~/reanchor. See docs/node.md.
+
+""" + textwrap.fill(SAFETY_TEXT, 100)
 
 
 def _ros_args_params_files(argv: Sequence[str]) -> list[str]:
