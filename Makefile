@@ -5,7 +5,7 @@ VENV := .venv
 PY := $(VENV)/bin/python
 STAMP := $(VENV)/.installed
 
-.PHONY: venv demo test test-fast bench clean tf-msgs colcon-check
+.PHONY: venv demo test test-fast bench clean tf-msgs colcon-check fuzz soak
 
 venv: $(STAMP)
 
@@ -30,9 +30,18 @@ colcon-check: venv tf-msgs
 
 demo: venv
 	$(VENV)/bin/wheel-dr demo
+	$(PY) -m wheel_dr.fleet.demo --out out/demo/fleet
 
 test: venv tf-msgs
 	$(ROS_ENV) && $(PY) -m pytest -q test
+
+# The property-based and CDR fuzz suites run long (WHEEL_DR_FUZZ_EXAMPLES examples per test, default 20000).
+fuzz: venv tf-msgs
+	$(ROS_ENV) && WHEEL_DR_FUZZ=1 $(PY) -m pytest -q test/test_core_properties.py test/test_node_cdr_fuzz.py
+
+# The node at 1 kHz for 10 minutes with 5 % adversarial messages (tools/soak_node.py prints the figures).
+soak: venv tf-msgs
+	$(ROS_ENV) && $(PY) tools/soak_node.py
 
 clean:
 	rm -rf build install log .ros_ws out .pytest_cache

@@ -104,3 +104,21 @@ def ros_env(ros_domain_id: int) -> Iterator[dict[str, str]]:
 # ==============================================================================================
 # (other sections go below this line)
 # ==============================================================================================
+
+# ==============================================================================================
+# Property-based tests (hypothesis): a short profile for `make test`, a long one for `make fuzz`
+# (WHEEL_DR_FUZZ=1). Examples are derandomised in the short profile so `make test` is repeatable.
+# ==============================================================================================
+try:
+    from hypothesis import HealthCheck, settings as _hyp_settings
+
+    _hyp_settings.register_profile(
+        "quick", max_examples=120, deadline=None, derandomize=True, print_blob=True,
+        suppress_health_check=[HealthCheck.too_slow, HealthCheck.filter_too_much, HealthCheck.data_too_large])
+    _hyp_settings.register_profile(
+        "fuzz", max_examples=int(os.environ.get("WHEEL_DR_FUZZ_EXAMPLES", "20000")), deadline=None,
+        print_blob=True,
+        suppress_health_check=[HealthCheck.too_slow, HealthCheck.filter_too_much, HealthCheck.data_too_large])
+    _hyp_settings.load_profile("fuzz" if os.environ.get("WHEEL_DR_FUZZ") == "1" else "quick")
+except ImportError:  # hypothesis is in requirements.txt; without it the property tests are skipped
+    pass

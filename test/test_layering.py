@@ -16,7 +16,7 @@ import pytest
 
 REPO = Path(__file__).resolve().parents[1]
 
-COMMANDS = ("wheel_dr.cli", "wheel_dr.calibrate_cmd", "wheel_dr.runs", "wheel_dr.ros")
+COMMANDS = ("wheel_dr.cli", "wheel_dr.calibrate_cmd", "wheel_dr.runs", "wheel_dr.ros", "wheel_dr.fleet")
 # package (or module) -> wheel_dr packages it must not import
 FORBIDDEN = {
     "wheel_dr.core": ("wheel_dr.sim", "wheel_dr.bags", "wheel_dr.analysis", "wheel_dr.params", "wheel_dr.demo",

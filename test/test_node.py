@@ -467,16 +467,16 @@ def test_parameters_declared_with_ranges_and_changes_validated(node_run: dict[st
     spec = Settings.spec("wheels.track_width")
     assert described[0].floating_point_range[0].from_value == spec.lo
     assert described[0].floating_point_range[0].to_value == spec.hi
-    assert spec.description in described[0].description and "(0, 10]" in described[0].description
+    assert spec.description in described[0].description and spec.range_text() in described[0].description
     assert described[1].read_only
 
     # Outside the descriptor's closed range rclpy itself refuses (its reason names the parameter and
     # the bounds); on the open bound the settings check refuses with its own sentence.
     refused = _set_parameter(probe, "wheels.track_width", -0.3)
     assert not refused.successful and "wheels.track_width" in refused.reason and "10" in refused.reason
-    open_bound = _set_parameter(probe, "wheels.track_width", 0.0)
-    assert not open_bound.successful and "wheels.track_width" in open_bound.reason
-    assert "(0, 10]" in open_bound.reason
+    open_bound = _set_parameter(probe, "slip.clear_fraction", 0.0)
+    assert not open_bound.successful and "slip.clear_fraction" in open_bound.reason
+    assert "(0, 1)" in open_bound.reason
     both = _set_parameter(probe, "wheels.right_joints", [LEFT])
     assert not both.successful and LEFT in both.reason
     frame = _set_parameter(probe, "frames.odom", "elsewhere")
@@ -580,6 +580,55 @@ def test_diagnostics_report_counters_rate_settings_and_sim_time(node_run: dict[s
     _wait(lambda: int(probe.next_diag()[3]["imu_received"]) - imu_before == 5, 10, "five IMU messages counted")
 
 
+def test_wheels_speeding_up_while_the_accelerometer_reads_nothing_are_flagged(node_run: dict[str, Any]) -> None:
+    """A lifted base: the wheels spin up to 0.5 m/s while the IMU's x acceleration stays at zero
+    (level, gyro quiet). The node parses Imu linear_acceleration and flags the accelerometer
+    detector (bit 8 of the flags' detector field, wheel_dr.core.slip_motion); a cmd_vel Twist is
+    subscribed by type once it is published. Samples before the spin-up are not flagged."""
+    from geometry_msgs.msg import Twist
+
+    probe = node_run["probe"]
+    pub_cmd = probe.node.create_publisher(Twist, f"{NS}/cmd_vel", 10)
+    imu = probe.Imu()
+    imu.header.frame_id = "imu_link"
+    imu.orientation_covariance[0] = -1.0          # orientation unknown
+    imu.angular_velocity_covariance[0] = 1e-4
+    imu.linear_acceleration_covariance[0] = 4e-4
+    imu.linear_acceleration.z = 9.80665
+    cmd = Twist()
+    probe.stamp_ns += 1_000_000_000
+    angle, speed, stamps = 0.0, 0.0, []
+    start = time.monotonic()
+    for k in range(300):                          # 1.5 s still, then 0.5 s at 1 m/s^2, then 1 s cruise
+        t = k * DT_NS * 1e-9
+        speed = 0.0 if t < 1.5 else min(0.5, (t - 1.5) * 1.0)
+        angle += speed / RADIUS_M * DT_NS * 1e-9
+        probe.stamp_ns += DT_NS
+        imu.header.stamp.sec, imu.header.stamp.nanosec = divmod(probe.stamp_ns, 1_000_000_000)
+        probe.pub_imu.publish(imu)
+        cmd.linear.x = 0.0 if t < 1.5 else 0.5
+        if k % 5 == 0:
+            pub_cmd.publish(cmd)
+        probe.pub_js.publish(probe.js(probe.stamp_ns, [LEFT, RIGHT], [angle, angle]))
+        stamps.append(probe.stamp_ns)
+        delay = start + (k + 1) * 0.01 - time.monotonic()
+        if delay > 0:
+            time.sleep(delay)
+    last = probe.wait_flag(stamps[-1])
+    col = FLAG_FIELDS.index("detector")
+    with probe.lock:
+        rows = {int(f.data[0]) * 1_000_000_000 + int(f.data[1]): list(f.data) for f in probe.flags[-400:]}
+    before = [rows[s] for s in stamps[:140] if s in rows]
+    after = [rows[s] for s in stamps[220:] if s in rows]
+    assert before and after
+    assert not any(int(r[col]) & 8 for r in before)
+    assert sum(1 for r in after if int(r[col]) & 8 and r[FLAG_FIELDS.index("slip")] == 1.0) >= 0.9 * len(after)
+    assert int(last[col]) & 8
+    diag = probe.next_diag()[3]
+    assert diag["imu_acceleration"] == "read" and "8 accel" in diag["slip_detector_bits"]
+    probe.node.destroy_publisher(pub_cmd)
+
+
 def test_sigterm_ends_the_node_cleanly(node_run: dict[str, Any]) -> None:
     """SIGTERM: exit code 0, no traceback (runs last in this module)."""
     proc = node_run["proc"]
@@ -591,7 +640,10 @@ def test_sigterm_ends_the_node_cleanly(node_run: dict[str, Any]) -> None:
 
 # --- start-up failures and the no-TF fallback (own short processes) ---------------------------------
 @pytest.mark.parametrize("body, expect", [
-    ("/**:\n  ros__parameters:\n    wheels:\n      track_width: -1.0\n", ["wheels.track_width", "(0, 10]"]),
+    ("/**:\n  ros__parameters:\n    wheels:\n      track_width: -1.0\n", ["wheels.track_width", "[0.001, 10]"]),
+    ("/**:\n  ros__parameters:\n    wheels:\n      source: ticks\n      ticks_per_revolution: 1.0e-200\n"
+     "      gear_ratio: 1.0e-200\n", ["wheels.ticks_per_revolution", "[1, 1e+09]"]),
+    ("/**:\n  ros__parameters:\n    slip:\n      long_window_s: 0.05\n", ["slip.long_window_s", "slip.window_s"]),
     ("/**:\n  ros__parameters:\n    noise:\n      k_lft: 0.1\n", ["noise.k_lft", "not a wheel_dr parameter"]),
     ("/**:\n  ros__parameters:\n    integration: rk4\n", ["integration", "euler, midpoint, exact"]),
     ("/**:\n  ros__parameters:\n    wheels: [track_width: 1\n", ["not valid YAML"]),
@@ -643,3 +695,4 @@ def test_without_tf2_msgs_the_node_runs_with_tf_disabled(tmp_path: Path, ros_env
     assert text.count("TF output disabled") == 1 and "TF off" in text
     assert "served by the general executor" in text
     assert "Traceback" not in text
+

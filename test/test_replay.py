@@ -31,29 +31,44 @@ def bag_and_params(tmp_path_factory):
 
 @pytest.mark.parametrize("fmt", ["mcap", "sqlite3", "ros1"])
 def test_replay_equals_streaming_estimator(tmp_path, fmt):
-    """Each message deserialised by rosbags and fed to Estimator.step (gyro: the latest IMU reading at or
-    before the joint stamp) gives the batch replay's pose, covariance and slip flags at every sample."""
+    """Each message deserialised by rosbags and fed to Estimator.step (gyro, x acceleration and orientation:
+    the latest IMU reading at or before the joint stamp; command: the latest cmd_vel, if not older than
+    slip.command_timeout_s) gives the batch replay's pose, covariance and slip flags at every sample."""
     bag, _ = write_short_bag(tmp_path / ("d.bag" if fmt == "ros1" else "d"), fmt)
     sf = load_settings_file(None)
     data = read_run(bag)
     res = replay_run(data, sf)
     traj = res.trajectory
     est = Estimator(res.settings)
-    joints, imu = [], []
+    joints, imu, cmds = [], [], []
     with AnyReader([Path(bag)]) as reader:
-        conns = [c for c in reader.connections if c.topic in ("/joint_states", "/imu")]
-        for c, _, raw in reader.messages(connections=conns):
+        conns = [c for c in reader.connections if c.topic in ("/joint_states", "/imu", "/cmd_vel")]
+        for c, rec, raw in reader.messages(connections=conns):
             m = reader.deserialize(raw, c.msgtype)
+            if c.topic == "/cmd_vel":
+                cmds.append((rec, m.linear.x))
+                continue
             stamp = m.header.stamp.sec * 10**9 + m.header.stamp.nanosec
             (joints if c.topic == "/joint_states" else imu).append((stamp, m))
     imu.sort(key=lambda p: p[0])
-    k = -1
+    k, kc = -1, -1
+    timeout_ns = res.settings.slip.command_timeout_s * 1e9
     rows = []
     for stamp, m in joints:
         while k + 1 < len(imu) and imu[k + 1][0] <= stamp:
             k += 1
+        while kc + 1 < len(cmds) and cmds[kc + 1][0] <= stamp:
+            kc += 1
         gyro = imu[k][1].angular_velocity.z if k >= 0 else float("nan")
-        status = est.step(stamp, list(m.name), list(m.position), list(m.velocity), gyro)
+        accel = up = cmd = None
+        if k >= 0:
+            i = imu[k][1]
+            accel = i.linear_acceleration.x if i.linear_acceleration_covariance[0] != -1 else None
+            o = i.orientation
+            up = 2.0 * (o.x * o.z - o.w * o.y) if i.orientation_covariance[0] != -1 else None
+        if kc >= 0 and stamp - cmds[kc][0] <= timeout_ns:
+            cmd = cmds[kc][1]
+        status = est.step(stamp, list(m.name), list(m.position), list(m.velocity), gyro, accel, up, cmd)
         if status < 10:
             rows.append((est.x_m, est.y_m, est.yaw_rad, est.cov.copy(), est.last_slip.slip))
     assert len(rows) == len(traj) == len(joints)

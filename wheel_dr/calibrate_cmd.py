@@ -183,8 +183,14 @@ def _bags(args: argparse.Namespace) -> int:
                          "geometry_msgs/PoseStamped), or use --square for the square test without truth.")
     truth_sd = _truth_sd(getattr(args, "truth_sd", None))
     text, settings, label = _read_params(args.params)
-    prepared = _prepare(args.bags, args, settings)
-    held = _prepare(args.holdout or [], args, settings)
+    if getattr(args, "scheduler", None):     # one Dask task per bag; the joint fit stays here
+        from .fleet.commands import prepare_on_cluster
+        both = prepare_on_cluster(list(args.bags) + list(args.holdout or []), args.truth, args.joint_topic,
+                                  settings, args.scheduler, args.workers)
+        prepared, held = both[:len(args.bags)], both[len(args.bags):]
+    else:
+        prepared = _prepare(args.bags, args, settings)
+        held = _prepare(args.holdout or [], args, settings)
     runs = [r for *_, r in prepared]
     holdout = [r for *_, r in held]
     res = calibrate(runs, settings, segment_length_m=args.segment_m, noise_segment_m=args.noise_segment_m,
@@ -382,6 +388,11 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--seed", type=int, default=1, help="random seed for --square synth")
     p.add_argument("--first-order", action="store_true",
                    help="correct with the paper's first-order E_d, E_b instead of the refined ones")
+    p.add_argument("--scheduler", metavar="local|ADDRESS",
+                   help="decode and prepare the bags as Dask tasks: 'local' starts a LocalCluster on this machine, "
+                        "tcp://HOST:PORT uses a running 'dask scheduler' (workers must see the same paths)")
+    p.add_argument("--workers", type=int, metavar="N",
+                   help="worker processes of --scheduler local (default: the CPUs available)")
     p.set_defaults(func=run_calibrate)
     return p
 

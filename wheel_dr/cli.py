@@ -8,20 +8,20 @@ The safety caution it prints is ``wheel_dr.safety.SAFETY_TEXT``.
 from __future__ import annotations
 
 import argparse
-import importlib.util
+import importlib
 import os
 import sys
-import tempfile
 import time
 from pathlib import Path
 from typing import Sequence
-
-import numpy as np
 
 from . import __version__
 from .core import errors as _errors
 from .core.errors import WheelDrError
 from .safety import SAFETY_TEXT
+
+# Heavy modules (numpy, rosbags, the analysis) are imported by the command that needs them, so
+# `wheel-dr --help` starts in a fraction of a second and an interrupt while importing is handled.
 
 __all__ = ["main", "build_parser", "SAFETY_NOTE", "write_trajectory_csv", "write_tum", "TRAJECTORY_COLUMNS"]
 
@@ -36,10 +36,18 @@ SCENARIOS = ("demo", "square-cw", "square-ccw", "varied")
 UsageError = _errors.UsageError            # defined with every other error in wheel_dr.core.errors
 
 
+# Subcommands kept in their own modules, imported only when they run: name -> (module, one-line
+# help for `wheel-dr --help`). The module's ``add_parser(subparsers)`` defines the full command.
+LAZY_COMMANDS: dict[str, tuple[str, str]] = {
+    "calibrate": ("wheel_dr.calibrate_cmd",
+                  "fit wheel radii, track and noise from bags with ground truth, or run the square test"),
+}
+
+
 # -- output helpers ------------------------------------------------------------------------------
 def _atomic_bytes(path: Path, data: bytes) -> None:
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
+    from .partfiles import make_part_file
+    fd, tmp = make_part_file(path)   # also removes the parts a killed run left beside path
     try:
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
@@ -70,6 +78,8 @@ def write_trajectory_csv(path: Path, traj) -> None:
 
 def write_tum(path: Path, traj) -> None:
     """The trajectory in the TUM RGB-D benchmark format (Sturm et al. 2012): ``t tx ty tz qx qy qz qw``."""
+    import numpy as np
+
     from .bags.textout import float_field, join_fields, stamp_field
     half = 0.5 * np.asarray(traj.yaw_rad)
     n = len(traj)
@@ -109,7 +119,8 @@ def _scenario(args: argparse.Namespace):
     if args.no_slip:
         fields.update(slip_events=(), floor_patches=())
     if args.no_noise:
-        fields.update(k_left_m=0.0, k_right_m=0.0, gyro_noise_sd_radps=0.0, gyro_bias_radps=0.0)
+        fields.update(k_left_m=0.0, k_right_m=0.0, gyro_noise_sd_radps=0.0, gyro_bias_radps=0.0,
+                      accel_noise_sd_mps2=0.0, accel_bias_mps2=0.0)
     return sc.with_values(**fields) if fields else sc
 
 
@@ -135,6 +146,8 @@ def _cmd_synth(args: argparse.Namespace) -> int:
 
 # -- replay --------------------------------------------------------------------------------------
 def _cmd_replay(args: argparse.Namespace) -> int:
+    import numpy as np
+
     from .runs import load_settings_file, replay_run
     from .bags.reader import read_run
     sf = load_settings_file(args.params)
@@ -179,7 +192,8 @@ def _cmd_compare(args: argparse.Namespace, title: str = "wheel_dr comparison", n
     out = _out_dir(args.out, "out/compare")
     t0 = time.perf_counter()
     res = compare_bags(args.bags, sfs, truth=args.truth, joint_topic=args.joint_topic, imu_topic=args.imu_topic,
-                       use_imu=not args.no_imu, jobs=args.jobs, progress=not args.quiet)
+                       use_imu=not args.no_imu, jobs=args.jobs, progress=not args.quiet,
+                       scheduler=getattr(args, "scheduler", None), workers=getattr(args, "workers", None))
     for label, info in res.bag_info.items():
         _say(f"bag {label}: {info['samples']} joint states ({info['decode']} decoding, {info['decode_s']:.2f} s), "
              f"IMU {info['imu_topic'] or 'none'}, truth {info['truth']}, {info['slip_labels']} slip labels")
@@ -199,6 +213,21 @@ def _cmd_compare(args: argparse.Namespace, title: str = "wheel_dr comparison", n
     return 0
 
 
+# -- fleet -------------------------------------------------------------------------------------
+def _cmd_fleet(args: argparse.Namespace) -> int:
+    from .fleet.run import cmd_fleet
+    return cmd_fleet(args)
+
+
+def _add_scheduler_flags(p: argparse.ArgumentParser, default: str | None) -> None:
+    p.add_argument("--scheduler", metavar="local|ADDRESS", default=default,
+                   help="run on Dask: 'local' starts a LocalCluster of worker processes on this machine, "
+                   "tcp://HOST:PORT connects to a running 'dask scheduler' (workers must see the same paths)"
+                   + (" (default local)" if default else "; without it a process pool of --jobs is used"))
+    p.add_argument("--workers", type=int, metavar="N",
+                   help="worker processes of --scheduler local (default: the CPUs available)")
+
+
 # -- demo ----------------------------------------------------------------------------------------
 def _config_dir() -> Path:
     here = Path(__file__).resolve().parent.parent / "config"
@@ -212,7 +241,7 @@ def _config_dir() -> Path:
 
 
 DEMO_CONFIGS = ("demo_nominal.yaml", "demo_corrected.yaml", "demo_motion_model.yaml", "demo_gyro.yaml")
-DEMO_CACHE_VERSION = 1
+DEMO_CACHE_VERSION = 2
 
 
 def _cmd_demo(args: argparse.Namespace) -> int:
@@ -228,12 +257,11 @@ def _cmd_demo(args: argparse.Namespace) -> int:
     else:
         _say(f"using the cached demo drive {bag}")
     sections = []
-    if importlib.util.find_spec("wheel_dr.calibrate_cmd") is not None and not args.no_calibration:
+    if not args.no_calibration:
         from . import calibrate_cmd
-        if hasattr(calibrate_cmd, "demo_calibration"):
-            _say("calibrating the demo cart from a simulated ten-minute drive (wheel-dr calibrate)")
-            _, section = calibrate_cmd.demo_calibration()
-            sections.append(section)
+        _say("calibrating the demo cart from a simulated ten-minute drive (wheel-dr calibrate)")
+        _, section = calibrate_cmd.demo_calibration()
+        sections.append(section)
     ns = argparse.Namespace(bags=[str(bag)], params=[str(cfg / c) for c in DEMO_CONFIGS], truth="/ground_truth",
                             joint_topic=None, imu_topic=None, no_imu=False, jobs=args.jobs, quiet=args.quiet,
                             out=str(out))
@@ -251,16 +279,23 @@ def _add_topic_flags(p: argparse.ArgumentParser) -> None:
     p.add_argument("--no-imu", action="store_true", help="ignore the IMU (no gyro for the slip detectors)")
 
 
-OWN_COMMANDS = ("synth", "replay", "compare", "demo")
+OWN_COMMANDS = ("synth", "replay", "compare", "demo", "fleet")
+
+
+def default_jobs() -> int:
+    """Worker processes by default: the CPUs this process may use."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # pragma: no cover - not Linux
+        return max(1, os.cpu_count() or 1)
 
 
 def build_parser(command: str | None = None) -> argparse.ArgumentParser:
     """The ``wheel-dr`` argument parser with every subcommand.
 
-    ``command`` (the subcommand about to run, if known) only saves importing the calibration
-    module, which is large, when one of this module's own subcommands runs.
+    ``command`` is the subcommand about to run, if known: the subcommands of LAZY_COMMANDS are
+    imported only when they are that command (otherwise they are listed with their one-line help).
     """
-    from .runs import default_jobs
     parser = argparse.ArgumentParser(
         prog="wheel-dr", description="Offline wheel odometry: replay the wheel_dr estimator over bags, compare "
         "settings against ground truth, synthesise test drives. " + SAFETY_NOTE,
@@ -270,7 +305,8 @@ def build_parser(command: str | None = None) -> argparse.ArgumentParser:
 
     p = sub.add_parser("synth", help="simulate a drive and write it as a real bag",
                        description="Simulate a differential-drive run (the invented 'Quokka' cart) and write a bag: "
-                       "/joint_states, /imu (gyro with bias and noise), /ground_truth (nav_msgs/Odometry), "
+                       "/joint_states, /imu (gyro and accelerometer with bias and noise, orientation), /cmd_vel "
+                       "(geometry_msgs/Twist, the commanded speed), /ground_truth (nav_msgs/Odometry), "
                        "/robot_description (URDF, nominal geometry) and /ground_truth/slip (true slip intervals, "
                        "diagnostic_msgs/DiagnosticArray). True radii and track differ from nominal. "
                        "Deterministic for a given --seed.")
@@ -286,7 +322,7 @@ def build_parser(command: str | None = None) -> argparse.ArgumentParser:
     p.add_argument("--duration", type=float, default=600.0, help="length of the varied drive in s (default 600)")
     p.add_argument("--truth-stride", type=int, default=5, help="ground truth every n-th joint sample (default 5)")
     p.add_argument("--no-slip", action="store_true", help="no slip events")
-    p.add_argument("--no-noise", action="store_true", help="no random wheel error and a perfect gyro")
+    p.add_argument("--no-noise", action="store_true", help="no random wheel error and a perfect gyro and accelerometer")
     p.add_argument("--overwrite", action="store_true", help="replace an existing output")
     p.set_defaults(func=_cmd_synth)
 
@@ -322,8 +358,41 @@ def build_parser(command: str | None = None) -> argparse.ArgumentParser:
     p.add_argument("--out", metavar="DIR", help="output directory (default out/compare)")
     p.add_argument("--jobs", type=int, default=default_jobs(), help="worker processes (default: CPUs available)")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
+    _add_scheduler_flags(p, None)
     _add_topic_flags(p)
     p.set_defaults(func=_cmd_compare)
+
+    p = sub.add_parser("fleet", help="analyse every robot's bags on a Dask cluster: geometry trends, wear alerts",
+                       description="Find every bag under ROOT (rosbag2 directories, .mcap and ROS 1 .bag files at any "
+                       "depth; ROOT/<robot>/... names the robot), and per bag as one Dask task: decode, replay "
+                       "with the robot's settings (ROOT/<robot>/params.yaml wins over --params), compare with its "
+                       "truth, fit the wheel radii and track with standard errors, score slip. Per robot: a "
+                       "weighted trend of the geometry against distance and an alert when a value moved beyond "
+                       "--alert-pct. Writes DIR/bags.csv, DIR/robots.csv, DIR/fleet.json and DIR/index.html. "
+                       + SAFETY_NOTE)
+    p.add_argument("root", metavar="ROOT", help="fleet directory: ROOT/<robot>/<bags at any depth>")
+    p.add_argument("--params", metavar="FILE", help="ROS 2 parameters file for robots without their own "
+                   "ROOT/<robot>/params.yaml (default: built-in defaults and the URDF in each bag)")
+    p.add_argument("--truth", metavar="TOPIC|PARENT->CHILD",
+                   help="ground truth in each bag: a pose topic or a TF pair such as map->base_link (a robot's own "
+                   "localisation is a fine truth for trends); bags without it are replayed but not fitted "
+                   "(default: the bag's only pose topic)")
+    p.add_argument("--out", metavar="DIR", default="out/fleet", help="output directory (default out/fleet)")
+    _add_scheduler_flags(p, "local")
+    p.add_argument("--robot-pattern", metavar="REGEX",
+                   help="regular expression with one group, searched in the path below ROOT, naming the robot "
+                   "(default: the first path component)")
+    p.add_argument("--alert-pct", type=float, default=0.5,
+                   help="alert when a radius or the track moved by more than this from the parameters file "
+                   "(percent, default 0.5)")
+    p.add_argument("--resume", action="store_true",
+                   help="reuse results cached in DIR/cache (keyed by bag content and settings): only new or "
+                   "changed bags are analysed")
+    p.add_argument("--segment-m", type=float, default=2.0,
+                   help="segment length (m of wheel travel) of the geometry fit (default 2)")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    _add_topic_flags(p)
+    p.set_defaults(func=_cmd_fleet)
 
     p = sub.add_parser("demo", help="synthesise the demo drive and compare four shipped settings files",
                        description="Synthesise the demo scenario (the invented 'Quokka' cart on its night round "
@@ -338,9 +407,11 @@ def build_parser(command: str | None = None) -> argparse.ArgumentParser:
                    help="leave out the calibration section (a simulated calibration drive fitted by wheel-dr calibrate)")
     p.set_defaults(func=_cmd_demo)
 
-    if command not in OWN_COMMANDS and importlib.util.find_spec("wheel_dr.calibrate_cmd") is not None:
-        from . import calibrate_cmd
-        calibrate_cmd.add_parser(sub)
+    for name, (module, help_text) in LAZY_COMMANDS.items():
+        if command == name:
+            importlib.import_module(module).add_parser(sub)
+        else:
+            sub.add_parser(name, help=help_text, add_help=False)
     return parser
 
 
@@ -353,29 +424,46 @@ def _rosbags_errors() -> tuple[type[BaseException], ...]:
 
 
 def main(argv: list[str] | None = None) -> int:
-    """Entry point of ``wheel-dr``; returns the exit status."""
+    """Entry point of ``wheel-dr``; returns the exit status (2 for errors a user can cause, 130 on Ctrl-C)."""
     tokens = sys.argv[1:] if argv is None else list(argv)
     first = next((t for t in tokens if not t.startswith("-")), None)
+    try:
+        return _main(tokens, first)
+    except KeyboardInterrupt:   # also while modules are still importing
+        name = f"wheel-dr {first}" if first else "wheel-dr"
+        print(f"{name}: interrupted; outputs not completed were not written.", file=sys.stderr)
+        return 130
+
+
+def _main(tokens: list[str], first: str | None) -> int:
+    import warnings
+
+    # The CLI prints its own sentences only: floating-point warnings of numerical code on extreme
+    # inputs (overflow, invalid values) are not messages for a user; results stay checked.
+    warnings.filterwarnings("ignore", category=RuntimeWarning)
     parser = build_parser(first)
     args = parser.parse_args(tokens)
+    from .core.errors import WheelDrError
     try:
         return int(args.func(args) or 0)
-    except WheelDrError as exc:
+    except (WheelDrError, UsageError) as exc:
         print(f"wheel-dr {args.command}: error: {exc}", file=sys.stderr)
         return 2
     except BrokenPipeError:
         return 141
     except _rosbags_errors() as exc:
-        print(f"wheel-dr {args.command}: error: the bag library reports '{str(exc).strip() or type(exc).__name__}'; "
-              "check that the bag is complete and the output path is new.", file=sys.stderr)
+        print(f"wheel-dr {args.command}: error: a bag cannot be read or written ({_bag_problem(exc)}); check that "
+              "the bag is complete and the output path is new.", file=sys.stderr)
         return 2
-    except KeyboardInterrupt:
-        print(f"wheel-dr {args.command}: interrupted; outputs not completed were not written.", file=sys.stderr)
-        return 130
     except OSError as exc:
-        print(f"wheel-dr {args.command}: error: {exc.strerror or exc} ({exc.filename or 'file'}); check the path "
-              "and its permissions.", file=sys.stderr)
+        print(f"wheel-dr {args.command}: error: {exc.strerror or 'the system refused the operation'} "
+              f"({exc.filename or 'file'}); check the path and its permissions.", file=sys.stderr)
         return 2
+
+
+def _bag_problem(exc: BaseException) -> str:
+    from .bags.reader import _why
+    return _why(exc)
 
 
 if __name__ == "__main__":

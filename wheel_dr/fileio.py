@@ -2,8 +2,9 @@
 from __future__ import annotations
 
 import os
-import tempfile
 from pathlib import Path
+
+from .partfiles import make_part_file
 
 __all__ = ["atomic_write_text"]
 
@@ -11,8 +12,7 @@ __all__ = ["atomic_write_text"]
 def atomic_write_text(path: str | os.PathLike, text: str) -> None:
     """Write ``text`` to a temporary file beside ``path`` and rename it into place when complete."""
     p = Path(path)
-    p.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.", suffix=".part", dir=p.parent)
+    fd, tmp = make_part_file(p)   # also removes the parts a killed run left beside p
     try:
         with os.fdopen(fd, "w", encoding="utf-8") as fh:
             fh.write(text)

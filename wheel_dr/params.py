@@ -102,14 +102,19 @@ def load_settings(path: str | os.PathLike | None, node_name: str = NODE_NAME,
     if path is None:
         return base or Settings()
     p = Path(path)
+    if p.exists() and not p.is_file():
+        raise SettingsError(f"parameters file '{p}' is not a regular file (a directory, pipe or device); give the "
+                            "path of a YAML file such as config/wheel_dr.yaml.")
     if not p.is_file():
         raise SettingsError(f"parameters file '{p}' does not exist; give the path of a YAML file such as "
                             "config/wheel_dr.yaml.")
     try:
         text = p.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as exc:
-        raise SettingsError(f"parameters file '{p}' cannot be read ({exc.__class__.__name__}); check the "
-                            "path and its permissions.") from None
+    except UnicodeDecodeError:
+        raise SettingsError(f"parameters file '{p}' is not UTF-8 text; give a YAML file such as "
+                            "config/wheel_dr.yaml.") from None
+    except OSError:
+        raise SettingsError(f"parameters file '{p}' cannot be read; check the path and its permissions.") from None
     return Settings.from_flat(parse_params_text(text, f"parameters file '{p}'", node_name), base=base)
 
 

@@ -104,7 +104,11 @@ def replay_run(data: RunData, sf: SettingsFile) -> ReplayResult:
     """Run the core over a decoded bag with one settings file (gyro held per sample when present)."""
     t0 = time.perf_counter()
     settings, notes = settings_for_run(sf, data)
-    traj = run(data.samples, settings, gyro_z_radps=data.gyro_z_radps)
+    cmd = data.cmd_v_mps
+    if cmd is not None and data.cmd_age_s is not None:
+        cmd = np.where(data.cmd_age_s <= settings.slip.command_timeout_s, cmd, np.nan)   # stale commands count as none
+    traj = run(data.samples, settings, gyro_z_radps=data.gyro_z_radps, accel_x_mps2=data.accel_x_mps2,
+               up_x=data.up_x, cmd_v_mps=cmd)
     if len(traj) == 0:
         raise InputError(f"no joint-state sample of '{data.path}' could be used (every one was skipped: "
                          f"{', '.join(f'{k} {v}' for k, v in traj.counters.items() if v)}); check the joint names "
@@ -212,8 +216,12 @@ def _shared_task(label: str, k: int, sfs: Sequence[SettingsFile], opts: dict):
 def compare_bags(bags: Sequence[str], settings_files: Sequence[SettingsFile], *, truth: str | TruthSpec | None = None,
                  joint_topic: str | None = None, imu_topic: str | None = None, use_imu: bool = True,
                  jobs: int | None = None, progress: bool = True,
-                 on_note: Callable[[str], None] | None = None) -> CompareResult:
-    """Decode every bag once and evaluate every settings file on it (see the module docstring)."""
+                 on_note: Callable[[str], None] | None = None, scheduler: str | None = None,
+                 workers: int | None = None) -> CompareResult:
+    """Decode every bag once and evaluate every settings file on it (see the module docstring).
+
+    ``scheduler`` ('local' or a Dask scheduler address) runs one task per bag on that Dask cluster
+    (``wheel_dr.fleet.commands``) instead of the process pool; ``workers`` sizes a local cluster."""
     if not bags:
         raise InputError("no bag given; name one or more bags to compare.")
     if not settings_files:
@@ -222,6 +230,9 @@ def compare_bags(bags: Sequence[str], settings_files: Sequence[SettingsFile], *,
     if len(set(names)) != len(names):
         raise InputError("two settings files have the same name; give files with different names.")
     opts = {"joint_topic": joint_topic, "imu_topic": imu_topic, "truth": truth, "use_imu": use_imu}
+    if scheduler:
+        from ..fleet.commands import compare_on_cluster
+        return compare_on_cluster(bags, settings_files, opts, scheduler, workers, progress)
     jobs = default_jobs() if jobs is None else max(1, int(jobs))
     labels = [_bag_label(b, bags) for b in bags]
     result = CompareResult([])

@@ -26,7 +26,7 @@ from typing import Sequence
 import numpy as np
 
 __all__ = ["Layout", "joint_state_layout", "imu_layout", "pose_layout", "stack_raw", "bulk_joint_states",
-           "bulk_imu_gyro_z", "bulk_poses", "encode_joint_states", "CDR_LE_HEADER"]
+           "bulk_imu_gyro_z", "bulk_imu", "bulk_poses", "encode_joint_states", "CDR_LE_HEADER"]
 
 CDR_LE_HEADER = b"\x00\x01\x00\x00"
 
@@ -128,15 +128,18 @@ def imu_layout(raw: bytes, ros1: bool = False) -> Layout | None:
         fixed_from = sec_off + 8
         fixed_to = c.pos
         orientation = c.doubles(4)
-        c.doubles(9)
+        orientation_cov = c.doubles(9)
         angular = c.doubles(3)
-        c.doubles(9)
-        c.doubles(3)
-        c.doubles(9)
+        angular_cov = c.doubles(9)
+        linear = c.doubles(3)
+        linear_cov = c.doubles(9)
         if c.pos != len(raw):
             return None
         return Layout(len(raw), fixed_from, fixed_to, sec_off, nsec_off,
-                      {"orientation": (orientation, 4), "angular_velocity": (angular, 3)}, (), frame)
+                      {"orientation": (orientation, 4), "orientation_covariance": (orientation_cov, 9),
+                       "angular_velocity": (angular, 3), "angular_velocity_covariance": (angular_cov, 9),
+                       "linear_acceleration": (linear, 3), "linear_acceleration_covariance": (linear_cov, 9)},
+                      (), frame)
     except (struct.error, IndexError):
         return None
 
@@ -220,6 +223,8 @@ def bulk_joint_states(raws: Sequence[bytes], ros1: bool = False):
         out.append(_column(arr, off, j, "<f8") if count == j else np.full((len(arr), j), np.nan))
     has_pos = layout.fields["position"][1] == j
     has_vel = layout.fields["velocity"][1] == j
+    if j and not has_pos and not has_vel:
+        return None  # names without values: malformed (core.wheels.samples_from_messages)
     return layout.names, stamps, out[0], out[1], has_pos, has_vel
 
 
@@ -230,6 +235,20 @@ def bulk_imu_gyro_z(raws: Sequence[bytes], ros1: bool = False):
         return None
     off, _ = layout.fields["angular_velocity"]
     return _stamps(arr, layout, ros1), _column(arr, off, 3, "<f8")[:, 2].copy()
+
+
+def bulk_imu(raws: Sequence[bytes], ros1: bool = False):
+    """dict of stamp_ns (N,), orientation (N, 4) x y z w, angular_velocity (N, 3), linear_acceleration
+    (N, 3) and the first element of each covariance (N,) (-1 marks the field unknown), or None."""
+    layout, arr = _stacked(raws, ros1, imu_layout)
+    if arr is None:
+        return None
+    out = {"stamp_ns": _stamps(arr, layout, ros1)}
+    for name in ("orientation", "angular_velocity", "linear_acceleration"):
+        off, count = layout.fields[name]
+        out[name] = _column(arr, off, count, "<f8").copy()
+        out[name + "_cov0"] = _column(arr, layout.fields[name + "_covariance"][0], 1, "<f8")[:, 0].copy()
+    return out
 
 
 def bulk_poses(raws: Sequence[bytes], msgtype: str, ros1: bool = False):

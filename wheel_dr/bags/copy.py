@@ -77,7 +77,8 @@ def copy_with_odometry(src: str | os.PathLike, dst: str | os.PathLike, traj, set
         raise InputError(f"bag '{source}' already has a topic {topic}; choose another with --odom-topic.")
     ts = get_typestore(Stores.ROS1_NOETIC if ros1 else Stores.LATEST)
     rows = _odometry_rows(traj, settings, ts, ros1)
-    fmt = "ros1" if ros1 else ("mcap" if any(source.glob("*.mcap")) else "sqlite3")
+    mcap = source.suffix == ".mcap" or (source.is_dir() and any(source.glob("*.mcap")))
+    fmt = "ros1" if ros1 else ("mcap" if mcap else "sqlite3")
     try:
         with bag_writer_into_place(target, fmt) as writer:
             mapping = {}
@@ -99,7 +100,7 @@ def copy_with_odometry(src: str | os.PathLike, dst: str | os.PathLike, traj, set
                         k += 1
                     writer.write(mapping[c.id], t, raw)
             except Exception as exc:
-                raise BagError(f"bag '{source}' cannot be read to the end ({_why(exc)}); re-copy or re-record "
+                raise BagError(f"bag '{source}' cannot be read to the end: {_why(exc)}; re-copy or re-record "
                                "it.") from None
             for j in range(k, len(stamps)):
                 writer.write(odom, stamps[j], rows[j])

@@ -25,7 +25,7 @@ from ..core import errors as _errors
 from ..core.path import PlanarPath
 from ..core.se2 import quaternion_to_yaw_array
 from ..core.errors import InputError, WheelDrError
-from ..core.wheels import JointSamples
+from ..core.wheels import JointSamples, samples_from_messages
 from . import codec
 from .writer import SLIP_STATUS_NAME
 
@@ -38,6 +38,7 @@ POSE_TYPES = ("nav_msgs/msg/Odometry", "geometry_msgs/msg/PoseStamped", "geometr
 TF_TYPE = "tf2_msgs/msg/TFMessage"
 STRING_TYPE = "std_msgs/msg/String"
 DIAG_TYPE = "diagnostic_msgs/msg/DiagnosticArray"
+CMD_TYPES = ("geometry_msgs/msg/Twist", "geometry_msgs/msg/TwistStamped")
 
 
 BagError = _errors.BagError                # defined with every other error in wheel_dr.core.errors
@@ -103,6 +104,11 @@ class RunData:
     decode: str                        # 'bulk' or 'per-message'
     stamps_from: str                   # 'header' or 'record time'
     gyro_z_radps: np.ndarray | None = None
+    accel_x_mps2: np.ndarray | None = None   # (N,) accelerometer x held, NaN where unknown (covariance[0] -1)
+    up_x: np.ndarray | None = None           # (N,) up axis' x component from the IMU orientation, NaN where unknown
+    cmd_v_mps: np.ndarray | None = None      # (N,) commanded speed held (cmd_vel linear.x), NaN before the first
+    cmd_age_s: np.ndarray | None = None      # (N,) age of that command at each joint stamp
+    cmd_topic: str | None = None
     imu_topic: str | None = None
     imu_count: int = 0
     truth: PlanarPath | None = None
@@ -120,37 +126,94 @@ class RunData:
         return len(self.samples)
 
 
+_STORAGE_SUFFIXES = (".mcap", ".db3")
+
+
+def _not_regular(p: Path) -> bool:
+    """True for something that exists but is neither a regular file nor a directory (FIFO, socket, device)."""
+    return p.exists() and not p.is_file() and not p.is_dir()
+
+
+def _refuse_special(p: Path, what: str) -> None:
+    if _not_regular(p):
+        raise BagError(f"{what} '{p}' is not a regular file (a pipe, socket or device); give the path of a "
+                       "recorded bag file or directory.")
+
+
 def _resolve(path: str | os.PathLike) -> Path:
+    """The bag to open: a rosbag2 directory (with metadata.yaml, or holding bare .mcap files), a bare
+    .mcap or .db3 file, or a ROS 1 .bag file. Anything else is refused with one sentence."""
     p = Path(path)
     if not p.exists():
-        raise BagError(f"bag '{p}' does not exist; give the path of a rosbag2 directory or a ROS 1 .bag file.")
-    if p.is_file() and p.suffix in (".mcap", ".db3") and (p.parent / "metadata.yaml").is_file():
-        return p.parent
+        raise BagError(f"bag '{p}' does not exist; give the path of a rosbag2 directory, an .mcap file or a "
+                       "ROS 1 .bag file.")
+    _refuse_special(p, "bag")
+    if p.is_file() and p.suffix in _STORAGE_SUFFIXES and (p.parent / "metadata.yaml").is_file():
+        p = p.parent
     if p.is_dir():
-        if not (p / "metadata.yaml").is_file():
-            raise BagError(f"'{p}' is a directory without metadata.yaml, so not a rosbag2 bag; give the bag "
-                           "directory that ros2 bag record wrote (or a ROS 1 .bag file).")
+        for f in p.iterdir():
+            if f.name == "metadata.yaml" or f.suffix in _STORAGE_SUFFIXES:
+                _refuse_special(f, "bag file")
+        if not (p / "metadata.yaml").is_file() and not any(p.glob("*.mcap")):
+            raise BagError(f"'{p}' is a directory without metadata.yaml or .mcap files, so not a rosbag2 bag; give "
+                           "the bag directory that the recorder wrote, an .mcap file or a ROS 1 .bag file.")
         return p
-    if p.suffix != ".bag":
-        raise BagError(f"'{p}' is not a bag (expected a rosbag2 directory or a ROS 1 file ending in .bag); "
-                       "give the path of a recorded bag.")
+    if p.suffix not in (".bag",) + _STORAGE_SUFFIXES:
+        raise BagError(f"'{p}' is not a bag (expected a rosbag2 directory, an .mcap or .db3 file, or a ROS 1 file "
+                       "ending in .bag); give the path of a recorded bag.")
     return p
 
 
+def _bag_paths(p: Path) -> list[Path]:
+    """What rosbags opens: the directory itself with metadata.yaml, else its .mcap files (a split
+    recording whose metadata.yaml was lost), or the one file."""
+    if p.is_dir() and not (p / "metadata.yaml").is_file():
+        return sorted(p.glob("*.mcap"))
+    return [p]
+
+
 def _open(p: Path) -> AnyReader:
-    reader = AnyReader([p], default_typestore=get_typestore(Stores.LATEST))
     try:
+        reader = AnyReader(_bag_paths(p), default_typestore=get_typestore(Stores.LATEST))
         reader.open()
     except Exception as exc:  # rosbags raises its own and low-level errors (yaml, sqlite3, struct) here
-        raise BagError(f"bag '{p}' cannot be opened ({_why(exc)}); it may be truncated, corrupt or not a bag: "
-                       "re-copy or re-record it.") from None
+        raise BagError(f"bag '{p}' cannot be opened: {_why(exc)}; re-copy or re-record it.") from None
     return reader
 
 
 def _why(exc: BaseException) -> str:
-    text = str(exc).strip().splitlines()[0] if str(exc).strip() else ""
-    text = text[:120]
-    return f"{exc.__class__.__name__}: {text}" if text else exc.__class__.__name__
+    """What is wrong with a bag, in our words, from the kind of error the bag library or the system gave."""
+    import sqlite3
+    import struct as _struct
+    import zlib
+
+    text = str(exc).lower()
+    name = exc.__class__.__name__.lower()
+    if isinstance(exc, PermissionError):
+        return "it cannot be read with this user's permissions"
+    if isinstance(exc, (EOFError, _struct.error)) or any(w in text for w in ("truncat", "end of file", "eof",
+                                                                                 "unexpected end", "not enough",
+                                                                                 "end magic", "footer")):
+        return "it ends before its closing records, so it is truncated or its recording did not finish"
+    if "crc" in text or "checksum" in text or isinstance(exc, zlib.error):
+        return "a checksum does not match, so its data is damaged"
+    if any(w in name or w in text for w in ("zstd", "lz4", "decompress", "compress")):
+        return "a compressed block of it does not decompress, so its data is damaged"
+    if isinstance(exc, sqlite3.Error):
+        return "its sqlite3 database is damaged or not a database"
+    if "yaml" in name or "metadata" in text or "yaml" in text:
+        return "its metadata.yaml is damaged or not what a recorder writes"
+    if "magic" in text or "not a" in text or "unrecognized" in text or "unknown" in text or "version" in text:
+        return "it does not start like a bag of a known format"
+    if isinstance(exc, (KeyError, IndexError)):
+        return "its index refers to records or connections that are not in it"
+    if "definition" in text or "msgdef" in text or "type" in text:
+        return "a message definition in it is missing or cannot be parsed"
+    if isinstance(exc, (UnicodeDecodeError, ValueError, TypeError, AttributeError, OverflowError)):
+        return "a record in it does not have the layout its format requires"
+    if isinstance(exc, OSError):
+        return "the system could not read it"
+    return "it is damaged or not a bag"
 
 
 def bag_topics(path: str | os.PathLike) -> dict[str, tuple[str, int]]:
@@ -213,6 +276,9 @@ def read_tum(path: str | os.PathLike) -> PlanarPath:
     """A TUM RGB-D benchmark trajectory file (Sturm et al. 2012): ``t tx ty tz qx qy qz qw`` per line,
     t in seconds; '#' lines are comments. Returns the planar path (x, y, yaw)."""
     p = Path(path)
+    if p.exists() and not p.is_file():
+        raise InputError(f"truth file '{p}' is not a regular file (a directory, pipe or device); give a TUM "
+                         "trajectory file.")
     if not p.is_file():
         raise InputError(f"truth file '{p}' does not exist; give an existing TUM trajectory file.")
     rows = []
@@ -256,34 +322,12 @@ def _decode_joint_states(reader: AnyReader, raws: list[bytes], record_ns: list[i
         samples = JointSamples(stamps, tuple(names), pos, vel)
         decode = "bulk"
     else:
-        index: dict[str, int] = {}
         per = []
         for raw in raws:
             m = reader.deserialize(bytes(raw), msgtype)
-            nm = list(m.name)
-            for n in nm:
-                index.setdefault(n, len(index))
-            per.append((m.header.stamp.sec * 1_000_000_000 + m.header.stamp.nanosec, nm, np.asarray(m.position),
-                        np.asarray(m.velocity)))
-        j = len(index)
-        n = len(per)
-        stamps = np.zeros(n, dtype=np.int64)
-        pos = np.full((n, j), np.nan)
-        vel = np.full((n, j), np.nan)
-        present = np.zeros((n, j), dtype=bool)
-        malformed = np.zeros(n, dtype=bool)
-        for i, (st, nm, p, v) in enumerate(per):
-            stamps[i] = st
-            if (len(p) not in (0, len(nm))) or (len(v) not in (0, len(nm))) or (len(p) == 0 and len(v) == 0 and nm):
-                malformed[i] = True
-                continue
-            cols = [index[x] for x in nm]
-            present[i, cols] = True
-            if len(p):
-                pos[i, cols] = p
-            if len(v):
-                vel[i, cols] = v
-        samples = JointSamples(stamps, tuple(index), pos, vel, present, malformed)
+            per.append((m.header.stamp.sec * 1_000_000_000 + m.header.stamp.nanosec, list(m.name),
+                        np.asarray(m.position), np.asarray(m.velocity)))
+        samples = samples_from_messages(per)   # the node's rules for every message
         decode = "per-message"
     stamps_from = "header"
     if len(samples) and not np.any(samples.stamp_ns):
@@ -306,6 +350,50 @@ def _decode_gyro(reader: AnyReader, raws: list[bytes], msgtype: str, ros1: bool)
         st.append(m.header.stamp.sec * 1_000_000_000 + m.header.stamp.nanosec)
         wz.append(m.angular_velocity.z)
     return np.asarray(st, dtype=np.int64), np.asarray(wz, dtype=np.float64)
+
+
+def _decode_imu_motion(reader: AnyReader, raws: list[bytes], msgtype: str, ros1: bool):
+    """(stamp_ns, accel_x (NaN where unknown), up_x (NaN where no orientation)) of an Imu topic."""
+    from ..core.slip_motion import up_x_from_quaternion
+
+    bulk = codec.bulk_imu(raws, ros1)
+    if bulk is not None:
+        ref = reader.deserialize(bytes(raws[0]), msgtype)
+        if not (ref.linear_acceleration.x == bulk["linear_acceleration"][0, 0]
+                or math.isnan(ref.linear_acceleration.x)):
+            bulk = None
+    if bulk is None:
+        st, acc, q, acov, ocov = [], [], [], [], []
+        for raw in raws:
+            m = reader.deserialize(bytes(raw), msgtype)
+            st.append(m.header.stamp.sec * 1_000_000_000 + m.header.stamp.nanosec)
+            acc.append(m.linear_acceleration.x)
+            o = m.orientation
+            q.append((o.x, o.y, o.z, o.w))
+            acov.append(m.linear_acceleration_covariance[0])
+            ocov.append(m.orientation_covariance[0])
+        bulk = {"stamp_ns": np.asarray(st, dtype=np.int64), "linear_acceleration": np.asarray(acc)[:, None],
+                "orientation": np.asarray(q, dtype=np.float64).reshape(-1, 4),
+                "linear_acceleration_cov0": np.asarray(acov), "orientation_cov0": np.asarray(ocov)}
+    ax = np.where(bulk["linear_acceleration_cov0"] == -1.0, np.nan, bulk["linear_acceleration"][:, 0])
+    q = bulk["orientation"]
+    up = np.where(bulk["orientation_cov0"] == -1.0, np.nan, up_x_from_quaternion(q[:, 0], q[:, 1], q[:, 2], q[:, 3]))
+    return bulk["stamp_ns"], ax.astype(np.float64), up.astype(np.float64)
+
+
+def _decode_cmd(reader: AnyReader, raws: list[bytes], times: Sequence[int], msgtype: str):
+    """(stamp_ns, linear.x) of a Twist (record times) or TwistStamped (header stamps) topic."""
+    st, vx = [], []
+    for raw, rec in zip(raws, times):
+        m = reader.deserialize(bytes(raw), msgtype)
+        if hasattr(m, "twist"):
+            stamp = m.header.stamp.sec * 1_000_000_000 + m.header.stamp.nanosec
+            st.append(stamp if stamp > 0 else int(rec))
+            vx.append(m.twist.linear.x)
+        else:
+            st.append(int(rec))
+            vx.append(m.linear.x)
+    return np.asarray(st, dtype=np.int64), np.asarray(vx, dtype=np.float64)
 
 
 def _decode_poses(reader: AnyReader, raws: list[bytes], msgtype: str, ros1: bool) -> PlanarPath:
@@ -359,6 +447,22 @@ def _gather(buf: np.ndarray, offsets: np.ndarray) -> tuple[np.ndarray, np.ndarra
     return length.astype(np.int64) - 22, off + 31
 
 
+def _storages(reader: AnyReader) -> list | None:
+    """The storage readers below rosbags' readers (several for split or multi-file bags), or None
+    when a bag compresses per message (then rosbags' own iterator decompresses)."""
+    out = []
+    for r in reader.readers:
+        storage = r.storage
+        inner = getattr(storage, "storages", None)
+        if inner is None:                     # a bare .mcap / .db3 file: the storage itself
+            out.append(storage)
+            continue
+        if storage.metadata.compression_mode == "message":
+            return None
+        out.extend(inner)
+    return out
+
+
 def _mcap_fast(reader: AnyReader, topics: set[str]):
     """Raw messages of ``topics`` straight from MCAP storage, or None when not applicable.
 
@@ -373,10 +477,7 @@ def _mcap_fast(reader: AnyReader, topics: set[str]):
     """
     try:
         from rosbags.rosbag2 import storage_mcap
-        directory = reader.readers[0].storage
-        storages = directory.storages
-        if directory.metadata.compression_mode == "message":
-            return None
+        storages = _storages(reader)
         if not storages or not all(isinstance(st, storage_mcap.McapReader) and st.chunks for st in storages):
             return None
     except (AttributeError, IndexError, ImportError):
@@ -439,10 +540,7 @@ def _sqlite_fast(reader: AnyReader, topics: set[str]):
     """
     try:
         from rosbags.rosbag2 import storage_sqlite3
-        directory = reader.readers[0].storage
-        storages = directory.storages
-        if directory.metadata.compression_mode == "message":
-            return None
+        storages = _storages(reader)
         if not storages or not all(isinstance(st, storage_sqlite3.Sqlite3Reader) and Path(st.path).is_file()
                                    for st in storages):
             return None
@@ -526,11 +624,14 @@ def read_run(path: str | os.PathLike, joint_topic: str | None = None, imu_topic:
                            f"'{p}'; fix --slip-topic.")
         desc = sorted(t for t, typ in types.items() if typ == STRING_TYPE and t.endswith("robot_description"))
         ut = desc[0] if desc else None
+        cmds = sorted(t for t, typ in types.items() if typ in CMD_TYPES and t.endswith("cmd_vel"))
+        ct = cmds[0] if len(cmds) == 1 and use_imu else None
 
-        wanted = [t for t in (jt, it, truth_topic, st_topic, ut) if t] + tf_topics
+        wanted = [t for t in (jt, it, truth_topic, st_topic, ut, ct) if t] + tf_topics
         sel = [c for t in wanted for c in conns[t]]
         buckets: dict[str, list] = {t: [] for t in wanted}
         record: list[int] = []
+        cmd_record: list[int] = []
         try:
             fast = None
             if not ros1:
@@ -543,6 +644,8 @@ def read_run(path: str | os.PathLike, joint_topic: str | None = None, imu_topic:
                     buckets[t] = raws
                     if t == jt:
                         record = times.tolist()
+                    elif t == ct:
+                        cmd_record = times.tolist()
                 rest = [c for c in sel if c.topic in tf_topics]
             else:
                 rest = sel
@@ -551,6 +654,9 @@ def read_run(path: str | os.PathLike, joint_topic: str | None = None, imu_topic:
                 if t == jt:
                     buckets[t].append(raw)
                     record.append(ts)
+                elif t == ct:
+                    buckets[t].append(raw)
+                    cmd_record.append(ts)
                 elif t in tf_topics:
                     buckets[t].append((raw, c.msgtype))
                 else:
@@ -558,8 +664,7 @@ def read_run(path: str | os.PathLike, joint_topic: str | None = None, imu_topic:
         except WheelDrError:
             raise
         except Exception as exc:
-            raise BagError(f"bag '{p}' cannot be read to the end ({_why(exc)}); it is truncated or corrupt: "
-                           "re-copy or re-record it.") from None
+            raise BagError(f"bag '{p}' cannot be read to the end: {_why(exc)}; re-copy or re-record it.") from None
         if len(buckets[jt]) == 0:
             raise BagError(f"joint-state topic '{jt}' in bag '{p}' has no messages; record the wheel joint states.")
         try:
@@ -573,6 +678,15 @@ def read_run(path: str | os.PathLike, joint_topic: str | None = None, imu_topic:
                 run.gyro_z_radps = _hold(g_st, g_wz, samples.stamp_ns)
                 run.imu_topic = it
                 run.imu_count = len(g_st)
+                a_st, a_x, a_up = _decode_imu_motion(reader, buckets[it], IMU_TYPE, ros1)
+                if np.isfinite(a_x).any():
+                    run.accel_x_mps2 = _hold(a_st, a_x, samples.stamp_ns)
+                    run.up_x = _hold(a_st, a_up, samples.stamp_ns)
+            if ct and len(buckets[ct]):
+                c_st, c_v = _decode_cmd(reader, buckets[ct], cmd_record, types[ct])
+                run.cmd_v_mps = _hold(c_st, c_v, samples.stamp_ns)
+                run.cmd_age_s = (samples.stamp_ns - _hold(c_st, c_st.astype(np.float64), samples.stamp_ns)) * 1e-9
+                run.cmd_topic = ct
             if truth_topic:
                 run.truth = _decode_poses(reader, buckets[truth_topic], types[truth_topic], ros1)
                 run.truth_source = f"topic {truth_topic} ({types[truth_topic].replace('/msg/', '/')})"
@@ -608,8 +722,8 @@ def read_run(path: str | os.PathLike, joint_topic: str | None = None, imu_topic:
         except WheelDrError:
             raise
         except Exception as exc:
-            raise BagError(f"bag '{p}' holds messages that cannot be decoded ({_why(exc)}); it is corrupt or "
-                           "its message definitions are wrong: re-record it.") from None
+            raise BagError(f"bag '{p}' holds messages that cannot be decoded: {_why(exc)}; re-record it or fix "
+                           "its message definitions.") from None
         if need_truth and run.truth is None:
             raise BagError(f"bag '{p}' has no ground truth (no Odometry, PoseStamped or PoseWithCovarianceStamped "
                            "topic); name one, a TF pair PARENT->CHILD or a TUM file with --truth.")

@@ -4,8 +4,10 @@ Topics (defaults; see ``DEFAULT_TOPICS``):
 
 * ``/joint_states``  sensor_msgs/JointState: the encoder readings (name, position rad, velocity rad/s);
 * ``/imu``           sensor_msgs/Imu: gyro z rate with ``angular_velocity_covariance`` diag(sd^2);
-  orientation unknown (orientation_covariance[0] = -1, the message definition's convention),
-  linear acceleration unknown (covariance[0] = -1);
+  the accelerometer's specific force with ``linear_acceleration_covariance`` diag(sd^2) and the
+  orientation (yaw and pitch, covariance diag(1e-4)); with ``imu_accel=False`` orientation and
+  linear acceleration are marked unknown (covariance[0] = -1, the message definition's convention);
+* ``/cmd_vel``       geometry_msgs/Twist: the commanded speed and yaw rate (``cmd=False``: none);
 * ``/ground_truth``  nav_msgs/Odometry: true pose in ``odom``, twist (v, w) in ``base_link``;
 * ``/robot_description`` std_msgs/String: the cart's URDF (nominal geometry), one message at the
   start, offered transient-local (rosbag2) / latched (ROS 1);
@@ -20,7 +22,6 @@ from __future__ import annotations
 
 import os
 import shutil
-import tempfile
 from pathlib import Path
 from contextlib import contextmanager
 from typing import Iterator, Mapping
@@ -34,6 +35,7 @@ from rosbags.typesys import Stores, get_typestore
 from ..core.conventions import pose_covariance_6x6, yaw_to_quaternion
 from ..core.errors import InputError
 from ..core.se2 import yaw_to_quaternion_array
+from ..partfiles import make_part_dir
 from .codec import imu_layout, joint_state_layout, encode_joint_states, pose_layout
 
 __all__ = ["write_bag", "DEFAULT_TOPICS", "SLIP_STATUS_NAME", "BAG_FORMATS"]
@@ -44,6 +46,7 @@ DEFAULT_TOPICS = {
     "truth": "/ground_truth",
     "robot_description": "/robot_description",
     "slip": "/ground_truth/slip",
+    "cmd_vel": "/cmd_vel",
 }
 SLIP_STATUS_NAME = "slip_truth"
 BAG_FORMATS = ("mcap", "sqlite3", "ros1")
@@ -82,7 +85,7 @@ def _rows(arr: np.ndarray) -> list[bytes]:
 
 def _messages(sim, ts, ros1: bool, topics: Mapping[str, str], truth_stride: int, imu: bool,
               truth: bool, description: bool, slip: bool, urdf: str | None, odom_frame: str, base_frame: str,
-              imu_frame: str):
+              imu_frame: str, imu_accel: bool = True, cmd: bool = True):
     """[(topic, msgtype, qos_latched, [(stamp_ns, bytes-like), ...]), ...] for one bag."""
     ser = ts.serialize_ros1 if ros1 else ts.serialize_cdr
     stamps = np.asarray(sim.stamp_ns, dtype=np.int64)
@@ -106,11 +109,33 @@ def _messages(sim, ts, ros1: bool, topics: Mapping[str, str], truth_stride: int,
             orientation_covariance=unknown.copy(), angular_velocity=vec(x=0.0, y=0.0, z=0.0),
             angular_velocity_covariance=np.diag([var, var, var]).ravel(),
             linear_acceleration=vec(x=0.0, y=0.0, z=0.0), linear_acceleration_covariance=unknown.copy())
+        with_accel = imu_accel and sim.accel_mps2 is not None
+        if with_accel:
+            avar = max(sim.scenario.accel_noise_sd_mps2, 1e-3) ** 2
+            msg.orientation_covariance = np.diag([1e-4, 1e-4, 1e-4]).ravel()
+            msg.linear_acceleration_covariance = np.diag([avar, avar, avar]).ravel()
         template = bytes(ser(msg, "sensor_msgs/msg/Imu"))
         lay = imu_layout(template, ros1)
         off = lay.fields["angular_velocity"][0] + 16
-        rows = _fill(template, n, stamps, lay.sec_offset, lay.nsec_offset, ros1, {off: sim.gyro_z_radps})
+        columns = {off: sim.gyro_z_radps}
+        if with_accel:
+            o, a = lay.fields["orientation"][0], lay.fields["linear_acceleration"][0]
+            q = sim.orientation_xyzw
+            for i in range(4):
+                columns[o + 8 * i] = q[:, i]
+            for i in range(3):
+                columns[a + 8 * i] = sim.accel_mps2[:, i]
+        rows = _fill(template, n, stamps, lay.sec_offset, lay.nsec_offset, ros1, columns)
         out.append((topics["imu"], "sensor_msgs/msg/Imu", False, list(zip(stamps.tolist(), _rows(rows)))))
+    if cmd and sim.cmd_v_mps is not None:
+        g = ts.types
+        vec = g["geometry_msgs/msg/Vector3"]
+        msgs = []
+        for k in range(0, n, 5):             # 20 Hz at a 100 Hz joint rate, as navigation stacks send it
+            tw = g["geometry_msgs/msg/Twist"](linear=vec(x=float(sim.cmd_v_mps[k]), y=0.0, z=0.0),
+                                              angular=vec(x=0.0, y=0.0, z=float(sim.cmd_w_radps[k])))
+            msgs.append((int(stamps[k]), ser(tw, "geometry_msgs/msg/Twist")))
+        out.append((topics["cmd_vel"], "geometry_msgs/msg/Twist", False, msgs))
     if truth:
         pick = np.arange(0, n, max(1, int(truth_stride)))
         if pick[-1] != n - 1:
@@ -164,7 +189,7 @@ def write_bag(sim, path: str | os.PathLike, fmt: str = "mcap", *, typestore=None
               topics: Mapping[str, str] | None = None, truth_stride: int = 5, imu: bool = True,
               truth: bool = True, description: bool = True, slip: bool = True, urdf: str | None = None,
               odom_frame: str = "odom", base_frame: str = "base_link", imu_frame: str = "imu_link",
-              overwrite: bool = False) -> Path:
+              overwrite: bool = False, imu_accel: bool = True, cmd: bool = True) -> Path:
     """Write ``sim`` as a bag at ``path`` and return the path (see the module docstring for topics).
 
     ``fmt``: 'mcap' or 'sqlite3' (rosbag2, ``path`` is a directory) or 'ros1' (``path`` is a
@@ -183,7 +208,7 @@ def write_bag(sim, path: str | os.PathLike, fmt: str = "mcap", *, typestore=None
     if target.exists() and not overwrite:
         raise InputError(f"output '{target}' already exists; remove it or choose another name.")
     groups = _messages(sim, ts, ros1, names, truth_stride, imu, truth, description, slip, urdf, odom_frame,
-                       base_frame, imu_frame)
+                       base_frame, imu_frame, imu_accel, cmd)
     with bag_writer_into_place(target, fmt) as writer:
         order = []
         for topic, msgtype, latched, msgs in groups:
@@ -213,8 +238,7 @@ def write_bag(sim, path: str | os.PathLike, fmt: str = "mcap", *, typestore=None
 def bag_writer_into_place(target: Path, fmt: str) -> Iterator[Writer1 | Writer2]:
     """An open bag writer ('mcap', 'sqlite3' or 'ros1') on a temporary name beside ``target``; the bag
     is renamed onto ``target`` only when the block completes, so nothing half-written is left."""
-    target.parent.mkdir(parents=True, exist_ok=True)
-    tmpdir = Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent))
+    tmpdir = make_part_dir(target)   # also removes the parts a killed run left beside target
     tmp = tmpdir / target.name
     try:
         if fmt == "ros1":

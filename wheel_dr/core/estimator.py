@@ -16,14 +16,22 @@ from typing import Sequence
 import numpy as np
 
 from .motion import body_increment, integrate, pose_increment_scalar, wrap_angle, wrap_angle_scalar
-from .noise import UNOBSERVED_VARIANCE, increment_noise, increment_noise_scalar, propagate_covariance, propagate_step
+from .noise import (UNOBSERVED_VARIANCE, increment_noise, increment_noise_floats, propagate_covariance,
+                    propagate_step_floats)
 from .settings import Settings
 from .slip import SlipMonitor, SlipResult, SlipStep, detect_slip
+from .slip_motion import MotionInputs
 from .wheels import JointSamples, SampleStatus, Travel, TravelTracker, count_statuses, wheel_travel
 
 __all__ = ["Trajectory", "run", "run_travel", "Estimator"]
 
 _UNOBSERVED_TWIST = np.diag([UNOBSERVED_VARIANCE, UNOBSERVED_VARIANCE])
+_UNOBSERVED_TWIST_FLOATS = (UNOBSERVED_VARIANCE, 0.0, UNOBSERVED_VARIANCE)
+
+
+def _sym3(p: tuple[float, ...]) -> np.ndarray:
+    xx, xy, xt, yy, yt, tt = p
+    return np.array([[xx, xy, xt], [xy, yy, yt], [xt, yt, tt]])
 
 
 @dataclass
@@ -68,22 +76,35 @@ class Trajectory:
 
 
 def run(samples: JointSamples, settings: Settings, start_pose: Sequence[float] = (0.0, 0.0, 0.0),
-        start_cov: np.ndarray | None = None, gyro_z_radps: np.ndarray | None = None) -> Trajectory:
-    """Estimate over a whole run. ``gyro_z_radps`` (N,), if given, is the IMU z rate held at each sample."""
+        start_cov: np.ndarray | None = None, gyro_z_radps: np.ndarray | None = None,
+        accel_x_mps2: np.ndarray | None = None, up_x: np.ndarray | None = None,
+        cmd_v_mps: np.ndarray | None = None) -> Trajectory:
+    """Estimate over a whole run. ``gyro_z_radps`` (N,), if given, is the IMU z rate held at each sample;
+    ``accel_x_mps2``, ``up_x`` and ``cmd_v_mps`` (N,) the accelerometer x reading, the up axis' x
+    component (``slip_motion.up_x_from_quaternion``) and the commanded speed, NaN where unknown."""
     travel = wheel_travel(samples, settings)
-    gyro = None if gyro_z_radps is None else np.asarray(gyro_z_radps, dtype=np.float64)[travel.index]
-    return run_travel(travel, settings, start_pose, start_cov, gyro)
+
+    def pick(a: np.ndarray | None) -> np.ndarray | None:
+        return None if a is None else np.asarray(a, dtype=np.float64)[travel.index]
+
+    return run_travel(travel, settings, start_pose, start_cov, pick(gyro_z_radps), pick(accel_x_mps2),
+                      pick(up_x), pick(cmd_v_mps))
 
 
 def run_travel(travel: Travel, settings: Settings, start_pose: Sequence[float] = (0.0, 0.0, 0.0),
-               start_cov: np.ndarray | None = None, gyro_z_radps: np.ndarray | None = None) -> Trajectory:
-    """Estimate from wheel travel already computed (gyro given per accepted sample)."""
+               start_cov: np.ndarray | None = None, gyro_z_radps: np.ndarray | None = None,
+               accel_x_mps2: np.ndarray | None = None, up_x: np.ndarray | None = None,
+               cmd_v_mps: np.ndarray | None = None) -> Trajectory:
+    """Estimate from wheel travel already computed (IMU and command given per accepted sample)."""
     b = settings.wheels.track_width
     dl, dr, dt = travel.ds_left_m, travel.ds_right_m, travel.dt_s
     ds, dth = body_increment(dl, dr, b)
-    slip = detect_slip(travel, gyro_z_radps, settings)
+    motion = None if accel_x_mps2 is None else MotionInputs(accel_x_mps2, up_x, cmd_v_mps)
+    slip = detect_slip(travel, gyro_z_radps, settings, motion)
     if slip.dtheta_rad is not None:
         dth = slip.dtheta_rad
+    if slip.ds_m is not None:
+        ds = slip.ds_m
     scheme = settings.integration
     x, y, theta, theta_before, _, _ = integrate(ds, dth, scheme, tuple(start_pose))
     n = settings.noise
@@ -102,7 +123,11 @@ def run_travel(travel: Travel, settings: Settings, start_pose: Sequence[float] =
 
 
 class Estimator:
-    """Streaming estimator for the node: one joint-state sample per ``step``; never raises on bad data."""
+    """Streaming estimator for the node: one joint-state sample per ``step``; never raises on bad data.
+
+    The covariances are kept as floats (their distinct entries) and handed out as arrays by the
+    ``cov`` and ``twist_cov`` properties, so a step costs no numpy call.
+    """
 
     def __init__(self, settings: Settings, start_pose: Sequence[float] = (0.0, 0.0, 0.0),
                  start_cov: np.ndarray | None = None) -> None:
@@ -117,10 +142,26 @@ class Estimator:
     def reset(self, pose: Sequence[float] = (0.0, 0.0, 0.0), cov: np.ndarray | None = None) -> None:
         """Put the pose and covariance at ``pose`` / ``cov`` (zero by default); the wheel chain goes on."""
         self.x_m, self.y_m, self.theta_rad = (float(v) for v in pose)
-        self.cov = np.zeros((3, 3)) if cov is None else np.array(cov, dtype=np.float64).reshape(3, 3)
+        self.cov = np.zeros((3, 3)) if cov is None else cov
         self.v_mps = 0.0
         self.w_radps = 0.0
-        self.twist_cov = _UNOBSERVED_TWIST.copy()
+        self._twist = _UNOBSERVED_TWIST_FLOATS
+
+    @property
+    def cov(self) -> np.ndarray:
+        """(3, 3) pose covariance over (x, y, yaw), odom frame (a new array)."""
+        return _sym3(self._p)
+
+    @cov.setter
+    def cov(self, value: np.ndarray) -> None:
+        c = np.array(value, dtype=np.float64).reshape(3, 3)
+        self._p = (float(c[0, 0]), float(c[0, 1]), float(c[0, 2]), float(c[1, 1]), float(c[1, 2]), float(c[2, 2]))
+
+    @property
+    def twist_cov(self) -> np.ndarray:
+        """(2, 2) covariance of (v, w), base frame (a new array)."""
+        t00, t01, t11 = self._twist
+        return np.array([[t00, t01], [t01, t11]])
 
     def update_settings(self, settings: Settings) -> None:
         """Use new settings from the next sample on; pose and covariance are kept, the chain restarts."""
@@ -145,34 +186,44 @@ class Estimator:
 
     # -- one sample ------------------------------------------------------------------------------
     def step(self, stamp_ns: int, names: Sequence[str], positions: Sequence[float],
-             velocities: Sequence[float], gyro_z_radps: float | None = None) -> SampleStatus:
-        """Process one joint-state sample; returns its status (skipped kinds leave the state as it was)."""
+             velocities: Sequence[float], gyro_z_radps: float | None = None, accel_x_mps2: float | None = None,
+             up_x: float | None = None, cmd_v_mps: float | None = None) -> SampleStatus:
+        """Process one joint-state sample; returns its status (skipped kinds leave the state as it was).
+
+        ``accel_x_mps2`` (m/s^2), ``up_x`` and ``cmd_v_mps`` (m/s) are the latest accelerometer x
+        reading, the up axis' x component from the IMU orientation and the commanded speed (None: unknown).
+        """
         status, dt, dl, dr = self._tracker.step(stamp_ns, names, positions, velocities)
-        self.counters[status.name.lower()] += 1
         if status >= 10:
+            self.counters[status.name.lower()] += 1
             return status
         s = self.settings
         b = s.wheels.track_width
         restart = status != SampleStatus.USED
         ds, dth = body_increment(dl, dr, b)
-        slip = self._slip.step(self._tracker, status, dt, dl, dr, gyro_z_radps)
+        slip = self._slip.step(self._tracker, status, dt, dl, dr, gyro_z_radps, accel_x_mps2, up_x, cmd_v_mps)
         self.last_slip = slip
         if slip.dtheta_rad is not None:
             dth = slip.dtheta_rad
+        if slip.ds_m is not None:
+            ds = slip.ds_m
         theta = self.theta_rad
         dx, dy = pose_increment_scalar(theta, ds, dth, s.integration)
         n = s.noise
-        q, c_in = increment_noise_scalar(theta, dl, dr, b, s.integration, n.model, n.k_left, n.k_right, n.alphas)
-        if slip.noise_scale != 1.0:
-            q = q * slip.noise_scale
-            c_in = c_in * slip.noise_scale
-        self.cov = propagate_step(self.cov, dx, dy, q)
+        q, c_in = increment_noise_floats(theta, dl, dr, b, s.integration, n.model, n.k_left, n.k_right, n.alphas)
+        scale = slip.noise_scale
+        if scale != 1.0:
+            q = tuple(v * scale for v in q)
+            c_in = tuple(v * scale for v in c_in)
+        self._p = propagate_step_floats(self._p, dx, dy, q)
         self.x_m += dx
         self.y_m += dy
         self.theta_rad = theta + dth
         if restart:
-            self.v_mps, self.w_radps, self.twist_cov = 0.0, 0.0, _UNOBSERVED_TWIST.copy()
+            self.v_mps, self.w_radps, self._twist = 0.0, 0.0, _UNOBSERVED_TWIST_FLOATS
         else:
             self.v_mps, self.w_radps = ds / dt, dth / dt
-            self.twist_cov = c_in / (dt * dt)
+            dt2 = dt * dt
+            self._twist = (c_in[0] / dt2, c_in[1] / dt2, c_in[2] / dt2)
+        self.counters[status.name.lower()] += 1   # counted once the sample is fully applied
         return status

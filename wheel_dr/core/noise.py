@@ -28,7 +28,8 @@ import math
 
 import numpy as np
 
-from .motion import chord_factor, increment_jacobian, increment_jacobian_scalar, _chord_scalar
+from .motion import (_chord_derivative_scalar, _chord_scalar, chord_factor, increment_jacobian,
+                     increment_jacobian_scalar)
 
 __all__ = [
     "UNOBSERVED_VARIANCE",
@@ -39,6 +40,8 @@ __all__ = [
     "segment_covariance",
     "propagate_step",
     "motion_model_parts",
+    "increment_noise_floats",
+    "propagate_step_floats",
 ]
 
 UNOBSERVED_VARIANCE = 1.0e6  # variance reported for quantities the estimator does not observe
@@ -148,6 +151,68 @@ def increment_noise_scalar(theta_before: float, ds_left: float, ds_right: float,
     g = np.array([[-trans * s, c, 0.0], [trans * c, s, 0.0], [1.0, 0.0, 1.0]])
     q = (g * np.array([v1, vt, v2])) @ g.T
     return q, np.array([[vt, 0.0], [0.0, v1 + v2]])
+
+
+def increment_noise_floats(theta_before: float, ds_left: float, ds_right: float, track_width_m: float,
+                           scheme: str, model: str, k_left: float, k_right: float,
+                           alphas) -> tuple[tuple[float, ...], tuple[float, float, float]]:
+    """Float twin of ``increment_noise`` for one step, in the same entry-by-entry arithmetic:
+    Q as (xx, xy, xyaw, yy, yyaw, yawyaw) and C as (c00, c01, c11). No numpy (the node's hot path)."""
+    b = track_width_m
+    ds = 0.5 * (ds_right + ds_left)
+    dth = (ds_right - ds_left) / b
+    if model == "per_wheel":
+        var_r = k_right * abs(ds_right)
+        var_l = k_left * abs(ds_left)
+        c00 = 0.25 * (var_r + var_l)
+        c01 = 0.5 * (var_r - var_l) / b
+        c11 = (var_r + var_l) / (b * b)
+        if scheme == "euler":
+            j00, j10, j01, j11 = math.cos(theta_before), math.sin(theta_before), 0.0, 0.0
+        else:
+            phi = theta_before + 0.5 * dth
+            c, s = math.cos(phi), math.sin(phi)
+            if scheme == "midpoint":
+                g, gp = 1.0, 0.0
+            else:
+                g, gp = _chord_scalar(dth), _chord_derivative_scalar(dth)
+            j00, j10 = g * c, g * s
+            j01, j11 = ds * (gp * c - 0.5 * g * s), ds * (gp * s + 0.5 * g * c)
+        u00, u01 = j00 * c00 + j01 * c01, j00 * c01 + j01 * c11
+        u10, u11 = j10 * c00 + j11 * c01, j10 * c01 + j11 * c11
+        q = (u00 * j00 + u01 * j01, u00 * j10 + u01 * j11, u01, u10 * j10 + u11 * j11, u11, c11)
+        return q, (c00, c01, c11)
+    if scheme == "euler":
+        rot1, trans = 0.0, ds
+    else:
+        rot1 = 0.5 * dth
+        trans = ds if scheme == "midpoint" else ds * _chord_scalar(dth)
+    rot2 = dth - rot1
+    a1, a2, a3, a4 = alphas
+    r1s, ts, r2s = rot1 * rot1, trans * trans, rot2 * rot2
+    v1 = a1 * r1s + a2 * ts
+    vt = a3 * ts + a4 * (r1s + r2s)
+    v2 = a1 * r2s + a2 * ts
+    phi = theta_before + rot1
+    c, s = math.cos(phi), math.sin(phi)
+    v1t = v1 * trans
+    q = (v1t * trans * s * s + vt * c * c, (vt - v1t * trans) * s * c, -v1t * s,
+         v1t * trans * c * c + vt * s * s, v1t * c, v1 + v2)
+    return q, (vt, 0.0, v1 + v2)
+
+
+def propagate_step_floats(p: tuple[float, ...], dx_m: float, dy_m: float,
+                          q: tuple[float, ...]) -> tuple[float, ...]:
+    """``propagate_step`` on the six distinct entries (xx, xy, xyaw, yy, yyaw, yawyaw), written out:
+    F = I + (-dy, dx, 0) e3^T, so F P F^T adds the yaw column and row scaled by -dy and dx."""
+    pxx, pxy, pxt, pyy, pyt, ptt = p
+    a, c = -dy_m, dx_m
+    return (pxx + 2.0 * a * pxt + a * a * ptt + q[0],
+            pxy + a * pyt + c * pxt + a * c * ptt + q[1],
+            pxt + a * ptt + q[2],
+            pyy + 2.0 * c * pyt + c * c * ptt + q[3],
+            pyt + c * ptt + q[4],
+            ptt + q[5])
 
 
 def propagate_step(cov: np.ndarray, dx_m: float, dy_m: float, q: np.ndarray) -> np.ndarray:

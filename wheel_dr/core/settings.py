@@ -22,6 +22,7 @@ __all__ = [
     "LimitSettings",
     "SlipSettings",
     "OutputSettings",
+    "ImuSettings",
     "Settings",
     "INTEGRATION_SCHEMES",
     "NOISE_MODELS",
@@ -134,19 +135,17 @@ class WheelSettings:
         ("left_wheel_joint",), "Joint names of the left side; several are averaged (skid steer).")
     right_joints: tuple[str, ...] = _p(
         ("right_wheel_joint",), "Joint names of the right side; several are averaged (skid steer).")
-    left_radius: float = _p(0.1, "Effective rolling radius of the left wheels.", "m", 0.0, 5.0, lo_open=True)
-    right_radius: float = _p(0.1, "Effective rolling radius of the right wheels.", "m", 0.0, 5.0, lo_open=True)
-    track_width: float = _p(0.5, "Distance between the left and right wheel contact lines.", "m", 0.0, 10.0,
-                            lo_open=True)
+    left_radius: float = _p(0.1, "Effective rolling radius of the left wheels.", "m", 0.001, 5.0)
+    right_radius: float = _p(0.1, "Effective rolling radius of the right wheels.", "m", 0.001, 5.0)
+    track_width: float = _p(0.5, "Distance between the left and right wheel contact lines.", "m", 0.001, 10.0)
     source: str = _p("position", "What the joint states carry: 'position' (rad, differenced), "
                      "'velocity' (rad/s times dt, for drivers without usable positions) or "
                      "'ticks' (raw encoder counts in the position field).", choices=WHEEL_SOURCES)
     wrap_angle: bool = _p(False, "Joint positions wrap at +-pi (unwrapped per step).")
     ticks_per_revolution: float = _p(4096.0, "Encoder counts per motor revolution (4 x lines for "
-                                     "quadrature); used when source is 'ticks'.", "counts", 0.0, 1e9,
-                                     lo_open=True)
+                                     "quadrature); used when source is 'ticks'.", "counts", 1.0, 1e9)
     gear_ratio: float = _p(1.0, "Motor revolutions per wheel revolution; used when source is 'ticks'.",
-                           "", 0.0, 1e6, lo_open=True)
+                           "", 0.001, 1e6)
     counter_bits: int = _p(0, "Width of the hardware tick counter that rolls over (16, 32, ...); "
                            "0 means counts never roll over.", "bits", 0, 64)
 
@@ -181,11 +180,9 @@ class LimitSettings:
     """Plausibility limits that decide when a sample is skipped or the increment chain restarts."""
 
     max_gap_s: float = _p(0.5, "A gap between samples longer than this restarts the increment chain "
-                          "(the pose is kept, the increment across the gap is dropped).", "s", 0.0, 3600.0,
-                          lo_open=True)
+                          "(the pose is kept, the increment across the gap is dropped).", "s", 0.001, 3600.0)
     max_wheel_speed_mps: float = _p(5.0, "A wheel surface speed above this is an encoder jump or glitch: "
-                                    "the increment is dropped and the chain restarts.", "m/s", 0.0, 1000.0,
-                                    lo_open=True)
+                                    "the increment is dropped and the chain restarts.", "m/s", 0.001, 1000.0)
 
 
 @dataclass(frozen=True)
@@ -197,10 +194,10 @@ class SlipSettings:
                        "'gyro' (take the gyro's yaw increment while slipping).",
                        choices=("flag", "inflate", "gyro"))
     window_s: float = _p(0.1, "Sliding window over which wheel speeds and heading changes are compared "
-                         "(smooths encoder and timing noise).", "s", 0.0, 5.0, lo_open=True)
+                         "(smooths encoder and timing noise); at least one sample period of a 1 kHz driver.", "s", 0.001, 5.0)
     long_window_s: float = _p(1.0, "Second, longer window of the gyro-versus-wheels test for mild sustained "
-                              "slips (counts while the short window points the same way); 0 turns it off.",
-                              "s", 0.0, 60.0)
+                              "slips (counts while the short window points the same way); 0 turns it off, else at least "
+                              "slip.window_s.", "s", 0.0, 60.0)
     set_delay_s: float = _p(0.02, "Debounce: a detector's score must stay above 1 this long before its flag "
                             "sets.", "s", 0.0, 10.0)
     clear_delay_s: float = _p(0.04, "A detector's score must stay below slip.clear_fraction this long before "
@@ -209,9 +206,9 @@ class SlipSettings:
                                "clear (between it and 1 the flag keeps its state).", "", 0.0, 1.0,
                                lo_open=True, hi_open=True)
     gyro_gate: float = _p(6.63, "Chi-square gate (1 degree of freedom) on the gyro-versus-wheels heading "
-                          "difference; 6.63 is the 99 % quantile.", "", 0.0, 1e6, lo_open=True)
+                          "difference; 6.63 is the 99 % quantile.", "", 0.01, 1e6)
     gyro_noise_radps: float = _p(0.01, "Standard deviation of one gyro z-rate reading (white noise).", "rad/s",
-                                 0.0, 10.0, lo_open=True)
+                                 1e-6, 10.0)
     gyro_rate_tolerance_radps: float = _p(0.05, "Extra standard deviation of the gyro-wheel yaw-rate "
                                           "difference for timing and mounting effects (common practice).",
                                           "rad/s", 0.0, 10.0)
@@ -226,18 +223,37 @@ class SlipSettings:
                                 "estimation).", "m/s", 0.0, 1.0)
     traction_mu: float = _p(0.5, "Friction coefficient for the traction check: a wheel accelerating faster "
                             "than mu g is slipping or glitching (rubber on dry indoor floors about 0.5 to "
-                            "0.9, common practice).", "", 0.0, 5.0, lo_open=True)
+                            "0.9, common practice).", "", 0.01, 5.0)
     traction_hold_s: float = _p(2.0, "A traction spike keeps its side flagged until a spike of the opposite "
                                 "sign (grip regained) or this long after the last spike.", "s", 0.0, 600.0)
     same_side_ratio: float = _p(0.25, "Wheels of one side whose speeds spread by more than this fraction of "
-                                "the side's mean speed disagree (slip ratio, common practice).", "", 0.0, 10.0,
-                                lo_open=True)
+                                "the side's mean speed disagree (slip ratio, common practice).", "", 0.01, 10.0)
     same_side_min_speed_mps: float = _p(0.1, "Side speeds below this count as this speed in the same-side "
-                                        "ratio (keeps slow motion from firing).", "m/s", 0.0, 10.0,
-                                        lo_open=True)
+                                        "ratio (keeps slow motion from firing).", "m/s", 0.001, 10.0)
     inflate_factor: float = _p(100.0, "Factor on the step noise (and twist covariance) of flagged samples "
                                "for the 'inflate' response, and in 'gyro' for samples without a gyro "
                                "reading.", "", 1.0, 1e9)
+    accel_horizon_s: float = _p(1.0, "Horizon of the accelerometer's speed observer: while no slip is flagged, the "
+                                "observer is the wheel speed this long ago plus the acceleration integrated since "
+                                "(see wheel_dr.core.slip_motion); 0 turns the accelerometer and command detectors "
+                                "off.", "s", 0.0, 30.0)
+    accel_gate: float = _p(6.63, "Chi-square gate (1 degree of freedom) on the wheel-versus-observer speed "
+                           "difference; 6.63 is the 99 % quantile.", "", 0.0, 1e6, lo_open=True)
+    accel_bias_tolerance_mps2: float = _p(0.03, "Extra standard deviation of the longitudinal acceleration for bias "
+                                          "drift, mounting tilt and floor unevenness; grows the allowance with the "
+                                          "integration time.", "m/s^2", 0.0, 5.0)
+    accel_speed_tolerance_mps: float = _p(0.03, "Extra standard deviation of the wheel-versus-observer speed "
+                                          "difference for timing and vibration (common practice).", "m/s", 0.0, 5.0)
+    accel_scale_tolerance: float = _p(0.05, "Extra standard deviation of that difference as a fraction of the speed "
+                                      "change over the horizon (wheel radius and accelerometer scale errors).", "",
+                                      0.0, 1.0)
+    command_tolerance_mps: float = _p(0.1, "Extra standard deviation of the commanded-versus-measured speed change "
+                                      "for the drive's tracking error (command detector).", "m/s", 0.0, 5.0)
+    command_timeout_s: float = _p(0.5, "A cmd_vel older than this counts as no command (drivers stop on a stale "
+                                  "command).", "s", 0.0, 60.0, lo_open=True)
+    distance_source: str = _p("wheels", "Distance of samples the accelerometer detector flags: 'wheels' (as "
+                              "measured) or 'observer' (the observer's speed times dt; the heading keeps its "
+                              "source).", choices=("wheels", "observer"))
 
 
 @dataclass(frozen=True)
@@ -246,6 +262,27 @@ class OutputSettings:
 
     publish_tf: bool = _p(True, "Publish the odom -> base transform on /tf.")
     diagnostics_period_s: float = _p(1.0, "Period of the /diagnostics status.", "s", 0.05, 60.0)
+    rate_hz: float = _p(0.0, "Rate of the odometry, TF and flags outputs by sample stamp (every sample is still "
+                        "integrated); 0 publishes one output per joint-state message.", "Hz", 0.0, 10000.0)
+
+
+@dataclass(frozen=True)
+class ImuSettings:
+    """The IMU's accelerometer and mounting (slip detection; the gyro's settings are under slip.)."""
+
+    position_m: tuple[float, ...] = _p((0.0, 0.0, 0.0), "Position of the IMU in the base frame, x forward, y left, "
+                                       "z up (REP 103), for the lever-arm correction of the accelerometer (z is "
+                                       "not used by the planar estimator).", "m", -10.0, 10.0, length=3)
+    accel_noise_mps2: float = _p(0.02, "Standard deviation of one accelerometer reading (white noise; about "
+                                 "0.01 to 0.05 m/s^2 for MEMS IMUs at 100 Hz).", "m/s^2", 0.0, 10.0, lo_open=True)
+    accel_bias_mps2: float = _p(0.0, "Accelerometer x bias assumed until the base has stood still long enough to "
+                                "estimate it.", "m/s^2", -5.0, 5.0)
+    use_orientation: bool = _p(True, "Remove gravity's share from the x acceleration with the IMU's orientation "
+                               "where the Imu message gives one (orientation_covariance[0] != -1).")
+    max_slope_deg: float = _p(0.0, "Steepest slope the base drives on without orientation: its gravity share "
+                              "g sin(slope) widens the accelerometer allowance (0: floors level beyond what the "
+                              "standstill bias absorbed; ramps in buildings are up to about 5 deg).", "deg",
+                              0.0, 30.0)
 
 
 SECTIONS: dict[str, type] = {
@@ -256,6 +293,7 @@ SECTIONS: dict[str, type] = {
     "limits": LimitSettings,
     "slip": SlipSettings,
     "output": OutputSettings,
+    "imu": ImuSettings,
 }
 
 _INTEGRATION_SPEC = dict(
@@ -275,6 +313,7 @@ class Settings:
     limits: LimitSettings = field(default_factory=LimitSettings)
     slip: SlipSettings = field(default_factory=SlipSettings)
     output: OutputSettings = field(default_factory=OutputSettings)
+    imu: ImuSettings = field(default_factory=ImuSettings)
 
     # -- schema -----------------------------------------------------------------------------
     @staticmethod
@@ -358,6 +397,30 @@ class Settings:
         if len(set(left)) != len(left) or len(set(right)) != len(right):
             raise SettingsError("a joint is listed twice in wheels.left_joints or wheels.right_joints; "
                                 "list each joint once.")
+        s = self.slip
+        if 0.0 < s.long_window_s < s.window_s:
+            raise SettingsError(f"parameter 'slip.long_window_s' is {s.long_window_s:g} s, shorter than "
+                                f"slip.window_s ({s.window_s:g} s); set it to 0 (off) or at least slip.window_s.")
+        self._check_derived()
+
+    def _check_derived(self) -> None:
+        """Quantities the core divides by or multiplies with must be finite and positive (no under- or overflow)."""
+        w, s, lim = self.wheels, self.slip, self.limits
+        derived = {
+            "radians per encoder count (2 pi / (wheels.ticks_per_revolution * wheels.gear_ratio))":
+                2.0 * math.pi / (w.ticks_per_revolution * w.gear_ratio),
+            "1 / wheels.track_width^2": 1.0 / (w.track_width * w.track_width),
+            "largest step travel (limits.max_wheel_speed_mps * limits.max_gap_s)": lim.max_wheel_speed_mps * lim.max_gap_s,
+            "gyro variance times gate (slip.gyro_noise_radps^2 * slip.gyro_gate)":
+                s.gyro_noise_radps * s.gyro_noise_radps * s.gyro_gate,
+            "traction limit (slip.traction_mu * g)": s.traction_mu * 9.80665,
+            "same-side floor (slip.same_side_min_speed_mps * slip.same_side_ratio)":
+                s.same_side_min_speed_mps * s.same_side_ratio,
+        }
+        for what, value in derived.items():
+            if not (math.isfinite(value) and value > 1e-200 and value < 1e200):
+                raise SettingsError(f"the derived {what} is {value:g}, outside what the estimator can compute "
+                                    "with; bring those parameters into the range of a real base.")
 
     def __iter__(self) -> Iterator[tuple[str, Any]]:
         return iter(self.to_flat().items())

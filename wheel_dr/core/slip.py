@@ -72,6 +72,7 @@ import numpy as np
 
 from .noise import motion_model_parts, motion_model_variances
 from .settings import Settings
+from .slip_motion import DETECTOR_ACCEL, DETECTOR_COMMAND, MotionInputs, MotionMonitor, detect_motion
 from .wheels import SampleStatus, Travel, TravelTracker
 
 __all__ = [
@@ -85,6 +86,8 @@ __all__ = [
     "DETECTOR_GYRO",
     "DETECTOR_TRACTION",
     "DETECTOR_SAME_SIDE",
+    "DETECTOR_ACCEL",
+    "DETECTOR_COMMAND",
     "DETECTOR_NAMES",
     "STANDARD_GRAVITY_MPS2",
     "BIAS_MIN_SAMPLES",
@@ -95,7 +98,8 @@ __all__ = [
 DETECTOR_GYRO = 1        # gyro z rate disagrees with the wheels' yaw rate (chi-square gate)
 DETECTOR_TRACTION = 2    # a wheel accelerates faster than traction allows (mu g)
 DETECTOR_SAME_SIDE = 4   # wheels of one side disagree (sides with two or more joints)
-DETECTOR_NAMES = {DETECTOR_GYRO: "gyro", DETECTOR_TRACTION: "traction", DETECTOR_SAME_SIDE: "same_side"}
+DETECTOR_NAMES = {DETECTOR_GYRO: "gyro", DETECTOR_TRACTION: "traction", DETECTOR_SAME_SIDE: "same_side",
+                  DETECTOR_ACCEL: "accel", DETECTOR_COMMAND: "command"}
 
 STANDARD_GRAVITY_MPS2 = 9.80665  # standard acceleration of gravity (3rd CGPM, 1901)
 BIAS_MIN_SAMPLES = 10            # standing-still samples needed before the gyro bias estimate is used
@@ -116,6 +120,8 @@ class SlipResult:
     dtheta_rad: np.ndarray | None = None   # heading increments to integrate (response 'gyro'), or None
     noise_scale: np.ndarray | None = None  # factor on the step noise Q (responses 'inflate', 'gyro'), or None
     gyro_bias_radps: np.ndarray | None = None  # gyro bias estimate in use at each sample, or None without gyro
+    ds_m: np.ndarray | None = None         # body distances to integrate (slip.distance_source 'observer'), or None
+    accel_bias_mps2: np.ndarray | None = None  # accelerometer bias estimate in use, or None without accelerometer
 
 
 @dataclass
@@ -130,6 +136,8 @@ class SlipStep:
     dtheta_rad: float | None = None
     noise_scale: float = 1.0
     gyro_bias_radps: float | None = None
+    ds_m: float | None = None
+    accel_bias_mps2: float | None = None
 
 
 # ------------------------------------------------------------------------------------------------
@@ -147,7 +155,7 @@ class _Constants:
         self.half_b = 0.5 * w.track_width
         self.nl = len(w.left_joints)
         self.nr = len(w.right_joints)
-        self.window_ns = int(round(s.window_s * 1e9))
+        self.window_ns = max(1, int(round(s.window_s * 1e9)))   # a window always holds its own sample
         self.set_ns = int(round(s.set_delay_s * 1e9))
         self.clear_ns = int(round(s.clear_delay_s * 1e9))
         self.clear_fraction = s.clear_fraction
@@ -164,6 +172,7 @@ class _Constants:
         self.ss_ratio = s.same_side_ratio
         self.ss_min = s.same_side_min_speed_mps
         self.inflate = s.inflate_factor
+        self.response_distance = s.distance_source == "observer"
         n = settings.noise
         self.model = n.model
         self.k_left = n.k_left
@@ -399,12 +408,14 @@ def _cum(x: np.ndarray) -> np.ndarray:
     return out
 
 
-def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Settings) -> SlipResult:
+def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Settings,
+                motion: MotionInputs | None = None) -> SlipResult:
     """Run the slip detectors over a whole run (one entry per accepted sample), vectorised.
 
     ``gyro_z_radps`` (M,) is the IMU z rate (rad/s, base frame, REP 103) held at each accepted
     sample, NaN where none is available, or None for no IMU (readings beyond ``MAX_GYRO_RADPS``
-    count as none). See the module docstring for the
+    count as none). ``motion`` carries the accelerometer, orientation and command per accepted
+    sample for the detectors of ``slip_motion``. See the module docstring for the
     detectors, their thresholds and the responses.
     """
     k = _Constants(settings)
@@ -599,8 +610,26 @@ def detect_slip(travel: Travel, gyro_z_radps: np.ndarray | None, settings: Setti
     if zs_right is not None:
         score = np.maximum(score, zs_right)
 
+    mr = None
+    if motion is not None:
+        rate = np.where(avail, g - bias, np.nan) if has_gyro else None
+        mr = detect_motion(stamp, restart, dt, dl, dr, rate, motion, settings)
+    if mr is not None:
+        # both sides: the accelerometer and the command see the base, not a side
+        if motion.cmd_v_mps is not None:
+            mr.command = latch(mr.z_command, stamp, k.set_ns, k.clear_ns, k.clear_fraction)
+        on_m = mr.accel | mr.command
+        left, right = left | on_m, right | on_m
+        flagged = left | right
+        detector = detector + (mr.accel * DETECTOR_ACCEL + mr.command * DETECTOR_COMMAND).astype(np.int64)
+        score = np.maximum(score, np.maximum(mr.z_accel, mr.z_command))
     result = SlipResult(flagged, left, right, detector, score,
                         gyro_bias_radps=bias if has_gyro else None)
+    if mr is not None:
+        result.accel_bias_mps2 = mr.bias_mps2
+        if settings.slip.distance_source == "observer":
+            use = mr.accel & np.isfinite(mr.ds_observer_m)
+            result.ds_m = np.where(use, mr.ds_observer_m, 0.5 * (dr + dl))   # else the wheels' (as body_increment)
     if k.response == "inflate":
         result.noise_scale = np.where(flagged, k.inflate, 1.0)
     elif k.response == "gyro":
@@ -663,6 +692,9 @@ class SlipMonitor:
         self._gyro_left: bool | None = None
         self._lat_g, self._lat_tl, self._lat_tr = _Latch(k), _TractionLatch(k), _TractionLatch(k)
         self._lat_sl, self._lat_sr = _Latch(k), _Latch(k)
+        self._motion = MotionMonitor(self.settings)
+        self._motion_seen = False
+        self._lat_c = _Latch(k)
 
     def _c11_one(self, dl: float, dr: float) -> float:
         k = self._k
@@ -685,8 +717,12 @@ class SlipMonitor:
         return abs(d_w) / math.sqrt(var * k.gate), d_w, dth_gw   # var > 0: gyro noise > 0, window dt > 0
 
     def step(self, tracker: TravelTracker, status: SampleStatus, dt_s: float, ds_left_m: float,
-             ds_right_m: float, gyro_z_radps: float | None) -> SlipStep:
-        """One accepted sample (``status`` < 10); returns its flags and the response's changes."""
+             ds_right_m: float, gyro_z_radps: float | None, accel_x_mps2: float | None = None,
+             up_x: float | None = None, cmd_v_mps: float | None = None) -> SlipStep:
+        """One accepted sample (``status`` < 10); returns its flags and the response's changes.
+
+        ``accel_x_mps2``, ``up_x`` and ``cmd_v_mps`` feed the detectors of ``slip_motion`` (None: not read).
+        """
         k = self._k
         if not k.enabled:
             return SlipStep()
@@ -830,8 +866,23 @@ class SlipMonitor:
             score = max(score, zs_left)
         if zs_right is not None:
             score = max(score, zs_right)
+        ms = None
+        if accel_x_mps2 is not None or self._motion_seen:    # once an accelerometer was read, None is a dropout
+            self._motion_seen = True
+            ms = self._motion.step(stamp, restart, dt, dl, dr, (g - bias) if avail else None, accel_x_mps2, up_x,
+                                   cmd_v_mps)
+        if ms is not None:
+            ms.command = self._lat_c.update(ms.z_command, stamp)
+            if ms.accel or ms.command:
+                left = right = flagged = True
+            detector |= (DETECTOR_ACCEL if ms.accel else 0) | (DETECTOR_COMMAND if ms.command else 0)
+            score = max(score, ms.z_accel, ms.z_command)
         out = SlipStep(flagged, left, right, detector, score,
                        gyro_bias_radps=bias if gyro_z_radps is not None else None)
+        if ms is not None:
+            out.accel_bias_mps2 = ms.bias_mps2
+            if k.response_distance and ms.accel and math.isfinite(ms.ds_observer_m):
+                out.ds_m = ms.ds_observer_m
         if k.response == "inflate" and flagged:
             out.noise_scale = k.inflate
         elif k.response == "gyro" and flagged:

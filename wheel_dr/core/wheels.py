@@ -5,15 +5,22 @@ analyser) and ``TravelTracker.step`` one sample at a time (the node).
 
 Sample rules, in the order they are applied (each skipped sample is counted by kind):
 
-* malformed (names and values of different lengths): skipped;
-* stamp zero or negative: skipped;
+* malformed (a non-empty position or velocity array whose length differs from the names, or
+  names with both arrays empty): skipped;
+* stamp zero or negative (or beyond int64 nanoseconds): skipped;
 * a configured joint missing from the sample: skipped;
-* a needed value NaN or infinite: skipped;
+* a needed value NaN or infinite, or not given (its array empty, as sensor_msgs/JointState
+  allows for unused fields): skipped as non-finite;
 * stamp equal to or earlier than the last accepted one: skipped;
 * otherwise accepted. An accepted sample restarts the increment chain (its increment is zero,
   the pose is kept) when it is the first, when the gap since the last accepted sample exceeds
   ``limits.max_gap_s``, or when any wheel's surface speed over the step exceeds
-  ``limits.max_wheel_speed_mps`` (an encoder jump or glitch).
+  ``limits.max_wheel_speed_mps`` (an encoder jump or glitch), or when a wheel's travel over the
+  step is not a finite number (finite readings whose difference overflows, e.g. +-1e308): an
+  increment that is not finite is never integrated.
+
+``samples_from_messages`` turns a list of messages into ``JointSamples`` by the same rules, so
+the analyser's per-message decoding and the node classify every message alike.
 """
 from __future__ import annotations
 
@@ -38,7 +45,10 @@ __all__ = [
     "radians_per_unit",
     "wrap_difference",
     "count_statuses",
+    "samples_from_messages",
 ]
+
+_INT64_MAX = 2**63 - 1
 
 TWO_PI = 2.0 * math.pi
 
@@ -177,24 +187,26 @@ def wheel_travel(samples: JointSamples, settings: Settings) -> Travel:
         dt[1:] = (st[1:] - st[:-1]) * 1e-9
     radius = np.array([w.left_radius] * nl + [w.right_radius] * (len(cols) - nl))
     dphi = np.zeros_like(vals)
-    if m > 1:
-        if w.source == "velocity":
-            dphi[1:] = 0.5 * (vals[1:] + vals[:-1]) * dt[1:, None]
-        else:
-            d = vals[1:] - vals[:-1]
-            period = _wrap_period(settings)
-            if period:
-                d = wrap_difference(d, period)
-            dphi[1:] = d * radians_per_unit(settings)
-    travel = dphi * radius
+    with np.errstate(over="ignore", invalid="ignore"):   # overflowing differences become jumps below
+        if m > 1:
+            if w.source == "velocity":
+                dphi[1:] = 0.5 * (vals[1:] + vals[:-1]) * dt[1:, None]
+            else:
+                d = vals[1:] - vals[:-1]
+                period = _wrap_period(settings)
+                if period:
+                    d = wrap_difference(d, period)
+                dphi[1:] = d * radians_per_unit(settings)
+        travel = dphi * radius
     restart = np.zeros(m, dtype=bool)
     kind = np.full(m, SampleStatus.USED, dtype=np.int8)
     if m:
         kind[0] = SampleStatus.CHAIN_START
         gap = dt > settings.limits.max_gap_s
         gap[0] = False
-        with np.errstate(divide="ignore", invalid="ignore"):
-            jump = (np.abs(travel) > settings.limits.max_wheel_speed_mps * dt[:, None]).any(axis=1)
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            # "not <=" so that a NaN travel (inf - inf, a wrapped inf) is a jump too
+            jump = ~(np.abs(travel) <= settings.limits.max_wheel_speed_mps * dt[:, None]).all(axis=1)
         jump[0] = False
         jump &= ~gap
         kind[gap] = SampleStatus.GAP
@@ -244,17 +256,20 @@ class TravelTracker:
              velocities: Sequence[float]) -> tuple[SampleStatus, float, float, float]:
         """Classify one sample; returns (status, dt_s, ds_left_m, ds_right_m). Never raises on bad data."""
         values = velocities if self._use_velocity else positions
-        if len(values) != len(names) or (len(positions) not in (0, len(names))) or (
-                len(velocities) not in (0, len(names))):
+        n = len(names)
+        np_, nv = len(positions), len(velocities)
+        if np_ not in (0, n) or nv not in (0, n) or (n and not np_ and not nv):
             return SampleStatus.MALFORMED, 0.0, 0.0, 0.0
-        if stamp_ns <= 0:
+        if not 0 < stamp_ns <= _INT64_MAX:
             return SampleStatus.BAD_STAMP, 0.0, 0.0, 0.0
         cols = self._lookup(names)
         if cols is None:
             return SampleStatus.MISSING_JOINT, 0.0, 0.0, 0.0
+        if len(values) != n:                      # the needed array is empty: no value given
+            return SampleStatus.NON_FINITE, 0.0, 0.0, 0.0
         try:
             vals = [float(values[c]) for c in cols]
-        except (TypeError, ValueError):
+        except (TypeError, ValueError, OverflowError):
             return SampleStatus.NON_FINITE, 0.0, 0.0, 0.0
         if not all(math.isfinite(v) for v in vals):
             return SampleStatus.NON_FINITE, 0.0, 0.0, 0.0
@@ -281,7 +296,7 @@ class TravelTracker:
                     d = wrap_difference(d, self._period)
                 d = d * self._scale
             t = d * r
-            if abs(t) > limit:
+            if not abs(t) <= limit:                # NaN (an overflowed, wrapped difference) too
                 return SampleStatus.JUMP, dt, 0.0, 0.0
             travel.append(t)
         self.joint_travel_m = travel
@@ -289,3 +304,53 @@ class TravelTracker:
         ds_left = sum(travel[:nl]) / nl
         ds_right = sum(travel[nl:]) / (len(travel) - nl)
         return SampleStatus.USED, dt, ds_left, ds_right
+
+
+def samples_from_messages(messages: Sequence[tuple[int, Sequence[str], Sequence[float], Sequence[float]]]
+                          ) -> JointSamples:
+    """``JointSamples`` of a list of (stamp_ns, names, positions, velocities) messages.
+
+    The same rules as ``TravelTracker.step``: a message is malformed when a non-empty position or
+    velocity array has another length than its names, or names come with both arrays empty; an
+    empty array is a field not given (NaN, so a needed one is non-finite); a repeated name keeps
+    its last value. Joint columns are the names in order of first appearance.
+    """
+    index: dict[str, int] = {}
+    rows = []
+    for stamp, names, pos, vel in messages:
+        nm = list(names)
+        n, np_, nv = len(nm), len(pos), len(vel)
+        bad = np_ not in (0, n) or nv not in (0, n) or (n > 0 and np_ == 0 and nv == 0)
+        if not bad:
+            for name in nm:
+                index.setdefault(name, len(index))
+        rows.append((stamp, nm, pos, vel, bad))
+    n, j = len(rows), len(index)
+    stamps = np.zeros(n, dtype=np.int64)
+    position = np.full((n, j), np.nan)
+    velocity = np.full((n, j), np.nan)
+    present = np.zeros((n, j), dtype=bool)
+    malformed = np.zeros(n, dtype=bool)
+    for i, (stamp, nm, pos, vel, bad) in enumerate(rows):
+        st = int(stamp)
+        stamps[i] = st if -_INT64_MAX <= st <= _INT64_MAX else -1   # beyond int64: a bad stamp
+        if bad:
+            malformed[i] = True
+            continue
+        cols = [index[x] for x in nm]
+        present[i, cols] = True
+        unique = len(set(cols)) == len(cols)
+        for values, out in ((pos, position), (vel, velocity)):
+            if len(values) and unique:
+                try:
+                    out[i, cols] = np.asarray(values, dtype=np.float64)
+                    continue
+                except (TypeError, ValueError, OverflowError):
+                    pass
+            if len(values):
+                for c, v in zip(cols, values):
+                    try:
+                        out[i, c] = float(v)
+                    except (TypeError, ValueError, OverflowError):
+                        out[i, c] = np.nan
+    return JointSamples(stamps, tuple(index), position, velocity, present, malformed)

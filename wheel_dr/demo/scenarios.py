@@ -15,9 +15,10 @@ from ..sim.scenario import (FloorPatch, Scenario, Segment, SlipEvent, arc, pause
                        waypoint_route)
 
 __all__ = ["demo_scenario", "square_scenario", "varied_drive_scenario", "varied_route", "DEMO_SEED",
-           "COLD_ROOM_PATCH"]
+           "COLD_ROOM_PATCH", "DEMO_IMU_POSITION_M"]
 
 DEMO_SEED = 2027
+DEMO_IMU_POSITION_M = (0.12, 0.0, 0.18)   # the Quokka's IMU: on the electronics tray, ahead of the axle
 
 # The mopped patch by the cold-room door, at the far corridor past the third aisle (odom frame, m).
 COLD_ROOM_PATCH = FloorPatch(15.2, 16.8, 2.0, 4.4, kind="spin", slip_ratio=0.25, name="mopped patch by the cold-room door")
@@ -32,7 +33,8 @@ def demo_scenario(rate_hz: float = 100.0, laps: int = 1) -> Scenario:
     About 75 m a lap with rounded corners (0.6 m radius arcs, left and right), a turn about on
     the spot at the end; the cart crosses the mopped patch (wheels spin) on a corner and the
     straight after it; a wheel drags twice (a caught packing strap): once in an arc, once on a
-    straight. True geometry differs from nominal (worn tyre, bent axle mount); gyro with bias.
+    straight. True geometry differs from nominal (worn tyre, bent axle mount); gyro and accelerometer
+    with bias, the IMU mounted ``DEMO_IMU_POSITION_M`` from base_link.
     """
     segs: list[Segment] = []
     for _ in range(laps):
@@ -40,6 +42,7 @@ def demo_scenario(rate_hz: float = 100.0, laps: int = 1) -> Scenario:
     segs += [pause(2.0), turn_in_place(math.pi, 0.7), pause(2.0)]
     base = Scenario(name="ferncliff_night_round", segments=tuple(segs), rate_hz=rate_hz,
                     k_left_m=2e-5, k_right_m=2e-5, gyro_bias_radps=0.0015, gyro_noise_sd_radps=0.004,
+                    accel_bias_mps2=0.03, accel_noise_sd_mps2=0.02, imu_position_m=DEMO_IMU_POSITION_M,
                     floor_patches=(COLD_ROOM_PATCH,),
                     description="Quokka cart, night round of the Ferncliff Seed Bank aisles (invented demo).")
     times = segment_times(base)

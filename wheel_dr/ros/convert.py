@@ -34,7 +34,10 @@ __all__ = [
     "python_value",
     "RawOdometryWriter",
     "parse_joint_state",
+    "CdrError",
     "parse_imu_gyro_z",
+    "parse_imu_motion",
+    "DETECTOR_BITS_TEXT",
     "pose_cov_index",
     "flag_values",
     "pose_from_msg",
@@ -50,10 +53,11 @@ FLAG_FIELDS: tuple[str, ...] = (
     "slip",            # 1 when either side is flagged as slipping
     "slip_left",       # 1 when the left side is flagged
     "slip_right",      # 1 when the right side is flagged
-    "detector",        # bit mask of the detectors that fired (1 gyro, 2 traction, 4 same side)
+    "detector",        # bit mask of the detectors that fired (1 gyro, 2 traction, 4 same side, 8 accel, 16 command)
     "score",           # largest detector score (1 = at its threshold); 0 for skipped samples
 )
 FLAGS_LABEL = "wheel_dr_flags:" + ",".join(FLAG_FIELDS)
+DETECTOR_BITS_TEXT = "1 gyro, 2 traction, 4 same side, 8 accel, 16 command"
 STATUS_NAMES: dict[int, str] = {int(s): s.name.lower() for s in SampleStatus}
 
 
@@ -124,8 +128,15 @@ def python_value(value: Any) -> Any:
 # every primitive is aligned to its size relative to the end of that header; strings and sequences
 # are a uint32 length followed by the elements (strings include their terminating NUL).
 _CDR_LE = b"\x00\x01"
+_CDR_BE = b"\x00\x00"
 _u32 = struct.Struct("<I")
 _stamp = struct.Struct("<iI")
+_READERS = {_CDR_LE: ("<", struct.Struct("<I"), struct.Struct("<iI"), struct.Struct("<d")),
+            _CDR_BE: (">", struct.Struct(">I"), struct.Struct(">iI"), struct.Struct(">d"))}
+
+
+class CdrError(ValueError):
+    """A serialised message is not a well-formed CDR message of the expected type."""
 
 
 def _align(pos: int, n: int) -> int:
@@ -133,36 +144,68 @@ def _align(pos: int, n: int) -> int:
     return pos + (-(pos - 4) % n)
 
 
+def _reader(raw: bytes, what: str):
+    head = bytes(raw[:2])
+    if len(raw) < 4 or head not in _READERS:
+        raise CdrError(f"{what} is not plain CDR (encapsulation {head.hex() or 'missing'})")
+    return _READERS[head]
+
+
+def _u32_at(raw: bytes, pos: int, u32: struct.Struct, what: str) -> int:
+    if pos + 4 > len(raw):
+        raise CdrError(f"{what} ends inside a length field")
+    return u32.unpack_from(raw, pos)[0]
+
+
 def parse_joint_state(raw: bytes) -> tuple[int, int, tuple[str, ...], tuple[float, ...], tuple[float, ...]]:
     """Serialised sensor_msgs/JointState -> (stamp sec, nanosec, names, positions, velocities).
 
-    Efforts are not read. Raises ValueError (or struct.error) when the buffer is not a
-    little-endian CDR JointState.
+    Little- and big-endian CDR (encapsulation 0x0001 / 0x0000). Efforts are not read. Every
+    length is checked against the buffer before it is used, so a truncated, corrupted or crafted
+    buffer raises CdrError (a ValueError) and nothing else; no read goes past the buffer.
     """
-    if raw[:2] != _CDR_LE:
-        raise ValueError("joint state is not little-endian CDR")
-    sec, nanosec = _stamp.unpack_from(raw, 4)
-    n = _u32.unpack_from(raw, 12)[0]
+    what = "joint state"
+    endian, u32, stamp, _ = _reader(raw, what)
+    size = len(raw)
+    if size < 16:
+        raise CdrError(f"{what} is shorter than its header")
+    sec, nanosec = stamp.unpack_from(raw, 4)
+    n = _u32_at(raw, 12, u32, what)
+    if n < 1 or 16 + n > size or raw[15 + n] != 0:
+        raise CdrError(f"{what} frame_id length {n} does not fit the message")
     pos = _align(16 + n, 4)
-    count = _u32.unpack_from(raw, pos)[0]
+    count = _u32_at(raw, pos, u32, what)
     pos += 4
+    if count > (size - pos) // 5:          # each name needs at least a length and its NUL
+        raise CdrError(f"{what} claims {count} names, more than the message holds")
     names = []
     for _ in range(count):
         pos = _align(pos, 4)
-        n = _u32.unpack_from(raw, pos)[0]
-        names.append(raw[pos + 4:pos + 3 + n].decode("utf-8"))
+        n = _u32_at(raw, pos, u32, what)
+        if n < 1 or pos + 4 + n > size or raw[pos + 3 + n] != 0:
+            raise CdrError(f"{what} name length {n} does not fit the message")
+        try:
+            names.append(bytes(raw[pos + 4:pos + 3 + n]).decode("utf-8"))
+        except UnicodeDecodeError:
+            raise CdrError(f"{what} has a joint name that is not UTF-8") from None
         pos += 4 + n
     arrays = []
     for _ in range(2):  # position, velocity
         pos = _align(pos, 4)
-        count = _u32.unpack_from(raw, pos)[0]
+        count = _u32_at(raw, pos, u32, what)
         pos += 4
         if count:
             pos = _align(pos, 8)
-            arrays.append(struct.unpack_from(f"<{count}d", raw, pos))
+            if count > (size - pos) // 8:
+                raise CdrError(f"{what} claims {count} values, more than the message holds")
+            arrays.append(struct.unpack_from(f"{endian}{count}d", raw, pos))
             pos += 8 * count
         else:
             arrays.append(())
+    pos = _align(pos, 4)                    # effort: not read, but it must be there
+    count = _u32_at(raw, pos, u32, what)
+    if count and count > (size - _align(pos + 4, 8)) // 8:
+        raise CdrError(f"{what} claims {count} efforts, more than the message holds")
     return sec, nanosec, tuple(names), arrays[0], arrays[1]
 
 
@@ -174,14 +217,46 @@ def parse_imu_gyro_z(raw: bytes) -> tuple[float, bool]:
 
     sensor_msgs/Imu: angular_velocity_covariance[0] == -1 means no angular velocity.
     After header: orientation (4 doubles), its covariance (9), angular_velocity (3), its covariance (9).
+    Little- or big-endian CDR; a buffer too short or not CDR raises CdrError (a ValueError).
     """
-    if raw[:2] != _CDR_LE:
-        raise ValueError("imu message is not little-endian CDR")
-    n = _u32.unpack_from(raw, 12)[0]
+    what = "imu message"
+    _, u32, _, f64 = _reader(raw, what)
+    n = _u32_at(raw, 12, u32, what)
+    if n < 1 or 16 + n > len(raw) or raw[15 + n] != 0:
+        raise CdrError(f"{what} frame_id length {n} does not fit the message")
     pos = _align(16 + n, 8)
-    wz = _IMU_WZ.unpack_from(raw, pos + 8 * 15)[0]
-    cov0 = _IMU_WZ.unpack_from(raw, pos + 8 * 16)[0]
+    if pos + 8 * 17 > len(raw):
+        raise CdrError(f"{what} is shorter than an Imu message")
+    wz = f64.unpack_from(raw, pos + 8 * 15)[0]
+    cov0 = f64.unpack_from(raw, pos + 8 * 16)[0]
     return wz, cov0 != -1.0
+
+
+_IMU_DOUBLES = 37  # orientation 4 + 9, angular velocity 3 + 9, linear acceleration 3 + 9
+
+
+def parse_imu_motion(raw: bytes) -> tuple[float, bool, float, bool, float]:
+    """Serialised sensor_msgs/Imu -> (angular_velocity.z, its flag, linear_acceleration.x, its flag, up_x).
+
+    A flag is False where the message marks the field unknown (its covariance[0] == -1); up_x is
+    the x component of the world's up axis in the IMU frame from the orientation
+    (``wheel_dr.core.slip_motion.up_x_from_quaternion``), NaN where the orientation is unknown.
+    Little- or big-endian CDR; a buffer too short or not CDR raises CdrError (a ValueError).
+    """
+    what = "imu message"
+    endian, u32, _, _ = _reader(raw, what)
+    n = _u32_at(raw, 12, u32, what)
+    if n < 1 or 16 + n > len(raw) or raw[15 + n] != 0:
+        raise CdrError(f"{what} frame_id length {n} does not fit the message")
+    pos = _align(16 + n, 8)
+    if pos + 8 * _IMU_DOUBLES > len(raw):
+        raise CdrError(f"{what} is shorter than an Imu message")
+    d = struct.unpack_from(f"{endian}{_IMU_DOUBLES}d", raw, pos)
+    qx, qy, qz, qw, o_cov0 = d[0], d[1], d[2], d[3], d[4]
+    wz, w_cov0 = d[15], d[16]
+    ax, a_cov0 = d[25], d[28]
+    up = 2.0 * (qx * qz - qw * qy) if o_cov0 != -1.0 else math.nan
+    return wz, w_cov0 != -1.0, ax, a_cov0 != -1.0, up
 
 
 def pose_cov_index(layout: Any, size: int) -> tuple[np.ndarray, np.ndarray]:

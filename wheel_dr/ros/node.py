@@ -5,8 +5,11 @@ calls ``Estimator.step`` once per joint-state message and publishes what the cor
 
 Interfaces (relative names follow the node's namespace and remaps):
 
-* subscribes ``joint_states`` (sensor_msgs/JointState, sensor-data QoS: best effort, depth 100)
-  and ``imu`` (sensor_msgs/Imu, optional: the latest z rate goes to the slip detectors);
+* subscribes ``joint_states`` (sensor_msgs/JointState, sensor-data QoS: best effort, depth 100),
+  ``imu`` (sensor_msgs/Imu, optional: the latest z rate, x acceleration and orientation go to the
+  slip detectors; fields whose covariance[0] is -1 are unknown) and ``cmd_vel`` (optional,
+  geometry_msgs/Twist or TwistStamped, whichever the graph offers: the commanded speed for the
+  command detector; subscribed once a publisher appears);
 * publishes ``odom`` (nav_msgs/Odometry, frame ``frames.odom`` -> child ``frames.base``, stamped
   with the joint-state stamp), ``/tf`` (tf2_msgs/TFMessage, when ``output.publish_tf``),
   ``odom_flags`` (std_msgs/Float64MultiArray, one per joint-state sample, fields in
@@ -50,8 +53,8 @@ from ..core.settings import Settings
 from ..core.wheels import RESTART_KINDS, SKIP_KINDS, SampleStatus
 from ..params import NODE_NAME
 from ..safety import SAFETY_TEXT
-from .convert import (RawOdometryWriter, flag_values, key_values, parameter_descriptor, parameter_value,
-                      parse_imu_gyro_z, parse_joint_state, pose_from_msg, python_value)
+from .convert import (CdrError, RawOdometryWriter, flag_values, key_values, parameter_descriptor, parameter_value,
+                      parse_imu_motion, parse_joint_state, pose_from_msg, python_value, DETECTOR_BITS_TEXT)
 
 __all__ = ["OdometryNode", "create", "main", "READ_ONLY_PARAMETERS", "LOG_THROTTLE_S", "ROS_OWNED_PREFIXES"]
 
@@ -136,6 +139,7 @@ class OdometryNode:
         self.node = node
         self.log = node.get_logger()
         self.settings = settings
+        self._out_period_ns = _output_period_ns(settings)
         self.estimator = Estimator(settings)
         self.lock = threading.Lock()
         self._tf_type = tf_type
@@ -144,9 +148,21 @@ class OdometryNode:
         self.received = 0
         self.imu_received = 0
         self.handler_errors = 0
+        self.undecodable = 0           # joint-state messages whose bytes are not a JointState
+        self._period_errors = 0
+        self._last_error = ""
+        self._next_out_ns = 0          # output.rate_hz: stamp from which the next output is due
+        self._flag_slip = False        # slip flag of the last flags message sent
         self.reanchor_refused = 0
         self._gyro_z: float | None = None
         self._gyro_mono = -math.inf
+        self._accel_x: float | None = None
+        self._up_x: float | None = None
+        self._cmd_v: float | None = None
+        self._cmd_mono = -math.inf
+        self.cmd_received = 0
+        self.sub_cmd = None
+        self._cmd_type = "none"
         self._period_received = 0
         self._period_start = time.monotonic()
         self._period_slip = 0
@@ -173,6 +189,7 @@ class OdometryNode:
         self.sub_reanchor = node.create_subscription(PoseWithCovarianceStamped, "~/reanchor",
                                                      self._on_reanchor, 10)
         self._diag_timer = node.create_timer(settings.output.diagnostics_period_s, self._on_diagnostics)
+        self._cmd_timer = node.create_timer(1.0, self._find_cmd_vel)
 
         js_qos = QoSProfile(depth=JOINT_STATE_DEPTH, reliability=qos_profile_sensor_data.reliability,
                             durability=qos_profile_sensor_data.durability,
@@ -217,58 +234,121 @@ class OdometryNode:
         self.on_imu(raw)
 
     def on_imu(self, raw: bytes) -> None:
-        """Keep the latest gyro z rate (rad/s, IMU frame assumed aligned with the base z axis)."""
+        """Keep the latest gyro z rate (rad/s), x acceleration (m/s^2) and up_x (IMU axes assumed
+        aligned with the base's; its position is ``imu.position_m``)."""
         try:
             self.imu_received += 1
-            wz, provided = parse_imu_gyro_z(raw)
+            wz, provided, ax, accel_ok, up = parse_imu_motion(raw)
+            self._accel_x = ax if accel_ok and math.isfinite(ax) else None
+            self._up_x = up if math.isfinite(up) else None
+            self._gyro_mono = time.monotonic()
             if not provided or not math.isfinite(wz):
                 self._gyro_z = None
                 return
             self._gyro_z = wz
-            self._gyro_mono = time.monotonic()
+        except CdrError as exc:  # bytes that are not an Imu: ignored, counted
+            self._gyro_z = self._accel_x = self._up_x = None
+            self.undecodable += 1
+            self._throttled("imu_undecodable", "warning", f"imu message cannot be decoded ({exc}); it is ignored.")
         except Exception as exc:  # never die on a bad message
-            self.handler_errors += 1
-            self._throttled("imu_error", "warning", f"imu message could not be used ({exc.__class__.__name__}: "
-                                                    f"{exc}); it is ignored.")
+            self._handler_error("imu", exc)
+
+    def _find_cmd_vel(self) -> None:
+        """Subscribe ``cmd_vel`` with the type its publishers use (Twist or TwistStamped), once."""
+        try:
+            if self.sub_cmd is not None:
+                self._cmd_timer.cancel()
+                return
+            from geometry_msgs.msg import Twist, TwistStamped
+
+            name = self.node.resolve_topic_name("cmd_vel")
+            types = dict(self.node.get_topic_names_and_types()).get(name, [])
+            if "geometry_msgs/msg/TwistStamped" in types:
+                self.sub_cmd = self.node.create_subscription(TwistStamped, "cmd_vel", self.on_cmd_vel, 10)
+                self._cmd_type = "geometry_msgs/TwistStamped"
+            elif "geometry_msgs/msg/Twist" in types:
+                self.sub_cmd = self.node.create_subscription(Twist, "cmd_vel", self.on_cmd_vel, 10)
+                self._cmd_type = "geometry_msgs/Twist"
+        except Exception as exc:
+            self._handler_error("cmd_vel", exc)
+
+    def on_cmd_vel(self, msg: Any) -> None:
+        """Keep the latest commanded forward speed (m/s) and when it came."""
+        try:
+            self.cmd_received += 1
+            vx = float(msg.twist.linear.x if hasattr(msg, "twist") else msg.linear.x)
+            self._cmd_v = vx if math.isfinite(vx) else None
+            self._cmd_mono = time.monotonic()
+        except Exception as exc:  # never die on a bad message
+            self._handler_error("cmd_vel", exc)
 
     def on_joint_state(self, raw: bytes, received_ns: int) -> None:
         """One serialised joint-state message: estimator step, then odometry, TF and flags. Never raises."""
         try:
             self._joint_state(raw, received_ns or time.time_ns())
         except Exception as exc:  # never die on a bad message
-            self.handler_errors += 1
-            self._throttled("handler_error", "error", f"joint_states message could not be processed "
-                                                      f"({exc.__class__.__name__}: {exc}); it is skipped.")
+            self._handler_error("joint_states", exc)
+
+    def _handler_error(self, topic: str, exc: BaseException) -> None:
+        """A message handler failed: counted, logged (throttled), diagnostics ERROR for the period."""
+        self.handler_errors += 1
+        self._period_errors += 1
+        self._last_error = f"{exc.__class__.__name__}: {exc}"[:200]
+        self._throttled(f"{topic}_handler_error", "error",
+                        f"{topic} message could not be processed ({self._last_error}); it is skipped "
+                        f"({self.handler_errors} handler errors so far, logged at most every {LOG_THROTTLE_S:g} s).")
 
     def _joint_state(self, raw: bytes, received_ns: int) -> None:
         self.received += 1
-        sec, nanosec, names, positions, velocities = parse_joint_state(raw)
+        try:
+            sec, nanosec, names, positions, velocities = parse_joint_state(raw)
+        except CdrError as exc:  # bytes that are not a JointState: a malformed sample
+            self.undecodable += 1
+            with self.lock:
+                self.estimator.counters["malformed"] += 1
+                self._period_received += 1
+                self._period_skipped["malformed"] = self._period_skipped.get("malformed", 0) + 1
+            self._throttled("undecodable", "warning", f"joint_states message cannot be decoded ({exc}); it is "
+                                                      f"skipped as malformed ({self.undecodable} so far).")
+            return
         stamp_ns = sec * 1_000_000_000 + nanosec
-        gyro = self._gyro_z
+        gyro, accel, up, cmd = self._gyro_z, self._accel_x, self._up_x, self._cmd_v
         with self.lock:
             self._period_received += 1
             writer = self._writer
             est = self.estimator
-            if gyro is not None and time.monotonic() - self._gyro_mono > self.settings.limits.max_gap_s:
-                gyro = None  # stale IMU
-            status = est.step(stamp_ns, names, positions, velocities, gyro)
-            if status < 10:
+            now = time.monotonic()
+            if now - self._gyro_mono > self.settings.limits.max_gap_s:
+                gyro = accel = up = None  # stale IMU
+            if cmd is not None and now - self._cmd_mono > self.settings.slip.command_timeout_s:
+                cmd = None  # stale command
+            status = est.step(stamp_ns, names, positions, velocities, gyro, accel, up, cmd)
+            due = status < 10
+            period_ns = self._out_period_ns
+            if due and period_ns:
+                due = stamp_ns >= self._next_out_ns or status != SampleStatus.USED
+                if due:   # next output at the next multiple of the period (by sample stamp)
+                    self._next_out_ns = (stamp_ns // period_ns + 1) * period_ns
+            if due:
                 self.pub_odom.publish(writer.odometry(sec, nanosec, est.x_m, est.y_m, est.yaw_rad, est.cov,
                                                       est.v_mps, est.w_radps, est.twist_cov))
                 self._latency.add(time.time_ns() - received_ns)
                 if self.pub_tf is not None and writer.has_tf and self.settings.output.publish_tf:
                     self.pub_tf.publish(writer.tf())
-                slip = est.last_slip
-                if slip is not None and slip.slip:
-                    self._period_slip += 1
-                    self._last_slip = (stamp_ns, float(slip.score), int(slip.detector))
-            else:
-                slip = None
+            slip = est.last_slip if status < 10 else None
+            if slip is not None and slip.slip:
+                self._period_slip += 1
+                self._last_slip = (stamp_ns, float(slip.score), int(slip.detector))
+            # between outputs, a change of the slip flag is still sent at once
+            flags_due = not period_ns or due or (slip is not None and bool(slip.slip) != self._flag_slip)
+            if flags_due and slip is not None:
+                self._flag_slip = bool(slip.slip)
             noteworthy = status != SampleStatus.USED and status != SampleStatus.CHAIN_START
             if noteworthy and status != SampleStatus.GAP:  # a gap (the driver paused) is not bad input
                 kind = status.name.lower()
                 self._period_skipped[kind] = self._period_skipped.get(kind, 0) + 1
-        self.pub_flags.publish(writer.flags(flag_values(sec, nanosec, int(status), slip)))
+        if flags_due:
+            self.pub_flags.publish(writer.flags(flag_values(sec, nanosec, int(status), slip)))
         if noteworthy:
             self._note_status(status)
 
@@ -360,9 +440,7 @@ class OdometryNode:
             self.reanchor_refused += 1
             self._throttled("reanchor", "warning", f"re-anchor refused: {exc}")
         except Exception as exc:
-            self.handler_errors += 1
-            self._throttled("reanchor_error", "error", f"re-anchor message could not be processed "
-                                                       f"({exc.__class__.__name__}: {exc}).")
+            self._handler_error("reanchor", exc)
 
     def _on_set_parameters(self, params: Sequence[Any]) -> Any:
         from rcl_interfaces.msg import SetParametersResult
@@ -381,6 +459,7 @@ class OdometryNode:
         with self.lock:
             frames_changed = new.frames != self.settings.frames     # compared before the new ones are taken
             self.settings = new
+            self._out_period_ns = _output_period_ns(new)
             self.estimator.update_settings(new)
             if frames_changed:
                 self._writer = RawOdometryWriter(new.frames.odom, new.frames.base, self._tf_type)
@@ -392,7 +471,7 @@ class OdometryNode:
         return SetParametersResult(successful=True)
 
     def diagnostics_status(self) -> tuple[int, str, dict[str, Any]]:
-        """(level, message, values) of the current diagnostics status (0 OK, 1 WARN)."""
+        """(level, message, values) of the current diagnostics status (0 OK, 1 WARN, 2 ERROR)."""
         now = time.monotonic()
         with self.lock:
             counters = dict(self.estimator.counters)
@@ -403,6 +482,7 @@ class OdometryNode:
             period_skipped, self._period_skipped = self._period_skipped, {}
             latency_ns = self._latency.take()
             last_slip = self._last_slip
+            period_errors, self._period_errors = self._period_errors, 0
             slipping = bool(self.estimator.last_slip is not None and self.estimator.last_slip.slip)
         latency = self._latency.summarize(latency_ns)
         elapsed = max(now - self._period_start, 1e-9)
@@ -423,7 +503,18 @@ class OdometryNode:
             "last_slip_score": "none" if last_slip is None else last_slip[1],
             "last_slip_detector": "none" if last_slip is None else last_slip[2],
             "imu_received": self.imu_received,
+            "imu_acceleration": "read" if self._accel_x is not None else "unknown or none",
+            "imu_orientation": "read" if self._up_x is not None else "unknown or none",
+            "accel_bias_mps2": ("none" if self.estimator.last_slip.accel_bias_mps2 is None
+                                else self.estimator.last_slip.accel_bias_mps2),
+            "cmd_vel_type": self._cmd_type,
+            "cmd_vel_received": self.cmd_received,
+            "slip_detector_bits": DETECTOR_BITS_TEXT,
             "handler_errors": self.handler_errors,
+            "handler_errors_in_period": period_errors,
+            "last_handler_error": self._last_error or "none",
+            "undecodable_messages": self.undecodable,
+            "output_rate_hz": settings.output.rate_hz,
             "reanchor_refused": self.reanchor_refused,
             "tf": "on" if (self.pub_tf is not None and settings.output.publish_tf) else
                   ("unavailable" if self.pub_tf is None else "off"),
@@ -439,6 +530,9 @@ class OdometryNode:
         if period_skipped:
             problems.append("bad input: " + ", ".join(f"{v} {k}" for k, v in sorted(period_skipped.items())))
         level = 1 if problems else 0
+        if period_errors:   # a handler failed: the samples it dropped are not counted as used
+            problems.insert(0, f"{period_errors} message handler errors this period ({self._last_error})")
+            level = 2
         message = "; ".join(problems) if problems else "odometry running"
         return level, message, values
 
@@ -458,6 +552,12 @@ class OdometryNode:
             self.handler_errors += 1
             self._throttled("diag_error", "error", f"diagnostics could not be published "
                                                    f"({exc.__class__.__name__}: {exc}).")
+
+
+def _output_period_ns(settings: Settings) -> int:
+    """Output period in nanoseconds from ``output.rate_hz`` (0: one output per input)."""
+    rate = settings.output.rate_hz
+    return int(round(1e9 / rate)) if rate > 0 else 0
 
 
 def _never_group() -> Any:

@@ -18,8 +18,14 @@ Model (kinematic, REP 103 frames, SI units):
   step when the event is active at the step's end stamp, s > 0 there and that wheel's ground speed
   exceeds ``MOVING_MPS`` (only then is it labelled).
 * Gyro z = true yaw rate at the stamp + bias + white noise (sd per sample).
+* Accelerometer (specific force of the IMU point, base axes): each reading is the mean over the step
+  ending at it (a decimation filter): a_x = dv/dt - w^2 l_x - w' l_y, a_y = v w + w' l_x - w^2 l_y
+  for an IMU at (l_x, l_y) (rigid-body kinematics), plus gravity's share g (sin p, 0, cos p) for a
+  nose-up pitch p (an incline), plus bias (x) and white noise. The orientation is yaw and pitch.
+* Held events: the route pauses (the true pose stays) while the encoders report the commanded wheel
+  speed; the command (cmd_vel) is otherwise the route's planned speed and yaw rate.
 
-Random streams (wheel noise per joint, left first, then the gyro) are independent children of one
+Random streams (wheel noise per joint, left first, then the gyro, then the accelerometer) are independent children of one
 SeedSequence(seed),
 so a given seed always gives the same result and switching one noise off leaves the others alone.
 """
@@ -78,6 +84,24 @@ class SimResult:
     true_right_radius_m: float
     true_track_m: float
     slip_joint: np.ndarray | None = None   # (K,) joint name of each slip interval
+    accel_mps2: np.ndarray | None = None    # (N, 3) accelerometer reading (base axes, specific force)
+    pitch_rad: np.ndarray | None = None     # (N,) nose-up pitch (inclines)
+    cmd_v_mps: np.ndarray | None = None     # (N,) commanded speed (cmd_vel linear.x)
+    cmd_w_radps: np.ndarray | None = None   # (N,) commanded yaw rate (cmd_vel angular.z)
+
+    @property
+    def orientation_xyzw(self) -> np.ndarray:
+        """(N, 4) IMU orientation quaternions: yaw, then nose-up pitch (REP 103: pitch about y is -p)."""
+        half_y = 0.5 * self.true_theta_rad
+        p = np.zeros(len(self)) if self.pitch_rad is None else self.pitch_rad
+        half_p = -0.5 * p
+        cy, sy, cp, sp = np.cos(half_y), np.sin(half_y), np.cos(half_p), np.sin(half_p)
+        return np.column_stack([-sy * sp, cy * sp, sy * cp, cy * cp])
+
+    @property
+    def up_x(self) -> np.ndarray:
+        """(N,) x component of the world's up axis in the base frame (sin of the nose-up pitch)."""
+        return np.sin(np.zeros(len(self)) if self.pitch_rad is None else self.pitch_rad)
 
     def __len__(self) -> int:
         return int(len(self.stamp_ns))
@@ -190,10 +214,17 @@ def simulate(scenario: Scenario, seed: int = 0) -> SimResult:
     sc = scenario
     b = sc.true_track_m
     times = segment_times(sc)
-    total_s = times[-1] + sc.lead_in_s
+    total_s = times[-1] + sc.lead_in_s + sum(h.duration_s for h in sc.held_events)
     n = int(math.floor(total_s * sc.rate_hz + 1e-9)) + 1
-    t = np.arange(n) / sc.rate_hz
-    stamp_ns = sc.start_stamp_ns + np.round(t * 1e9).astype(np.int64)
+    t_real = np.arange(n) / sc.rate_hz
+    stamp_ns = sc.start_stamp_ns + np.round(t_real * 1e9).astype(np.int64)
+    # route time: it stands still while the base is held
+    held = np.zeros(n, dtype=bool)
+    t = t_real.copy()
+    for h in sc.held_events:
+        inside = (t_real > h.start_s) & (t_real <= h.start_s + h.duration_s)
+        held |= inside
+        t = t - np.clip(t_real - h.start_s, 0.0, h.duration_s)
 
     x = np.empty(n)
     y = np.empty(n)
@@ -257,6 +288,17 @@ def simulate(scenario: Scenario, seed: int = 0) -> SimResult:
         x0, y0, th0, l0, r0 = x0 + dx, y0 + dy, th0 + dth, l0 + dl, r0 + dr
     after = seg_index >= len(sc.segments)
     x[after], y[after], th[after], trav[after] = x0, y0, th0, (l0, r0)
+    cmd_v, cmd_w = v.copy(), w.copy()
+    held_speed = np.zeros(n)
+    for h in sc.held_events:
+        inside = np.flatnonzero((t_real > h.start_s) & (t_real <= h.start_s + h.duration_s))
+        if len(inside):
+            v0 = float(v[inside[0]])
+            frac = np.clip((t_real[inside] - h.start_s) / h.ramp_s, 0.0, 1.0) if h.ramp_s > 0 else 1.0
+            held_speed[inside] = v0 + (h.speed_mps - v0) * frac
+            cmd_v[inside], cmd_w[inside] = h.speed_mps, 0.0
+    v[held], w[held], vw[held] = 0.0, 0.0, 0.0
+    t = t_real
 
     # -- per joint: columns are the left joints (front first), then the right ones -----------------
     jps = sc.joints_per_side
@@ -311,17 +353,23 @@ def simulate(scenario: Scenario, seed: int = 0) -> SimResult:
                 inside = ((cx[c] >= patch.x_min_m) & (cx[c] <= patch.x_max_m) & (cy[c] >= patch.y_min_m)
                           & (cy[c] <= patch.y_max_m))
                 apply((c,), ramped(inside, patch.slip_ratio, patch.ramp_s), patch.kind)
+    if sc.held_events:
+        hit = held & (np.abs(held_speed) > MOVING_MPS)
+        for c in range(n_j):
+            masks[(c, "held")] = hit.copy()
     if n:
         factor[0] = 1.0
         for key in masks:
             masks[key][0] = False
 
     # -- encoders, gyro --------------------------------------------------------------------------
-    streams = [np.random.default_rng(s) for s in np.random.SeedSequence(seed).spawn(n_j + 1)]
-    rng_gyro = streams[-1]
+    streams = [np.random.default_rng(s) for s in np.random.SeedSequence(seed).spawn(n_j + 2)]
+    rng_gyro, rng_accel = streams[n_j], streams[n_j + 1]
     d_true = np.zeros((n, n_j))
     d_true[1:] = np.diff(trav, axis=0)[:, side_of]
     d_meas = d_true * factor
+    if sc.held_events and n > 1:      # wheels turning on the spot of a held base
+        d_meas[1:] += (held_speed[1:] * np.diff(t_real))[:, None]
     for c in range(n_j):
         k_m = sc.k_left_m if side_of[c] == 0 else sc.k_right_m
         z = streams[c].standard_normal(n)
@@ -334,6 +382,28 @@ def simulate(scenario: Scenario, seed: int = 0) -> SimResult:
         dt = np.diff(stamp_ns) * 1e-9
         velocity[1:] = np.diff(position, axis=0) / dt[:, None]
     gyro = w + sc.gyro_bias_radps + sc.gyro_noise_sd_radps * rng_gyro.standard_normal(n)
+    # accelerometer: mean specific force over the step ending at each sample
+    dv = np.zeros(n)
+    dw = np.zeros(n)
+    if n > 1:
+        step = np.diff(t_real)
+        dv[1:] = np.diff(v) / step
+        dw[1:] = np.diff(w) / step
+    pitch = np.zeros(n)
+    for inc in sc.inclines:
+        t1 = inc.start_s + inc.duration_s
+        if inc.ramp_s > 0:
+            shape = np.clip((t_real - inc.start_s) / inc.ramp_s, 0, 1) * np.clip((t1 - t_real) / inc.ramp_s, 0, 1)
+        else:
+            shape = ((t_real >= inc.start_s) & (t_real < t1)).astype(float)
+        pitch += inc.angle_rad * shape
+    lx, ly = float(sc.imu_position_m[0]), float(sc.imu_position_m[1])
+    g0 = 9.80665
+    acc = np.empty((n, 3))
+    acc[:, 0] = dv - w * w * lx - dw * ly + g0 * np.sin(pitch) + sc.accel_bias_mps2
+    acc[:, 1] = v * w + dw * lx - w * w * ly
+    acc[:, 2] = g0 * np.cos(pitch)
+    acc += sc.accel_noise_sd_mps2 * rng_accel.standard_normal((n, 3))
 
     # -- slip truth intervals ---------------------------------------------------------------------
     rows: list[tuple[int, int, str, str, str]] = []
@@ -355,4 +425,5 @@ def simulate(scenario: Scenario, seed: int = 0) -> SimResult:
         true_travel_m=trav, slip_left=slip_left, slip_right=slip_right, slip_intervals_ns=intervals,
         slip_side=np.array([r[2] for r in rows], dtype="<U5"), slip_kind=np.array([r[3] for r in rows], dtype="<U4"),
         true_left_radius_m=sc.true_left_radius_m, true_right_radius_m=sc.true_right_radius_m,
-        true_track_m=sc.true_track_m, slip_joint=np.array([r[4] for r in rows], dtype=object).astype(str))
+        true_track_m=sc.true_track_m, slip_joint=np.array([r[4] for r in rows], dtype=object).astype(str),
+        accel_mps2=acc, pitch_rad=pitch, cmd_v_mps=cmd_v, cmd_w_radps=cmd_w)

@@ -23,6 +23,8 @@ __all__ = [
     "pause",
     "SlipEvent",
     "FloorPatch",
+    "HeldEvent",
+    "Incline",
     "Scenario",
     "QUOKKA_JOINTS",
     "QUOKKA_SKID_JOINTS",
@@ -161,6 +163,40 @@ class FloorPatch:
             raise ValueError("a floor patch needs x_max_m > x_min_m and y_max_m > y_min_m.")
 
 
+@dataclass(frozen=True)
+class HeldEvent:
+    """The base is held from ``start_s`` for ``duration_s`` (pushing against an obstacle, or lifted):
+    it does not move while its wheels turn at ``speed_mps`` (both sides alike, the commanded speed;
+    reached from the base's speed at the onset over ``ramp_s``). The route pauses and resumes after
+    the event, so the run is that much longer. The samples are labelled as slip of kind 'held'.
+    """
+
+    start_s: float
+    duration_s: float
+    speed_mps: float
+    ramp_s: float = 0.0
+
+    def __post_init__(self) -> None:
+        if not self.duration_s > 0 or self.ramp_s < 0:
+            raise ValueError("a held event needs duration_s > 0 and ramp_s >= 0.")
+
+
+@dataclass(frozen=True)
+class Incline:
+    """A slope driven over from ``start_s`` for ``duration_s``: the base pitches nose-up by
+    ``angle_rad`` (negative: downhill), blended in and out over ``ramp_s``. Only the IMU sees it
+    (gravity's share in the accelerometer, the orientation); the planar route is unchanged."""
+
+    start_s: float
+    duration_s: float
+    angle_rad: float
+    ramp_s: float = 0.5
+
+    def __post_init__(self) -> None:
+        if not self.duration_s > 0 or self.ramp_s < 0 or abs(self.angle_rad) >= math.pi / 2:
+            raise ValueError("an incline needs duration_s > 0, ramp_s >= 0 and |angle_rad| < pi/2.")
+
+
 def _check_slip(side: str, kind: str, ratio: float) -> None:
     if side not in SLIP_SIDES:
         raise ValueError(f"slip side '{side}' is not one of {', '.join(SLIP_SIDES)}.")
@@ -179,7 +215,11 @@ class Scenario:
     Random wheel error: each step's measured travel of a wheel is its true travel plus zero-mean
     Gaussian noise of variance ``k_*_m`` * |travel| (the core's ``per_wheel`` model; 0 = none).
     Gyro: z rate = true yaw rate + ``gyro_bias_radps`` + white noise of standard deviation
-    ``gyro_noise_sd_radps`` per sample. ``accel_mps2`` / ``accel_radps2`` limit the speed ramps
+    ``gyro_noise_sd_radps`` per sample. Accelerometer at ``imu_position_m`` (x, y, z in base_link):
+    the specific force of that point (each reading the mean over the step ending at it) plus
+    ``accel_bias_mps2`` on x and white noise ``accel_noise_sd_mps2`` per axis; ``inclines`` pitch
+    the base, ``held_events`` hold it while its wheels turn. The command (cmd_vel) is the route's
+    planned speed (the held events' speed while held). ``accel_mps2`` / ``accel_radps2`` limit the speed ramps
     (0 = speed changes instantly, segments at constant speed).
     Skid steer: ``joints_per_side`` 2 gives a front and a rear wheel on each side, ``wheelbase_m`` apart,
     all of a side driven alike (the ideal skid-steer kinematics with the true track as effective
@@ -201,6 +241,11 @@ class Scenario:
     floor_patches: tuple[FloorPatch, ...] = ()
     gyro_bias_radps: float = 0.0
     gyro_noise_sd_radps: float = 0.0
+    accel_bias_mps2: float = 0.0
+    accel_noise_sd_mps2: float = 0.0
+    imu_position_m: tuple[float, float, float] = (0.0, 0.0, 0.0)
+    held_events: tuple[HeldEvent, ...] = ()
+    inclines: tuple[Incline, ...] = ()
     accel_mps2: float = 0.5
     accel_radps2: float = 1.5
     start_pose: tuple[float, float, float] = (0.0, 0.0, 0.0)
