@@ -231,7 +231,7 @@ def compare_bags(bags: Sequence[str], settings_files: Sequence[SettingsFile], *,
         raise InputError("two settings files have the same name; give files with different names.")
     opts = {"joint_topic": joint_topic, "imu_topic": imu_topic, "truth": truth, "use_imu": use_imu}
     if scheduler:
-        from ..fleet.commands import compare_on_cluster
+        from .fleet.commands import compare_on_cluster
         return compare_on_cluster(bags, settings_files, opts, scheduler, workers, progress)
     jobs = default_jobs() if jobs is None else max(1, int(jobs))
     labels = [_bag_label(b, bags) for b in bags]
