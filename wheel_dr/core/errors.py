@@ -5,7 +5,7 @@ The modules that raise them re-export them under their old homes (``wheel_dr.bag
 """
 from __future__ import annotations
 
-__all__ = ["WheelDrError", "SettingsError", "InputError", "UsageError", "BagError", "CalibrationError",
+__all__ = ["WheelDrError", "CdrError", "SettingsError", "InputError", "UsageError", "BagError", "CalibrationError",
            "TruthError", "ExcitationError", "SquareTestError", "RosWorkspaceMissingError"]
 
 
@@ -47,3 +47,7 @@ class SquareTestError(InputError):
 
 class RosWorkspaceMissingError(WheelDrError, FileNotFoundError):
     """The local interface workspace (tf2_msgs in .ros_ws/install) has not been built."""
+
+
+class CdrError(WheelDrError, ValueError):
+    """A serialised message is not a well-formed CDR message of the expected type."""

@@ -135,8 +135,7 @@ _READERS = {_CDR_LE: ("<", struct.Struct("<I"), struct.Struct("<iI"), struct.Str
             _CDR_BE: (">", struct.Struct(">I"), struct.Struct(">iI"), struct.Struct(">d"))}
 
 
-class CdrError(ValueError):
-    """A serialised message is not a well-formed CDR message of the expected type."""
+from ..core.errors import CdrError  # noqa: E402  (defined with every other error)
 
 
 def _align(pos: int, n: int) -> int:
