@@ -12,7 +12,8 @@ from rosbags.rosbag2 import StoragePlugin, Writer as Writer2
 from rosbags.typesys import Stores, get_typestore
 
 from test_bags_support import write_short_bag
-from wheel_dr.bags import BagError, geometry_from_urdf, quokka_urdf, read_run, read_tum
+from wheel_dr.bags import BagError, geometry_from_urdf, read_run, read_tum
+from wheel_dr.demo.quokka import quokka_urdf
 from wheel_dr.bags.codec import encode_joint_states
 from wheel_dr.core import InputError
 

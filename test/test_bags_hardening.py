@@ -25,7 +25,7 @@ from rosbags.rosbag2 import StoragePlugin, Writer as Writer2
 from rosbags.typesys import Stores, get_typestore
 
 from test_bags_support import write_short_bag
-from wheel_dr.analysis.runs import load_settings_file, replay_run
+from wheel_dr.runs import load_settings_file, replay_run
 from wheel_dr.bags import read_run
 from wheel_dr.cli import main
 

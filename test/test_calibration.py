@@ -17,7 +17,8 @@ from wheel_dr.analysis.calibration import (CalibrationError, ExcitationError, Tr
                                            geometry_of, make_segments, mean_nees_interval, noise_vector,
                                            prepare_run, run_figures, segment_covariance_basis, segment_propagate,
                                            fit_noise, segment_errors, _combine)
-from wheel_dr.analysis.path import PlanarPath
+from wheel_dr.core.path import PlanarPath
+from wheel_dr.demo.scenarios import varied_route
 from wheel_dr.core import Settings
 from wheel_dr.core.motion import body_increment, integrate
 from wheel_dr.core.noise import increment_noise, propagate_step
@@ -26,35 +27,6 @@ from wheel_dr.sim import Scenario, arc, pause, simulate, straight, turn_in_place
 # Known truth for the tests (the demo cart's true geometry, invented) and a wheel noise level of a
 # cart on a smooth floor (sd of about 2 mm per wheel per metre travelled).
 K_LEFT_M, K_RIGHT_M = 3e-6, 4.5e-6
-
-
-def varied_route(seed: int, duration_s: float = 600.0) -> tuple:
-    """About ``duration_s`` of straight runs (some backwards), arcs and turns on the spot both ways."""
-    rng = np.random.default_rng(seed)
-    segs: list = []
-    t = 0.0
-    while t < duration_s:
-        c = rng.random()
-        if c < 0.4:
-            length = float(rng.uniform(1.0, 5.0)) * (-1.0 if rng.random() < 0.15 else 1.0)
-            v = float(rng.uniform(0.3, 0.8))
-            segs.append(straight(length, v))
-            t += abs(length) / v + 1.0
-        elif c < 0.75:
-            angle = float(rng.uniform(0.5, 3.0)) * float(rng.choice([-1.0, 1.0]))
-            radius, v = float(rng.uniform(0.4, 3.0)), float(rng.uniform(0.2, 0.6))
-            segs.append(arc(angle, radius, v))
-            t += abs(angle) * radius / v + 1.0
-        elif c < 0.95:
-            angle = float(rng.uniform(0.4, 4.0)) * float(rng.choice([-1.0, 1.0]))
-            rate = float(rng.uniform(0.4, 1.2))
-            segs.append(turn_in_place(angle, rate))
-            t += abs(angle) / rate + 1.0
-        else:
-            d = float(rng.uniform(0.5, 2.0))
-            segs.append(pause(d))
-            t += d
-    return tuple(segs)
 
 
 def drive(route_seed: int, noise_seed: int, duration_s: float = 600.0, **fields):

@@ -158,7 +158,7 @@ def test_trend_and_alert_on_a_wearing_tyre(reference):
     fr, _ = reference
     robots = {s.row["robot"]: s for s in fr.robots}
     numbat = next(r for r in DEMO_FLEET if r.name == "numbat")
-    from wheel_dr.sim import varied_drive_scenario
+    from wheel_dr.demo.scenarios import varied_drive_scenario
     driven = 0.0
     for k in range(BAGS_PER_ROBOT):      # the same routes build_demo_fleet drove (seed + 31 * 1 + k)
         driven += _route_length_m(varied_drive_scenario(DURATION_S, route_seed=SEED + 31 + k, rate_hz=RATE_HZ))
@@ -253,7 +253,8 @@ def test_ctrl_c_cancels_and_writes_nothing(fleet_root, dask_cluster, tmp_path):
 
 def test_resume_processes_only_new_bags(fleet_root, reference, dask_cluster, tmp_path):
     from wheel_dr.bags import write_bag
-    from wheel_dr.sim import simulate, varied_drive_scenario
+    from wheel_dr.demo.scenarios import varied_drive_scenario
+    from wheel_dr.sim import simulate
     _, ref = reference
     root = tmp_path / "grown"
     shutil.copytree(fleet_root, root)

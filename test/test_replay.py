@@ -10,7 +10,7 @@ import pytest
 from rosbags.highlevel import AnyReader
 
 from test_bags_support import write_short_bag
-from wheel_dr.analysis.runs import load_settings_file, replay_run
+from wheel_dr.runs import load_settings_file, replay_run
 from wheel_dr.bags import read_run, read_tum
 from wheel_dr.cli import TRAJECTORY_COLUMNS, main
 from wheel_dr.core import Estimator, SampleStatus

@@ -8,8 +8,9 @@ import pytest
 from scipy import stats
 
 from wheel_dr.core import Settings, run
-from wheel_dr.sim import (FloorPatch, Scenario, SlipEvent, arc, demo_scenario, simulate, square_scenario, straight,
-                          turn_in_place, varied_drive_scenario)
+from wheel_dr.demo.scenarios import demo_scenario, square_scenario, varied_drive_scenario
+from wheel_dr.sim import (FloorPatch, Scenario, SlipEvent, arc, simulate, straight,
+                          turn_in_place)
 
 
 def _const(segments, **kw) -> Scenario:

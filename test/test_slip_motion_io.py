@@ -10,7 +10,7 @@ import math
 import numpy as np
 import pytest
 
-from wheel_dr.analysis.runs import load_settings_file, replay_run
+from wheel_dr.runs import load_settings_file, replay_run
 from wheel_dr.bags import write_bag
 from wheel_dr.bags.reader import read_run
 from wheel_dr.core import Settings, run

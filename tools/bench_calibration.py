@@ -17,11 +17,11 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "test"))
 
-from test_calibration import varied_route  # noqa: E402  (the tests' ten-minute varied route)
 
 from wheel_dr.analysis.calibration import calibrate, geometry_of, noise_vector, prepare_run  # noqa: E402
 from wheel_dr.core import Settings  # noqa: E402
-from wheel_dr.sim import Scenario, simulate, varied_drive_scenario  # noqa: E402
+from wheel_dr.demo.scenarios import varied_drive_scenario, varied_route  # noqa: E402  (the tests' varied route)
+from wheel_dr.sim import Scenario, simulate  # noqa: E402
 
 
 def main() -> int:
@@ -29,7 +29,7 @@ def main() -> int:
     ap.add_argument("--drives", type=int, default=6)
     ap.add_argument("--k", type=float, default=3e-6, help="k_left (k_right is 1.5 times it), metres")
     ap.add_argument("--routes", choices=("tests", "sim"), default="tests",
-                    help="the tests' varied routes, or wheel_dr.sim.varied_drive_scenario (route seeds 7, 8, ...)")
+                    help="the tests' varied routes, or wheel_dr.demo.scenarios.varied_drive_scenario (route seeds 7, 8, ...)")
     args = ap.parse_args()
     k = np.array([args.k, 1.5 * args.k])
     print(f"k_left {k[0]:.2g} m, k_right {k[1]:.2g} m; errors in % of the truth; NEES of the held-out drive")

@@ -34,7 +34,8 @@ from wheel_dr.bags import read_run, write_bag  # noqa: E402
 from wheel_dr.cli import main  # noqa: E402
 from wheel_dr.core import Settings, run  # noqa: E402
 from wheel_dr.params import atomic_write_text  # noqa: E402
-from wheel_dr.sim import simulate, varied_drive_scenario  # noqa: E402
+from wheel_dr.demo.scenarios import varied_drive_scenario  # noqa: E402
+from wheel_dr.sim import simulate  # noqa: E402
 
 JOINTS = "      left_joints: [quokka_left_wheel_joint]\n      right_joints: [quokka_right_wheel_joint]\n"
 GEOMETRY = {"nominal": (0.0825, 0.0825, 0.412), "true": (0.0829, 0.0822, 0.4185)}

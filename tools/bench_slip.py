@@ -137,7 +137,8 @@ def motion_speed(n_stream: int = 20_000) -> None:
     added streaming cost per Estimator.step."""
     from wheel_dr.core import Estimator, Settings
     from wheel_dr.core.slip_motion import MotionInputs, MotionMonitor
-    from wheel_dr.sim import SlipEvent as SimSlip, simulate, varied_drive_scenario
+    from wheel_dr.demo.scenarios import varied_drive_scenario
+    from wheel_dr.sim import SlipEvent as SimSlip, simulate
 
     events = tuple(SimSlip(float(t), 1.5, "both", "spin", 0.3, ramp_s=0.5) for t in range(60, 3600, 30))
     sc = varied_drive_scenario(3601.0, rate_hz=100.0, k_left_m=2e-5, k_right_m=2e-5, gyro_bias_radps=0.002,

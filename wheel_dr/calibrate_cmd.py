@@ -17,7 +17,7 @@ from typing import Sequence
 
 from .analysis.calibration import (GEOMETRY_NAMES, CalibrationError, CalibrationResult, CalibrationRun,
                                    RunFigures, TruthError, calibrate, prepare_run)
-from .analysis.path import PlanarPath
+from .core.path import PlanarPath
 from .analysis.umbmark import (CSV_COLUMNS, corrected_geometry, parse_square_csv, refine, simulate_square_test,
                                square_csv_text, umbmark)
 from .core.errors import WheelDrError
@@ -241,7 +241,8 @@ def demo_calibration(duration_s: float = 600.0, route_seed: int = 7, seed: int =
     its nominal one) drives a simulated ten-minute calibration drive with ground truth and a second,
     held-out one; returns the result (``.after`` is the tuned Settings) and a report section for
     ``write_report(..., extra_sections=[section])``. About two seconds."""
-    from .sim import simulate, varied_drive_scenario
+    from .demo.scenarios import varied_drive_scenario
+    from .sim import simulate
 
     train_sc = varied_drive_scenario(duration_s, route_seed=route_seed, k_left_m=k_m, k_right_m=k_m)
     held_sc = varied_drive_scenario(duration_s, route_seed=route_seed + 100, k_left_m=k_m, k_right_m=k_m)
@@ -280,7 +281,7 @@ def _square(args: argparse.Namespace) -> int:
     w = settings.wheels
     nominal = (w.left_radius, w.right_radius, w.track_width)
     if args.square == "synth":
-        from .sim.scenario import (QUOKKA_NOMINAL_RADIUS_M, QUOKKA_NOMINAL_TRACK_M, QUOKKA_TRUE_LEFT_RADIUS_M,
+        from .demo.quokka import (QUOKKA_NOMINAL_RADIUS_M, QUOKKA_NOMINAL_TRACK_M, QUOKKA_TRUE_LEFT_RADIUS_M,
                                    QUOKKA_TRUE_RIGHT_RADIUS_M, QUOKKA_TRUE_TRACK_M)
         if args.params is None:
             nominal = (QUOKKA_NOMINAL_RADIUS_M, QUOKKA_NOMINAL_RADIUS_M, QUOKKA_NOMINAL_TRACK_M)

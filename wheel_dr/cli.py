@@ -105,15 +105,16 @@ def _say(text: str = "") -> None:
 # -- synth ---------------------------------------------------------------------------------------
 def _scenario(args: argparse.Namespace):
     from . import sim
+    from .demo import scenarios
     fields = {}
     if args.scenario == "demo":
-        sc = sim.demo_scenario(rate_hz=args.rate, laps=args.laps)
+        sc = scenarios.demo_scenario(rate_hz=args.rate, laps=args.laps)
     elif args.scenario in ("square-cw", "square-ccw"):
-        sc = sim.square_scenario(side_m=args.side, direction=args.scenario.split("-")[1], laps=args.laps,
+        sc = scenarios.square_scenario(side_m=args.side, direction=args.scenario.split("-")[1], laps=args.laps,
                                  rate_hz=args.rate, k_left_m=2e-5, k_right_m=2e-5, gyro_bias_radps=0.0015,
                                  gyro_noise_sd_radps=0.004)
     else:
-        sc = sim.varied_drive_scenario(duration_s=args.duration, rate_hz=args.rate, k_left_m=2e-5, k_right_m=2e-5,
+        sc = scenarios.varied_drive_scenario(duration_s=args.duration, rate_hz=args.rate, k_left_m=2e-5, k_right_m=2e-5,
                                        gyro_bias_radps=0.0015, gyro_noise_sd_radps=0.004)
     if args.no_slip:
         fields.update(slip_events=(), floor_patches=())
@@ -147,7 +148,7 @@ def _cmd_synth(args: argparse.Namespace) -> int:
 def _cmd_replay(args: argparse.Namespace) -> int:
     import numpy as np
 
-    from .analysis.runs import load_settings_file, replay_run
+    from .runs import load_settings_file, replay_run
     from .bags.reader import read_run
     sf = load_settings_file(args.params)
     t0 = time.perf_counter()
@@ -185,7 +186,7 @@ def _cmd_replay(args: argparse.Namespace) -> int:
 # -- compare -------------------------------------------------------------------------------------
 def _cmd_compare(args: argparse.Namespace, title: str = "wheel_dr comparison", notes: Sequence[str] = (),
                  extra_sections: Sequence = ()) -> int:
-    from .analysis.runs import compare_bags, load_settings_file
+    from .runs import compare_bags, load_settings_file
     from .report import ranking_text, write_report, write_summary
     sfs = [load_settings_file(p) for p in (args.params or [None])]
     out = _out_dir(args.out, "out/compare")
@@ -245,7 +246,8 @@ DEMO_CACHE_VERSION = 2
 
 def _cmd_demo(args: argparse.Namespace) -> int:
     from .bags import write_bag
-    from .sim import DEMO_SEED, demo_scenario, simulate
+    from .demo.scenarios import DEMO_SEED, demo_scenario
+    from .sim import simulate
     out = _out_dir(args.out, "out/demo")
     cfg = _config_dir()
     bag = out / "cache" / f"ferncliff_night_round_s{DEMO_SEED}_v{DEMO_CACHE_VERSION}"

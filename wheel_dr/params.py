@@ -21,7 +21,7 @@ import yaml
 
 from .core.errors import SettingsError
 from .core.settings import Settings
-from .partfiles import make_part_file
+from .fileio import atomic_write_text  # re-exported: parameters files are written with it
 
 __all__ = ["NODE_NAME", "load_settings", "parse_params_text", "flatten", "write_params_text",
            "update_params_text", "atomic_write_text"]
@@ -236,19 +236,3 @@ def _plain(value: Any) -> Any:
     if hasattr(value, "item"):
         return value.item()
     return value
-
-
-def atomic_write_text(path: str | os.PathLike, text: str) -> None:
-    """Write ``text`` to a temporary file beside ``path`` and rename it into place when complete."""
-    p = Path(path)
-    fd, tmp = make_part_file(p)   # also removes the parts a killed run left beside p
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            fh.write(text)
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes it private; give it the usual mode
-        os.replace(tmp, p)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise

@@ -58,8 +58,10 @@ from scipy import optimize, stats
 from ..core import errors as _errors
 from ..core.motion import body_increment, integrate, wrap_angle
 from ..core.noise import increment_noise, segment_covariance as segment_propagate
+from ..core.se2 import Poses, rotate_covariance, umeyama_se2
 from ..core.settings import Settings
 from ..core.wheels import JointSamples, wheel_travel
+from .consistency import nees as _nees
 from .path import PlanarPath
 
 __all__ = [
@@ -253,10 +255,8 @@ def make_segments(run: CalibrationRun, segment_length_m: float = 2.0) -> Segment
 
 
 def _relative(x, y, th, i, j) -> np.ndarray:
-    """(S, 3) motion from pose i to pose j in the frame of pose i: rotation by -th_i of the displacement."""
-    dx, dy = x[j] - x[i], y[j] - y[i]
-    c, s = np.cos(th[i]), np.sin(th[i])
-    return np.column_stack([c * dx + s * dy, -s * dx + c * dy, th[j] - th[i]])
+    """(S, 3) motion from pose i to pose j in the frame of pose i (``Poses.relative``)."""
+    return Poses(x, y, th).relative(i, j).as_array()
 
 
 def _integrate_run(run: CalibrationRun, geometry: Sequence[float], scheme: str):
@@ -318,15 +318,9 @@ def segment_covariance_basis(run: CalibrationRun, seg: Segments, geometry: Seque
     params = _noise_basis_params(model)
     qs = [increment_noise(th_before, dl, dr, b, scheme, model, p["k_left"], p["k_right"], p["alphas"])[0]
           for p in params]
-    c, sn = np.cos(th[seg.start]), np.sin(th[seg.start])
-    rot = np.zeros((len(seg), 3, 3))
-    rot[:, 0, 0] = rot[:, 1, 1] = c
-    rot[:, 0, 1], rot[:, 1, 0] = sn, -sn
-    rot[:, 2, 2] = 1.0
     out = np.zeros((len(seg), len(params), 3, 3))
     for a, q in enumerate(qs):
-        p = segment_propagate(x, y, q, seg.start, seg.end)
-        out[:, a] = rot @ p @ np.swapaxes(rot, 1, 2)
+        out[:, a] = rotate_covariance(segment_propagate(x, y, q, seg.start, seg.end), -th[seg.start])
     return out
 
 
@@ -409,10 +403,6 @@ def _truth_cov(basis: np.ndarray, truth_var: Sequence[float]) -> np.ndarray | No
     if not np.any(tv > 0):
         return None
     return np.einsum("a,sakl->skl", tv, basis)
-
-
-def _nees(err: np.ndarray, cov: np.ndarray) -> np.ndarray:
-    return np.einsum("si,si->s", err, np.linalg.solve(cov, err[:, :, None])[:, :, 0])
 
 
 def mean_nees_interval(n: int, dof: int = 3, prob: float = 0.95) -> tuple[float, float]:
@@ -700,12 +690,8 @@ class RunFigures:
 
 def _aligned_rmse(src: np.ndarray, dst: np.ndarray) -> float:
     """RMS of dst - (R src + t) after the least-squares rotation and translation (Umeyama 1991, no scale)."""
-    mu_s, mu_d = src.mean(axis=0), dst.mean(axis=0)
-    sigma = (dst - mu_d).T @ (src - mu_s) / len(src)
-    u, _, vt = np.linalg.svd(sigma)
-    d = np.diag([1.0, float(np.sign(np.linalg.det(u) * np.linalg.det(vt)) or 1.0)])
-    rot = u @ d @ vt
-    res = dst - (src @ rot.T + (mu_d - rot @ mu_s))
+    rot, t, _ = umeyama_se2(src, dst)
+    res = dst - (src @ rot.T + t)
     return float(np.sqrt(np.mean(np.sum(res * res, axis=1))))
 
 

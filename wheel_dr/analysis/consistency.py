@@ -14,6 +14,7 @@ import numpy as np
 from scipy import stats
 
 from ..core.motion import wrap_angle
+from ..core.se2 import Poses, rotate_covariance
 from ..core.noise import segment_covariance  # re-exported: the restarted-segment covariance
 
 __all__ = ["chi2_bounds", "mean_nees_bounds", "SegmentNees", "segment_nees", "segment_covariance", "nees"]
@@ -64,17 +65,6 @@ class SegmentNees:
     dropped: int
 
 
-def _rot_z(yaw: np.ndarray) -> np.ndarray:
-    c, s = np.cos(yaw), np.sin(yaw)
-    r = np.zeros((len(yaw), 3, 3))
-    r[:, 0, 0] = c
-    r[:, 0, 1] = -s
-    r[:, 1, 0] = s
-    r[:, 1, 1] = c
-    r[:, 2, 2] = 1.0
-    return r
-
-
 def segment_nees(est_pose: np.ndarray, truth_pose: np.ndarray, step_noise: np.ndarray,
                  starts: np.ndarray, ends: np.ndarray) -> SegmentNees:
     """NEES of each segment [starts[k], ends[k]] (sample positions, ends > starts) with the
@@ -95,15 +85,10 @@ def segment_nees(est_pose: np.ndarray, truth_pose: np.ndarray, step_noise: np.nd
     starts = np.asarray(starts, dtype=np.int64)
     ends = np.asarray(ends, dtype=np.int64)
     covs = segment_covariance(est[:, 0], est[:, 1], q, starts, ends)
-    r_est = _rot_z(-est[starts, 2])
-    r_tru = _rot_z(-tru[starts, 2])
-    d_est = est[ends] - est[starts]
-    d_tru = tru[ends] - tru[starts]
-    rel_est = np.einsum("sab,sb->sa", r_est, d_est)
-    rel_tru = np.einsum("sab,sb->sa", r_tru, d_tru)
-    err = rel_est - rel_tru
-    err[:, 2] = wrap_angle(d_est[:, 2] - d_tru[:, 2])
-    cov_local = r_est @ covs @ np.swapaxes(r_est, 1, 2)
+    pe, pt = Poses.from_array(est), Poses.from_array(tru)
+    err = pe.relative(starts, ends).as_array() - pt.relative(starts, ends).as_array()
+    err[:, 2] = wrap_angle(err[:, 2])
+    cov_local = rotate_covariance(covs, -est[starts, 2])
     value = nees(err, cov_local)
     ok = np.isfinite(value)
     return SegmentNees(value[ok], starts[ok], ends[ok], err[ok], cov_local[ok], int(np.count_nonzero(~ok)))

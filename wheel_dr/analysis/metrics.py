@@ -20,6 +20,7 @@ from ..core.errors import InputError
 from ..core.estimator import Trajectory
 from ..core.motion import body_increment, wrap_angle
 from ..core.noise import increment_noise
+from ..core.se2 import Poses
 from ..core.settings import Settings
 from .align import anchor_first, apply_se2, umeyama_se2
 from .consistency import chi2_bounds, mean_nees_bounds, segment_nees
@@ -131,6 +132,7 @@ def rpe_distance(est_pose: np.ndarray, truth_pose: np.ndarray, dist_m: np.ndarra
     """
     est = np.asarray(est_pose, dtype=np.float64)
     tru = np.asarray(truth_pose, dtype=np.float64)
+    pe, pt = Poses.from_array(est), Poses.from_array(tru)
     d = np.asarray(dist_m, dtype=np.float64)
     n = len(d)
     stride = max(1, int(math.ceil(n / max_starts)))
@@ -144,13 +146,9 @@ def rpe_distance(est_pose: np.ndarray, truth_pose: np.ndarray, dist_m: np.ndarra
             out[float(length)] = (np.zeros(0), np.zeros(0))
             continue
         covered = d[j] - d[i]
-        ce, se = np.cos(est[i, 2]), np.sin(est[i, 2])
-        ct, st = np.cos(tru[i, 2]), np.sin(tru[i, 2])
-        dxe, dye = est[j, 0] - est[i, 0], est[j, 1] - est[i, 1]
-        dxt, dyt = tru[j, 0] - tru[i, 0], tru[j, 1] - tru[i, 1]
-        ex = (ce * dxe + se * dye) - (ct * dxt + st * dyt)
-        ey = (-se * dxe + ce * dye) - (-st * dxt + ct * dyt)
-        eth = wrap_angle((est[j, 2] - est[i, 2]) - (tru[j, 2] - tru[i, 2]))
+        rel_e, rel_t = pe.relative(i, j), pt.relative(i, j)
+        ex, ey = rel_e.x - rel_t.x, rel_e.y - rel_t.y
+        eth = wrap_angle(rel_e.theta - rel_t.theta)
         out[float(length)] = (np.hypot(ex, ey) / covered, np.abs(eth) / covered)
     return out
 

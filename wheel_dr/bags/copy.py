@@ -8,8 +8,9 @@ import numpy as np
 from rosbags.highlevel import AnyReader
 from rosbags.typesys import Stores, get_typestore
 
-from ..core.conventions import pose_covariance_6x6, twist_covariance_6x6
+from ..core.conventions import pose_covariance_6x6_array, twist_covariance_6x6_array
 from ..core.errors import InputError
+from ..core.se2 import yaw_to_quaternion_array
 from ..core.settings import Settings
 from .codec import pose_layout
 from .reader import BagError, _open, _resolve, _why
@@ -39,18 +40,17 @@ def _odometry_rows(traj, settings: Settings, ts, ros1: bool) -> list[bytes]:
     t0 = pc0 + 288
     tc0 = t0 + 48
     n = len(traj)
-    half = 0.5 * np.asarray(traj.yaw_rad)
-    cols = {p0: traj.x_m, p0 + 8: traj.y_m, p0 + 40: np.sin(half), p0 + 48: np.cos(half), t0: traj.v_mps,
+    quat = yaw_to_quaternion_array(traj.yaw_rad)
+    cols = {p0: traj.x_m, p0 + 8: traj.y_m, p0 + 40: quat[:, 2], p0 + 48: quat[:, 3], t0: traj.v_mps,
             t0 + 40: traj.w_radps}
-    # covariances: unobserved entries are constant, fill them per column
-    base_pose = np.array(pose_covariance_6x6(np.zeros((3, 3))))
-    base_twist = np.array(twist_covariance_6x6(np.zeros((2, 2))))
-    pose_idx = {0: (0, 0), 1: (0, 1), 5: (0, 2), 6: (1, 0), 7: (1, 1), 11: (1, 2), 30: (2, 0), 31: (2, 1), 35: (2, 2)}
-    twist_idx = {0: (0, 0), 5: (0, 1), 30: (1, 0), 35: (1, 1)}
+    vy = getattr(traj, "vy_mps", None)
+    if vy is not None:
+        cols[t0 + 8] = vy
+    pose36 = pose_covariance_6x6_array(traj.cov)          # the 6x6 layout lives in core.conventions
+    twist36 = twist_covariance_6x6_array(traj.twist_cov)
     for k in range(36):
-        cols[pc0 + 8 * k] = traj.cov[:, pose_idx[k][0], pose_idx[k][1]] if k in pose_idx else np.full(n, base_pose[k])
-        cols[tc0 + 8 * k] = (traj.twist_cov[:, twist_idx[k][0], twist_idx[k][1]] if k in twist_idx
-                             else np.full(n, base_twist[k]))
+        cols[pc0 + 8 * k] = pose36[:, k]
+        cols[tc0 + 8 * k] = twist36[:, k]
     rows = _fill(template, n, np.asarray(traj.stamp_ns, dtype=np.int64), lay.sec_offset, lay.nsec_offset, ros1, cols)
     return [r.tobytes() for r in rows]
 

@@ -21,8 +21,9 @@ import numpy as np
 from rosbags.highlevel import AnyReader
 from rosbags.typesys import Stores, get_typestore
 
-from ..analysis.path import PlanarPath
 from ..core import errors as _errors
+from ..core.path import PlanarPath
+from ..core.se2 import quaternion_to_yaw_array
 from ..core.errors import InputError, WheelDrError
 from ..core.wheels import JointSamples, samples_from_messages
 from . import codec
@@ -261,12 +262,6 @@ def _hold(src_stamps: np.ndarray, src_values: np.ndarray, stamps: np.ndarray) ->
     return out.astype(np.float64)
 
 
-def _quat_yaw(q: np.ndarray) -> np.ndarray:
-    """Yaw of quaternions (N, 4) x y z w (z-y-x convention; exact for pure yaw)."""
-    x, y, z, w = q[:, 0], q[:, 1], q[:, 2], q[:, 3]
-    return np.arctan2(2.0 * (w * z + x * y), 1.0 - 2.0 * (y * y + z * z))
-
-
 def _path(stamps: np.ndarray, x: np.ndarray, y: np.ndarray, yaw: np.ndarray, frame: str) -> PlanarPath:
     order = np.argsort(stamps, kind="stable")
     st = stamps[order]
@@ -308,7 +303,7 @@ def read_tum(path: str | os.PathLike) -> PlanarPath:
         raise InputError(f"truth file '{p}' holds no poses; give a TUM file with at least two lines.")
     a = np.asarray(rows)
     stamps = np.round(a[:, 0] * 1e9).astype(np.int64)
-    return _path(stamps, a[:, 1], a[:, 2], _quat_yaw(a[:, 4:8]), "")
+    return _path(stamps, a[:, 1], a[:, 2], quaternion_to_yaw_array(a[:, 4:8]), "")
 
 
 def _decode_joint_states(reader: AnyReader, raws: list[bytes], record_ns: list[int], msgtype: str,
@@ -410,7 +405,7 @@ def _decode_poses(reader: AnyReader, raws: list[bytes], msgtype: str, ros1: bool
             bulk = None
     if bulk is not None:
         stamps, p7, frame, _ = bulk
-        return _path(stamps, p7[:, 0], p7[:, 1], _quat_yaw(p7[:, 3:7]), frame)
+        return _path(stamps, p7[:, 0], p7[:, 1], quaternion_to_yaw_array(p7[:, 3:7]), frame)
     st, xs, ys, q = [], [], [], []
     frame = ""
     for raw in raws:
@@ -423,7 +418,7 @@ def _decode_poses(reader: AnyReader, raws: list[bytes], msgtype: str, ros1: bool
         q.append((o.x, o.y, o.z, o.w))
         frame = m.header.frame_id
     qa = np.asarray(q, dtype=np.float64).reshape(-1, 4)
-    return _path(np.asarray(st, dtype=np.int64), np.asarray(xs), np.asarray(ys), _quat_yaw(qa), frame)
+    return _path(np.asarray(st, dtype=np.int64), np.asarray(xs), np.asarray(ys), quaternion_to_yaw_array(qa), frame)
 
 
 def _decode_tf(reader: AnyReader, raws: list[tuple[bytes, str]], parent: str, child: str) -> PlanarPath:
@@ -438,7 +433,7 @@ def _decode_tf(reader: AnyReader, raws: list[tuple[bytes, str]], parent: str, ch
                 r = tr.transform.rotation
                 q.append((r.x, r.y, r.z, r.w))
     qa = np.asarray(q, dtype=np.float64).reshape(-1, 4)
-    return _path(np.asarray(st, dtype=np.int64), np.asarray(xs), np.asarray(ys), _quat_yaw(qa), parent)
+    return _path(np.asarray(st, dtype=np.int64), np.asarray(xs), np.asarray(ys), quaternion_to_yaw_array(qa), parent)
 
 
 _INDEX_HEAD = struct.Struct("<BQHI")    # MCAP message index record: opcode, length, channel id, array bytes

@@ -34,10 +34,9 @@ from rosbags.typesys import Stores, get_typestore
 
 from ..core.conventions import pose_covariance_6x6, yaw_to_quaternion
 from ..core.errors import InputError
+from ..core.se2 import yaw_to_quaternion_array
 from ..partfiles import make_part_dir
-from ..sim.drive import SimResult
 from .codec import imu_layout, joint_state_layout, encode_joint_states, pose_layout
-from .urdf import quokka_urdf
 
 __all__ = ["write_bag", "DEFAULT_TOPICS", "SLIP_STATUS_NAME", "BAG_FORMATS"]
 
@@ -84,7 +83,7 @@ def _rows(arr: np.ndarray) -> list[bytes]:
     return [r.tobytes() for r in arr]
 
 
-def _messages(sim: SimResult, ts, ros1: bool, topics: Mapping[str, str], truth_stride: int, imu: bool,
+def _messages(sim, ts, ros1: bool, topics: Mapping[str, str], truth_stride: int, imu: bool,
               truth: bool, description: bool, slip: bool, urdf: str | None, odom_frame: str, base_frame: str,
               imu_frame: str, imu_accel: bool = True, cmd: bool = True):
     """[(topic, msgtype, qos_latched, [(stamp_ns, bytes-like), ...]), ...] for one bag."""
@@ -155,16 +154,14 @@ def _messages(sim: SimResult, ts, ros1: bool, topics: Mapping[str, str], truth_s
         template = bytes(ser(msg, "nav_msgs/msg/Odometry"))
         lay = pose_layout(template, "nav_msgs/msg/Odometry", ros1)
         p0 = lay.fields["pose"][0]
-        half = 0.5 * sim.true_theta_rad[pick]
+        quat = yaw_to_quaternion_array(sim.true_theta_rad[pick])
         tw0 = p0 + 56 + 288
         rows = _fill(template, len(pick), stamps[pick], lay.sec_offset, lay.nsec_offset, ros1,
-                     {p0: sim.true_x_m[pick], p0 + 8: sim.true_y_m[pick], p0 + 40: np.sin(half),
-                      p0 + 48: np.cos(half), tw0: sim.true_v_mps[pick], tw0 + 40: sim.true_w_radps[pick]})
+                     {p0: sim.true_x_m[pick], p0 + 8: sim.true_y_m[pick], p0 + 40: quat[:, 2],
+                      p0 + 48: quat[:, 3], tw0: sim.true_v_mps[pick], tw0 + 40: sim.true_w_radps[pick]})
         out.append((topics["truth"], "nav_msgs/msg/Odometry", False, list(zip(stamps[pick].tolist(), _rows(rows)))))
     if description:
-        text = urdf if urdf is not None else quokka_urdf(
-            sim.scenario.nominal_left_radius_m, sim.scenario.nominal_right_radius_m, sim.scenario.nominal_track_m,
-            sim.joint_names, base_frame, sim.scenario.wheelbase_m)
+        text = urdf if urdf is not None else sim.robot_description(base_frame)
         msg = ts.types["std_msgs/msg/String"](data=text)
         out.append((topics["robot_description"], "std_msgs/msg/String", True,
                     [(int(stamps[0]), ser(msg, "std_msgs/msg/String"))]))
@@ -188,7 +185,7 @@ def _messages(sim: SimResult, ts, ros1: bool, topics: Mapping[str, str], truth_s
     return out
 
 
-def write_bag(sim: SimResult, path: str | os.PathLike, fmt: str = "mcap", *, typestore=None,
+def write_bag(sim, path: str | os.PathLike, fmt: str = "mcap", *, typestore=None,
               topics: Mapping[str, str] | None = None, truth_stride: int = 5, imu: bool = True,
               truth: bool = True, description: bool = True, slip: bool = True, urdf: str | None = None,
               odom_frame: str = "odom", base_frame: str = "base_link", imu_frame: str = "imu_link",

@@ -10,16 +10,16 @@ __all__ = ["compare_on_cluster", "prepare_on_cluster"]
 
 
 def _compare_task(item: tuple) -> Any:
-    from ..analysis.runs import _whole_bag
+    from ..runs import _whole_bag
     path, label, sfs, opts = item
     return _whole_bag(path, label, sfs, opts)
 
 
 def compare_on_cluster(bags: Sequence[str], settings_files: Sequence, opts: dict, scheduler: str,
                        workers: int | None, progress: bool):
-    """``wheel_dr.analysis.runs.compare_bags`` with each bag (decoded once, every settings file run on
+    """``wheel_dr.runs.compare_bags`` with each bag (decoded once, every settings file run on
     it) as one task on the cluster; the result is the same CompareResult, in bag then settings order."""
-    from ..analysis.runs import CompareResult, _bag_label
+    from ..runs import CompareResult, _bag_label
     labels = [_bag_label(b, bags) for b in bags]
     items = [(str(b), lb, list(settings_files), opts) for b, lb in zip(bags, labels)]
     out = map_ordered(_compare_task, items, scheduler, workers, "compare" if progress else None)

@@ -63,7 +63,8 @@ def build_demo_fleet(root: str | Path, robots: Sequence[DemoRobot] = DEMO_FLEET,
     """Write the fleet under ``root`` (existing bags are kept unless ``overwrite``): ROOT/<robot>/params.yaml
     and ROOT/<robot>/day<k>/shift (rosbag2 directories, or shift.bag for ROS 1). Returns ``root``."""
     from ..bags import write_bag
-    from ..sim import FloorPatch, simulate, varied_drive_scenario
+    from ..demo.scenarios import varied_drive_scenario
+    from ..sim import FloorPatch, simulate
     top = Path(root)
     wet = FloorPatch(2.0, 4.0, -1.0, 1.0, kind="spin", slip_ratio=0.2, name="wet patch by the loading bay")
     for r_i, robot in enumerate(robots):

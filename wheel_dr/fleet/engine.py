@@ -54,7 +54,7 @@ def open_client(scheduler: str | None = LOCAL, workers: int | None = None) -> It
     for name in ("distributed", "distributed.worker", "distributed.nanny", "distributed.scheduler"):
         logging.getLogger(name).setLevel(logging.ERROR)
     if address == LOCAL:
-        from ..analysis.runs import default_jobs
+        from ..runs import default_jobs
         n = default_jobs() if workers is None else int(workers)
         if n < 1:
             raise InputError(f"--workers {n} is below 1; give the number of worker processes (default: the CPUs).")
@@ -113,7 +113,7 @@ def map_ordered(fn: Callable, items: Sequence[Any], scheduler: str | None = LOCA
                 progress: str | None = None) -> list[Any]:
     """``[fn(item) for item in items]`` on the cluster named by ``scheduler``, in item order; a failed
     task raises its exception's text as an InputError (for the compare / calibrate commands)."""
-    from ..analysis.runs import Progress
+    from ..runs import Progress
     out: list[Any] = [None] * len(items)
     bar = Progress(len(items), progress) if progress else None
     try:

@@ -20,7 +20,7 @@ from pathlib import Path
 from typing import Any, Callable, Sequence
 
 from .. import __version__
-from ..analysis.runs import Progress, SettingsFile, load_settings_file
+from ..runs import Progress, SettingsFile, load_settings_file
 from ..core.errors import InputError
 from ..report.summary import write_text_readable
 from .cache import cache_key, load_cached, store_cached

@@ -1,7 +1,7 @@
 """One fleet task: a bag decoded once, replayed, compared with its truth, its geometry fitted, slip scored.
 
 Runs on a Dask worker (or in the client's process for the in-process loop). It reuses the offline
-tool's own steps (``wheel_dr.bags.read_run``, ``wheel_dr.analysis.runs.replay_run``,
+tool's own steps (``wheel_dr.bags.read_run``, ``wheel_dr.runs.replay_run``,
 ``wheel_dr.analysis.metrics.evaluate``, ``wheel_dr.analysis.calibration.prepare_run`` and
 ``calibrate``) and returns only a summary row and a few small arrays (a downsampled path and the
 positions where slip was flagged), never the samples. A bag that cannot be read gives a row with
@@ -18,7 +18,7 @@ from typing import Any
 import numpy as np
 
 from ..analysis.calibration import GEOMETRY_NAMES
-from ..analysis.runs import SettingsFile
+from ..runs import SettingsFile
 
 __all__ = ["BagJob", "BagResult", "analyse_bag", "GEOMETRY_COLUMNS", "MAX_PATH_POINTS", "MAX_SLIP_POINTS",
            "iso_utc"]
@@ -170,7 +170,7 @@ def _relative(text: str, job: BagJob) -> str:
 
 def _analyse(job: BagJob, row: dict[str, Any], t0: float) -> BagResult:
     from ..analysis.metrics import evaluate
-    from ..analysis.runs import replay_run
+    from ..runs import replay_run
     from ..bags.reader import read_run
     truth, truth_note = _truth_usable(job)
     data = read_run(job.path, job.joint_topic, job.imu_topic, truth, use_imu=job.use_imu)

@@ -24,7 +24,7 @@ _png_of = png_of
 _img_tag = img_tag
 _figure_html = figure_html
 
-# a settings entry: an object with .name and .path (wheel_dr.analysis.runs.SettingsFile), a
+# a settings entry: an object with .name and .path (wheel_dr.runs.SettingsFile), a
 # (name, path) pair, or a mapping name -> description
 SettingsLike = Union[Any, tuple[str, Union[str, Path, None]]]
 

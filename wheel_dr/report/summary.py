@@ -10,7 +10,7 @@ from pathlib import Path
 from typing import Any, Mapping, Sequence
 
 from ..analysis.metrics import Evaluation, rank
-from ..params import atomic_write_text
+from ..fileio import atomic_write_text
 
 __all__ = ["write_summary", "ranking_text", "RANK_COLUMNS", "format_value", "write_text_readable"]
 

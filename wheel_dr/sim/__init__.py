@@ -1,7 +1,9 @@
-"""The drive simulator behind the synthetic bags and the demo: pure numpy, no ROS, no I/O."""
+"""The drive simulator behind the synthetic bags and the demo: pure numpy, no ROS, no I/O.
+
+Ready-made scenarios (the demo round, squares, varied drives) live in ``wheel_dr.demo.scenarios``.
+"""
 from __future__ import annotations
 
-from .builders import COLD_ROOM_PATCH, DEMO_SEED, demo_scenario, square_scenario, varied_drive_scenario
 from .drive import MOVING_MPS, SimResult, segment_duration, segment_times, simulate
 from .scenario import (DEMO_START_STAMP_NS, QUOKKA_JOINTS, QUOKKA_NOMINAL_RADIUS_M, QUOKKA_NOMINAL_TRACK_M,
                        QUOKKA_TRUE_LEFT_RADIUS_M, QUOKKA_TRUE_RIGHT_RADIUS_M, QUOKKA_TRUE_TRACK_M, FloorPatch,
@@ -9,8 +11,7 @@ from .scenario import (DEMO_START_STAMP_NS, QUOKKA_JOINTS, QUOKKA_NOMINAL_RADIUS
 
 __all__ = [
     "Scenario", "Segment", "SlipEvent", "FloorPatch", "HeldEvent", "Incline", "straight", "arc", "turn_in_place", "pause",
-    "waypoint_route", "simulate", "SimResult", "segment_times", "segment_duration", "MOVING_MPS", "demo_scenario",
-    "square_scenario", "varied_drive_scenario", "DEMO_SEED", "COLD_ROOM_PATCH", "QUOKKA_JOINTS",
+    "waypoint_route", "simulate", "SimResult", "segment_times", "segment_duration", "MOVING_MPS", "QUOKKA_JOINTS",
     "QUOKKA_NOMINAL_RADIUS_M", "QUOKKA_NOMINAL_TRACK_M", "QUOKKA_TRUE_LEFT_RADIUS_M",
     "QUOKKA_TRUE_RIGHT_RADIUS_M", "QUOKKA_TRUE_TRACK_M", "DEMO_START_STAMP_NS",
 ]

@@ -37,9 +37,10 @@ from typing import Sequence
 
 import numpy as np
 
-from ..analysis.path import PlanarPath
+from ..core.path import PlanarPath
 from ..core.motion import wrap_angle
 from ..core.wheels import JointSamples
+from ..demo.quokka import quokka_urdf
 from .scenario import Scenario, Segment
 
 __all__ = ["SimResult", "simulate", "segment_times", "segment_duration", "MOVING_MPS"]
@@ -129,6 +130,12 @@ class SimResult:
         """The true poses as a PlanarPath in the odom frame."""
         return PlanarPath(self.stamp_ns.copy(), self.true_x_m.copy(), self.true_y_m.copy(),
                           self.true_yaw_rad.copy(), "odom")
+
+    def robot_description(self, base_frame: str = "base_link") -> str:
+        """URDF text of the simulated base with the scenario's nominal geometry (the demo cart's body)."""
+        sc = self.scenario
+        return quokka_urdf(sc.nominal_left_radius_m, sc.nominal_right_radius_m, sc.nominal_track_m,
+                           self.joint_names, base_frame, sc.wheelbase_m)
 
     def true_settings_values(self) -> dict[str, object]:
         """Dotted parameters with the true geometry (see ``Scenario.true_params``)."""

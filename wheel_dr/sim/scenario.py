@@ -37,18 +37,9 @@ __all__ = [
     "waypoint_route",
 ]
 
-# The demo cart (invented numbers, demo only): nominal design values and the "true" ones
-# (a worn tyre and a bent axle mount).
-QUOKKA_JOINTS = ("quokka_left_wheel_joint", "quokka_right_wheel_joint")
-QUOKKA_SKID_JOINTS = ("quokka_front_left_wheel_joint", "quokka_rear_left_wheel_joint",
-                      "quokka_front_right_wheel_joint", "quokka_rear_right_wheel_joint")
-QUOKKA_NOMINAL_RADIUS_M = 0.0825
-QUOKKA_NOMINAL_TRACK_M = 0.412
-QUOKKA_TRUE_LEFT_RADIUS_M = 0.0829
-QUOKKA_TRUE_RIGHT_RADIUS_M = 0.0822
-QUOKKA_TRUE_TRACK_M = 0.4185
-
-DEMO_START_STAMP_NS = 1_800_000_000 * 1_000_000_000  # 2027-01-15 08:00 UTC, an arbitrary start
+from ..demo.quokka import (DEMO_START_STAMP_NS, QUOKKA_JOINTS, QUOKKA_NOMINAL_RADIUS_M, QUOKKA_NOMINAL_TRACK_M,
+                           QUOKKA_SKID_JOINTS, QUOKKA_TRUE_LEFT_RADIUS_M, QUOKKA_TRUE_RIGHT_RADIUS_M,
+                           QUOKKA_TRUE_TRACK_M)
 
 SEGMENT_KINDS = ("straight", "arc", "turn", "pause")
 SLIP_KINDS = ("spin", "drag")

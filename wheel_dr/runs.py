@@ -19,11 +19,11 @@ from typing import Callable, Sequence
 
 import numpy as np
 
-from ..bags.reader import RunData, TruthSpec, read_run
-from ..bags.urdf import geometry_from_urdf
-from ..core import Settings, Trajectory, run
-from ..core.errors import InputError, WheelDrError
-from ..params import load_settings, parse_params_text
+from .bags.reader import RunData, TruthSpec, read_run
+from .bags.urdf import geometry_from_urdf
+from .core import Settings, Trajectory, run
+from .core.errors import InputError, WheelDrError
+from .params import load_settings, parse_params_text
 
 __all__ = ["SettingsFile", "load_settings_file", "settings_for_run", "replay_run", "ReplayResult",
            "compare_bags", "CompareResult", "Progress", "GEOMETRY_KEYS", "default_jobs"]
@@ -184,7 +184,7 @@ def _read(path: str, opts: dict) -> RunData:
 
 
 def _evaluate_one(data: RunData, sf: SettingsFile, label: str, opts: dict):
-    from .metrics import evaluate
+    from .analysis.metrics import evaluate
     res = replay_run(data, sf)
     ev = evaluate(res.trajectory, data.truth, res.settings, data.slip_truth_ns, bag=label, name=sf.name,
                   **({"slip_side": list(data.slip_side)} if data.slip_side is not None and len(data.slip_side) else {}))
@@ -231,7 +231,7 @@ def compare_bags(bags: Sequence[str], settings_files: Sequence[SettingsFile], *,
         raise InputError("two settings files have the same name; give files with different names.")
     opts = {"joint_topic": joint_topic, "imu_topic": imu_topic, "truth": truth, "use_imu": use_imu}
     if scheduler:
-        from ..fleet.commands import compare_on_cluster
+        from .fleet.commands import compare_on_cluster
         return compare_on_cluster(bags, settings_files, opts, scheduler, workers, progress)
     jobs = default_jobs() if jobs is None else max(1, int(jobs))
     labels = [_bag_label(b, bags) for b in bags]

@@ -10,11 +10,11 @@ import math
 
 import numpy as np
 
-from .drive import segment_duration, segment_times
-from .scenario import (FloorPatch, Scenario, Segment, SlipEvent, arc, pause, straight, turn_in_place,
+from ..sim.drive import segment_duration, segment_times
+from ..sim.scenario import (FloorPatch, Scenario, Segment, SlipEvent, arc, pause, straight, turn_in_place,
                        waypoint_route)
 
-__all__ = ["demo_scenario", "square_scenario", "varied_drive_scenario", "DEMO_SEED",
+__all__ = ["demo_scenario", "square_scenario", "varied_drive_scenario", "varied_route", "DEMO_SEED",
            "COLD_ROOM_PATCH", "DEMO_IMU_POSITION_M"]
 
 DEMO_SEED = 2027
@@ -126,3 +126,33 @@ def varied_drive_scenario(duration_s: float = 600.0, route_seed: int = 7, rate_h
         elapsed += segment_duration(seg, probe)
     return Scenario(name=f"varied_drive_{int(duration_s)}s", segments=tuple(segs), rate_hz=rate_hz,
                     description=f"Varied drive of {elapsed:.0f} s (route seed {route_seed}).", **scenario_fields)
+
+
+def varied_route(seed: int, duration_s: float = 600.0) -> tuple[Segment, ...]:
+    """About ``duration_s`` of straight runs (some backwards), arcs and turns on the spot both ways,
+    drawn from ``seed`` (the calibration tests' and benchmark's route; no steering towards home)."""
+    rng = np.random.default_rng(seed)
+    segs: list[Segment] = []
+    t = 0.0
+    while t < duration_s:
+        c = rng.random()
+        if c < 0.4:
+            length = float(rng.uniform(1.0, 5.0)) * (-1.0 if rng.random() < 0.15 else 1.0)
+            v = float(rng.uniform(0.3, 0.8))
+            segs.append(straight(length, v))
+            t += abs(length) / v + 1.0
+        elif c < 0.75:
+            angle = float(rng.uniform(0.5, 3.0)) * float(rng.choice([-1.0, 1.0]))
+            radius, v = float(rng.uniform(0.4, 3.0)), float(rng.uniform(0.2, 0.6))
+            segs.append(arc(angle, radius, v))
+            t += abs(angle) * radius / v + 1.0
+        elif c < 0.95:
+            angle = float(rng.uniform(0.4, 4.0)) * float(rng.choice([-1.0, 1.0]))
+            rate = float(rng.uniform(0.4, 1.2))
+            segs.append(turn_in_place(angle, rate))
+            t += abs(angle) / rate + 1.0
+        else:
+            d = float(rng.uniform(0.5, 2.0))
+            segs.append(pause(d))
+            t += d
+    return tuple(segs)
