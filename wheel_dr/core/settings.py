@@ -3,7 +3,7 @@
 Every parameter is a field of a section dataclass; its dotted name is ``section.field`` (for
 example ``wheels.track_width``), exactly as it appears under ``ros__parameters`` in the node's
 parameters file. The field's metadata holds the description, unit and allowed range, so the node
-declares its ROS 2 parameters, the README's reference table and validation all from one place.
+declares its ROS 2 parameters, the reference table in docs/parameters.md and validation all from one place.
 """
 from __future__ import annotations
 
@@ -63,7 +63,7 @@ class ParamSpec:
     length: int | None
 
     def range_text(self) -> str:
-        """Human-readable allowed range, for errors, the README and parameter descriptors."""
+        """Human-readable allowed range, for errors, docs/parameters.md and parameter descriptors."""
         if self.choices:
             return "one of " + ", ".join(self.choices)
         if self.lo is None and self.hi is None:
@@ -336,8 +336,8 @@ class Settings:
         for s in Settings.specs():
             if s.name == name:
                 return s
-        raise SettingsError(f"parameter '{name}' is not a wheel_dr parameter; see the README's parameter "
-                            "reference for the names.")
+        raise SettingsError(f"parameter '{name}' is not a wheel_dr parameter; see docs/parameters.md "
+                            "for the names.")
 
     # -- conversion ------------------------------------------------------------------------
     @classmethod

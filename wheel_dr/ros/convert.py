@@ -45,7 +45,7 @@ __all__ = [
 ]
 
 # Field order of the flags message (std_msgs/Float64MultiArray ``data``); see FLAGS_LABEL and
-# the README's field-by-field table. Booleans are 0.0 / 1.0, codes are whole numbers.
+# the field-by-field table in docs/node.md. Booleans are 0.0 / 1.0, codes are whole numbers.
 FLAG_FIELDS: tuple[str, ...] = (
     "stamp_sec",       # joint-state stamp, whole seconds (header.stamp.sec)
     "stamp_nanosec",   # joint-state stamp, nanoseconds part (header.stamp.nanosec)
