@@ -445,9 +445,10 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:   # also while modules are still importing
         print(f"{name}: interrupted; outputs not completed were not written.", file=sys.stderr)
         return 130
-    except ImportError:
-        # An interrupt inside a compiled module's import can surface as an ImportError of that
-        # module (numpy re-raises it so): still an interrupt, not a broken install.
+    except (ImportError, RuntimeError):
+        # An interrupt inside a compiled module's import (numpy re-raises it as ImportError) or
+        # inside a lock's wait (threading then fails to release it) surfaces as another error:
+        # still an interrupt, not a broken install.
         if not interrupted:
             raise
         print(f"{name}: interrupted; outputs not completed were not written.", file=sys.stderr)
