@@ -208,7 +208,20 @@ def parse_joint_state(raw: bytes) -> tuple[int, int, tuple[str, ...], tuple[floa
     return sec, nanosec, tuple(names), arrays[0], arrays[1]
 
 
-_IMU_WZ = struct.Struct("<d")
+_IMU_DOUBLES = 37  # orientation 4 + 9, angular velocity 3 + 9, linear acceleration 3 + 9
+
+
+def _imu_doubles(raw: bytes, count: int) -> tuple[float, ...]:
+    """The first ``count`` doubles after an Imu's header, bounds-checked, in either byte order."""
+    what = "imu message"
+    endian, u32, _, _ = _reader(raw, what)
+    n = _u32_at(raw, 12, u32, what)
+    if n < 1 or 16 + n > len(raw) or raw[15 + n] != 0:
+        raise CdrError(f"{what} frame_id length {n} does not fit the message")
+    pos = _align(16 + n, 8)
+    if pos + 8 * count > len(raw):
+        raise CdrError(f"{what} is shorter than an Imu message")
+    return struct.unpack_from(f"{endian}{count}d", raw, pos)
 
 
 def parse_imu_gyro_z(raw: bytes) -> tuple[float, bool]:
@@ -218,20 +231,8 @@ def parse_imu_gyro_z(raw: bytes) -> tuple[float, bool]:
     After header: orientation (4 doubles), its covariance (9), angular_velocity (3), its covariance (9).
     Little- or big-endian CDR; a buffer too short or not CDR raises CdrError (a ValueError).
     """
-    what = "imu message"
-    _, u32, _, f64 = _reader(raw, what)
-    n = _u32_at(raw, 12, u32, what)
-    if n < 1 or 16 + n > len(raw) or raw[15 + n] != 0:
-        raise CdrError(f"{what} frame_id length {n} does not fit the message")
-    pos = _align(16 + n, 8)
-    if pos + 8 * 17 > len(raw):
-        raise CdrError(f"{what} is shorter than an Imu message")
-    wz = f64.unpack_from(raw, pos + 8 * 15)[0]
-    cov0 = f64.unpack_from(raw, pos + 8 * 16)[0]
-    return wz, cov0 != -1.0
-
-
-_IMU_DOUBLES = 37  # orientation 4 + 9, angular velocity 3 + 9, linear acceleration 3 + 9
+    d = _imu_doubles(raw, 17)
+    return d[15], d[16] != -1.0
 
 
 def parse_imu_motion(raw: bytes) -> tuple[float, bool, float, bool, float]:
@@ -242,15 +243,7 @@ def parse_imu_motion(raw: bytes) -> tuple[float, bool, float, bool, float]:
     (``wheel_dr.core.slip_motion.up_x_from_quaternion``), NaN where the orientation is unknown.
     Little- or big-endian CDR; a buffer too short or not CDR raises CdrError (a ValueError).
     """
-    what = "imu message"
-    endian, u32, _, _ = _reader(raw, what)
-    n = _u32_at(raw, 12, u32, what)
-    if n < 1 or 16 + n > len(raw) or raw[15 + n] != 0:
-        raise CdrError(f"{what} frame_id length {n} does not fit the message")
-    pos = _align(16 + n, 8)
-    if pos + 8 * _IMU_DOUBLES > len(raw):
-        raise CdrError(f"{what} is shorter than an Imu message")
-    d = struct.unpack_from(f"{endian}{_IMU_DOUBLES}d", raw, pos)
+    d = _imu_doubles(raw, _IMU_DOUBLES)
     qx, qy, qz, qw, o_cov0 = d[0], d[1], d[2], d[3], d[4]
     wz, w_cov0 = d[15], d[16]
     ax, a_cov0 = d[25], d[28]
