@@ -1,9 +1,14 @@
-"""URDF geometry: the demo cart's description, and wheel radii and track read back from any URDF.
+"""URDF geometry: wheel radii and track (differential bases), or a wheel table's positions and radii, read from any URDF.
 
 Reading rule (URDF specification, wiki.ros.org/urdf/XML): a wheel's radius is the ``radius`` of the
 ``cylinder`` in its child link's collision (else visual) geometry; the track is the distance
 between the left and right wheel joints' origins along the base frame's y axis, with joint origins
 composed from ``xyz`` / ``rpy`` (fixed-axis roll, pitch, yaw) along the kinematic chain.
+
+Wheel tables (``table_geometry_from_urdf``): wheel i's contact point (x_i, y_i) is the origin of its
+spin joint (``drive.wheel_joints``) in the base frame, or of its steering joint
+(``drive.steer_joints``) for a wheel without an encoder; its radius is the cylinder of the spin
+joint's child link, or of the first link below the steering joint that has one.
 """
 from __future__ import annotations
 
@@ -16,7 +21,7 @@ import numpy as np
 
 from ..core.errors import InputError
 
-__all__ = ["UrdfGeometry", "geometry_from_urdf"]
+__all__ = ["UrdfGeometry", "geometry_from_urdf", "TableUrdfGeometry", "table_geometry_from_urdf"]
 
 
 @dataclass(frozen=True)
@@ -117,3 +122,101 @@ def geometry_from_urdf(text: str, left_joints: Sequence[str], right_joints: Sequ
         raise InputError("the robot description puts the left and right wheels at the same y; give "
                          "wheels.track_width in the parameters file.")
     return UrdfGeometry(lr, rr, track, tuple(left_joints), tuple(right_joints), root.get("name", ""))
+
+
+@dataclass(frozen=True)
+class TableUrdfGeometry:
+    """A wheel table's contact points (m, base frame) and radii (m) found in a URDF, one per wheel,
+    and the joint each wheel's numbers came from."""
+
+    wheel_x: tuple[float, ...]
+    wheel_y: tuple[float, ...]
+    wheel_radius: tuple[float, ...]
+    joints: tuple[str, ...]
+    robot_name: str = ""
+
+
+_TABLE_FIX = "give drive.wheel_x, drive.wheel_y and drive.wheel_radius in the parameters file"
+
+
+def table_geometry_from_urdf(text: str, wheel_joints: Sequence[str], steer_joints: Sequence[str] = (),
+                             base_frame: str = "base_link") -> TableUrdfGeometry:
+    """Contact points and radii of a wheel table's wheels in URDF ``text`` (see the module docstring).
+
+    ``wheel_joints`` / ``steer_joints`` are the table's arrays ('' for none; ``steer_joints`` may be
+    empty). Raises InputError naming what is missing and the fix.
+    """
+    try:
+        root = ET.fromstring(text)
+    except ET.ParseError:
+        raise InputError(f"the robot description is not valid URDF XML; {_TABLE_FIX}.") from None
+    links = {ln.get("name"): ln for ln in root.findall("link")}
+    joints = {j.get("name"): j for j in root.findall("joint")}
+    child_of: dict[str, str] = {}
+    parent_of: dict[str, str] = {}
+    children: dict[str, list[str]] = {}
+    for name, j in joints.items():
+        c, p = j.find("child"), j.find("parent")
+        if c is None or p is None or c.get("link") is None or p.get("link") is None:
+            raise InputError(f"joint '{name}' of the robot description lacks a parent or child link; fix the "
+                             f"robot description or {_TABLE_FIX}.")
+        child_of[name], parent_of[name] = c.get("link"), p.get("link")
+        children.setdefault(p.get("link"), []).append(c.get("link"))
+    by_child = {child_of[n]: joints[n] for n in joints}
+
+    def to_base(link_name: str) -> np.ndarray:
+        rot, pos = np.eye(3), np.zeros(3)
+        seen = set()
+        name = link_name
+        while name != base_frame and name in by_child and name not in seen:
+            seen.add(name)
+            j = by_child[name]
+            origin = j.find("origin")
+            xyz = _floats(origin.get("xyz") if origin is not None else None, 3, f"joint '{j.get('name')}' xyz")
+            rpy = _floats(origin.get("rpy") if origin is not None else None, 3, f"joint '{j.get('name')}' rpy")
+            r = _rpy_matrix(*rpy)
+            rot, pos = r @ rot, r @ pos + np.asarray(xyz)
+            name = parent_of[j.get("name")]
+        if name != base_frame:
+            raise InputError(f"link '{link_name}' of the robot description is not below '{base_frame}'; set "
+                             f"frames.base to the URDF's base link or {_TABLE_FIX}.")
+        return pos
+
+    def radius_below(link_name: str) -> float | None:
+        queue, seen = [link_name], set()
+        while queue:
+            name = queue.pop(0)
+            if name in seen:
+                continue
+            seen.add(name)
+            r = _cylinder_radius(links.get(name))
+            if r is not None:
+                return r
+            queue += children.get(name, [])
+        return None
+
+    steer = list(steer_joints) if len(steer_joints) else [""] * len(wheel_joints)
+    if len(steer) != len(wheel_joints):
+        raise InputError(f"drive.steer_joints has {len(steer)} entries but drive.wheel_joints has "
+                         f"{len(wheel_joints)}; give one entry per wheel.")
+    xs, ys, rs, used = [], [], [], []
+    for i, (spin, st) in enumerate(zip(wheel_joints, steer)):
+        name = spin or st
+        if not name:
+            raise InputError(f"wheel {i} of the table names neither a spin nor a steering joint, so the robot "
+                             f"description cannot place it; {_TABLE_FIX}.")
+        j = joints.get(name)
+        if j is None:
+            raise InputError(f"joint '{name}' is not in the robot description; fix drive.wheel_joints / "
+                             f"drive.steer_joints or {_TABLE_FIX}.")
+        child = child_of[name]
+        radius = _cylinder_radius(links.get(child)) if spin else radius_below(child)
+        if radius is None or not radius > 0:
+            raise InputError(f"wheel link '{child}' of joint '{name}' has no cylinder radius in the robot "
+                             f"description; {_TABLE_FIX}.")
+        pos = to_base(child)
+        xs.append(float(pos[0]))
+        ys.append(float(pos[1]))
+        rs.append(float(radius))
+        used.append(name)
+    return TableUrdfGeometry(tuple(xs), tuple(ys), tuple(rs), tuple(used), root.get("name", ""))
