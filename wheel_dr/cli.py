@@ -133,6 +133,8 @@ def _cmd_synth(args: argparse.Namespace) -> int:
     out = Path(args.out)
     if fmt == "ros1" and out.suffix != ".bag":
         raise UsageError(f"a ROS 1 bag must be a file ending in .bag; name the output '{out}.bag'.")
+    if args.base != "differential":
+        return _cmd_synth_table(args, out, fmt)
     sc = _scenario(args)
     result = simulate(sc, args.seed)
     write_bag(result, out, fmt, truth_stride=args.truth_stride, overwrite=args.overwrite)
@@ -141,6 +143,41 @@ def _cmd_synth(args: argparse.Namespace) -> int:
     _say(f"  true geometry: left radius {sc.true_left_radius_m} m, right radius {sc.true_right_radius_m} m, "
          f"track {sc.true_track_m} m (URDF carries the nominal {sc.nominal_left_radius_m} / "
          f"{sc.nominal_right_radius_m} / {sc.nominal_track_m} m)")
+    return 0
+
+
+BASE_KINDS = ("differential", "tricycle", "ackermann", "mecanum", "omni", "swerve")
+
+
+def params_path_for(out: Path) -> Path:
+    """The parameters file ``synth --base KIND`` writes beside bag ``out``: OUT.params.yaml (a .bag suffix dropped)."""
+    stem = out.name[:-4] if out.suffix == ".bag" else out.name
+    return out.with_name(f"{stem}.params.yaml")
+
+
+def _cmd_synth_table(args: argparse.Namespace, out: Path, fmt: str) -> int:
+    """synth --base KIND for a wheel table: the kind's invented vehicle on its default route."""
+    from .bags import write_bag
+    from .demo.vehicles import params_text, table_scenario, vehicle
+    from .sim.table import simulate_table
+    if args.scenario != "demo":
+        raise UsageError(f"--scenario {args.scenario} is for differential bases; a --base {args.base} drives its "
+                         "kind's default route (leave --scenario out).")
+    params = params_path_for(out)
+    if params.exists() and not args.overwrite:
+        raise UsageError(f"output '{params}' already exists; remove it or add --overwrite.")
+    v = vehicle(args.base)
+    sc = table_scenario(args.base, rate_hz=args.rate, laps=args.laps, noise=not args.no_noise, slip=not args.no_slip)
+    result = simulate_table(sc, args.seed)
+    write_bag(result, out, fmt, truth_stride=args.truth_stride, overwrite=args.overwrite, imu_accel=False, cmd=False)
+    _atomic_bytes(params, params_text(args.base, geometry=False, description=(
+        f"{v.name} ({args.base}) for the synthesised bag: joints and noise; positions and radii from its URDF.")).encode())
+    _say(f"wrote {out} ({fmt}): {v.name}, {v.role} ({args.base}, invented), seed {args.seed}, {len(result)} joint "
+         f"states at {sc.rate_hz:g} Hz, {result.t_s[-1]:.1f} s, {result.distance_m:.1f} m, "
+         f"{len(result.slip_intervals_ns)} slip intervals")
+    _say(f"wrote {params} (kind, joints and noise; wheel positions and radii come from the URDF in the bag); "
+         f"config/example_{args.base}.yaml gives the same vehicle's full nominal table")
+    _say(f"  replay: wheel-dr replay {out} --params {params}")
     return 0
 
 
@@ -324,6 +361,11 @@ def build_parser(command: str | None = None) -> argparse.ArgumentParser:
     p.add_argument("--no-slip", action="store_true", help="no slip events")
     p.add_argument("--no-noise", action="store_true", help="no random wheel error and a perfect gyro and accelerometer")
     p.add_argument("--overwrite", action="store_true", help="replace an existing output")
+    p.add_argument("--base", choices=BASE_KINDS, default="differential",
+                   help="drive kind: differential (the Quokka cart, default) or a wheel table, each an invented "
+                   "vehicle on its kind's default route (tricycle Wombat, ackermann Emu, mecanum Numbat, omni "
+                   "Bilby, swerve Quoll; spin and steering joints in one JointState, one wheel slipping); "
+                   "also writes OUT.params.yaml beside the bag")
     p.set_defaults(func=_cmd_synth)
 
     p = sub.add_parser("replay", help="run the estimator over a bag and write the trajectory",

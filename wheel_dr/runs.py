@@ -95,14 +95,30 @@ def settings_for_run(sf: SettingsFile, data: RunData) -> tuple[Settings, list[st
 def _table_settings_for_run(sf: SettingsFile, data: RunData) -> tuple[Settings, list[str]]:
     """Settings and notes for a wheel-table base (``drive.kind`` other than differential)."""
     s = sf.settings
+    s, filled = _table_geometry_from_urdf(s, data)
     model = s.drive_model()          # names the empty geometry array when the table is incomplete
     where = f"the parameters file ({sf.path})" if sf.path else "the defaults"
     notes = [f"geometry: {s.drive.kind} wheel table from {where}"]
+    if filled:
+        notes[0] += (f" and the URDF on {data.urdf_topic} ({', '.join(filled)}: the wheel joints' origins, the wheel "
+                     "links' cylinder radii)")
     for i, joint in enumerate(model.wheel_joints):
         steer = model.steer_joints[i]
         notes.append(f"  wheel {i} {joint or '(no encoder)'}{f' steered by {steer}' if steer else ''}: "
                      f"x {model.x[i]:.6g} m, y {model.y[i]:.6g} m, radius {model.radius[i]:.6g} m")
     return s, notes
+
+
+def _table_geometry_from_urdf(s: Settings, data: RunData) -> tuple[Settings, list[str]]:
+    """``s`` with the table's empty drive.wheel_x / wheel_y / wheel_radius filled from the bag's URDF
+    (``wheel_dr.bags.urdf.table_geometry_from_urdf``), and the names filled."""
+    d = s.drive
+    missing = [k for k in ("wheel_x", "wheel_y", "wheel_radius") if not getattr(d, k)]
+    if not missing or not data.urdf:
+        return s, []
+    from .bags.urdf import table_geometry_from_urdf
+    g = table_geometry_from_urdf(data.urdf, d.wheel_joints, d.steer_joints, s.frames.base)
+    return s.with_values({f"drive.{k}": list(getattr(g, k)) for k in missing}), missing
 
 
 @dataclass

@@ -86,7 +86,7 @@ VEHICLES: dict[str, TableVehicle] = {
         nominal=dict(wheel_joints=_j("numbat", "front_left_wheel", "front_right_wheel", "rear_left_wheel",
                                      "rear_right_wheel"),
                      wheel_x=[0.25, 0.25, -0.25, -0.25], wheel_y=[0.2, -0.2, 0.2, -0.2], wheel_radius=[0.05] * 4,
-                     roller_angle=[-_Q, _Q, _Q, -_Q]),
+                     roller_angle=[_Q, -_Q, -_Q, _Q]),
         true=dict(wheel_radius=[0.0503, 0.0498, 0.0501, 0.0497], wheel_y=[0.202, -0.202, 0.202, -0.202]),
         k_wheels=2e-5, slip_joint="numbat_rear_left_wheel_joint"),
     "omni": TableVehicle(
