@@ -29,6 +29,7 @@ __all__ = ["TableVehicle", "VEHICLES", "TABLE_KINDS", "vehicle", "default_legs",
 TABLE_KINDS = ("tricycle", "ackermann", "mecanum", "omni", "swerve")
 NUMBAT_SEED = 2028
 _Q = math.pi / 4
+_S3 = math.sqrt(3.0)
 
 
 @dataclass(frozen=True)
@@ -92,10 +93,9 @@ VEHICLES: dict[str, TableVehicle] = {
     "omni": TableVehicle(
         "Bilby", "omni", "the herbarium scanner's camera platform",
         nominal=dict(wheel_joints=_j("bilby", "wheel_a", "wheel_b", "wheel_c"),
-                     wheel_x=[0.2 * math.cos(a) for a in (0.0, 2 * math.pi / 3, 4 * math.pi / 3)],
-                     wheel_y=[0.2 * math.sin(a) for a in (0.0, 2 * math.pi / 3, 4 * math.pi / 3)],
-                     wheel_radius=[0.04] * 3,
-                     mount_angle=[a + math.pi / 2 for a in (0.0, 2 * math.pi / 3, 4 * math.pi / 3)],
+                     # 0.2 m from the centre at 0, 120 and 240 deg, rolling tangentially (pi/2, -5pi/6, -pi/6)
+                     wheel_x=[0.2, -0.1, -0.1], wheel_y=[0.0, _S3 / 10, -_S3 / 10], wheel_radius=[0.04] * 3,
+                     mount_angle=[math.pi / 2, -5 * math.pi / 6, -math.pi / 6],
                      roller_angle=[math.pi / 2] * 3),
         true=dict(wheel_radius=[0.0402, 0.0399, 0.0401]),
         k_wheels=2e-5, slip_joint="bilby_wheel_b_joint"),
