@@ -170,8 +170,8 @@ def _cmd_synth_table(args: argparse.Namespace, out: Path, fmt: str) -> int:
     sc = table_scenario(args.base, rate_hz=args.rate, laps=args.laps, noise=not args.no_noise, slip=not args.no_slip)
     result = simulate_table(sc, args.seed)
     write_bag(result, out, fmt, truth_stride=args.truth_stride, overwrite=args.overwrite, imu_accel=False, cmd=False)
-    _atomic_bytes(params, params_text(args.base, geometry=False, description=(
-        f"{v.name} ({args.base}) for the synthesised bag: joints and noise; positions and radii from its URDF.")).encode())
+    about = f"{v.name} ({args.base}) for the synthesised bag: joints and noise; positions and radii from its URDF."
+    _atomic_bytes(params, params_text(args.base, geometry=False, description=about).encode())
     _say(f"wrote {out} ({fmt}): {v.name}, {v.role} ({args.base}, invented), seed {args.seed}, {len(result)} joint "
          f"states at {sc.rate_hz:g} Hz, {result.t_s[-1]:.1f} s, {result.distance_m:.1f} m, "
          f"{len(result.slip_intervals_ns)} slip intervals")
@@ -222,7 +222,9 @@ def _cmd_replay(args: argparse.Namespace) -> int:
 
 # -- compare -------------------------------------------------------------------------------------
 def _cmd_compare(args: argparse.Namespace, title: str = "wheel_dr comparison", notes: Sequence[str] = (),
-                 extra_sections: Sequence = ()) -> int:
+                 extra_sections: Sequence = (), extra_runs: Sequence[tuple[Sequence[str], Sequence[str]]] = ()) -> int:
+    """compare; ``extra_runs`` (bags, parameters files) are compared on their own (another vehicle) and
+    added to the same summary and page."""
     from .runs import compare_bags, load_settings_file
     from .report import ranking_text, write_report, write_summary
     sfs = [load_settings_file(p) for p in (args.params or [None])]
@@ -231,6 +233,14 @@ def _cmd_compare(args: argparse.Namespace, title: str = "wheel_dr comparison", n
     res = compare_bags(args.bags, sfs, truth=args.truth, joint_topic=args.joint_topic, imu_topic=args.imu_topic,
                        use_imu=not args.no_imu, jobs=args.jobs, progress=not args.quiet,
                        scheduler=getattr(args, "scheduler", None), workers=getattr(args, "workers", None))
+    for more_bags, more_params in extra_runs:
+        more_sfs = [load_settings_file(p) for p in more_params]
+        more = compare_bags(list(more_bags), more_sfs, truth=args.truth, use_imu=not args.no_imu, jobs=args.jobs,
+                            progress=not args.quiet)
+        res.evaluations += more.evaluations
+        res.notes.update(more.notes)
+        res.bag_info.update(more.bag_info)
+        sfs += more_sfs
     for label, info in res.bag_info.items():
         _say(f"bag {label}: {info['samples']} joint states ({info['decode']} decoding, {info['decode_s']:.2f} s), "
              f"IMU {info['imu_topic'] or 'none'}, truth {info['truth']}, {info['slip_labels']} slip labels")
@@ -279,6 +289,40 @@ def _config_dir() -> Path:
 
 DEMO_CONFIGS = ("demo_nominal.yaml", "demo_corrected.yaml", "demo_motion_model.yaml", "demo_gyro.yaml")
 DEMO_CACHE_VERSION = 2
+DEMO_SECOND_CONFIG = "example_mecanum.yaml"     # the demo's second vehicle, the Numbat trolley
+DEMO_SECOND_CACHE_VERSION = 1
+
+
+def _demo_second_vehicle(out: Path, cfg: Path) -> tuple[Path, tuple]:
+    """The demo's second vehicle (the invented Numbat mecanum trolley): its cached bag and its report section."""
+    import numpy as np
+
+    from .bags import write_bag
+    from .demo.vehicles import NUMBAT_SEED, numbat_scenario, vehicle
+    from .report.vehicle_section import table_vehicle_section
+    from .sim.table import simulate_table
+    sc = numbat_scenario()
+    bag = out / "cache" / f"{sc.name}_s{NUMBAT_SEED}_v{DEMO_SECOND_CACHE_VERSION}"
+    sim = simulate_table(sc, NUMBAT_SEED)      # a fraction of a second: also feeds the section's figure
+    if not (bag / "metadata.yaml").is_file():
+        _say(f"synthesising the second demo vehicle (Numbat mecanum trolley, germination lab) into {bag}")
+        write_bag(sim, bag, "mcap", overwrite=True, imu_accel=False, cmd=False)
+    else:
+        _say(f"using the cached drive of the second demo vehicle {bag}")
+    v = vehicle("mecanum")
+    nominal = sc.nominal_table
+    resid = nominal.residual(sim.spin_travel_m())
+    t0 = sim.stamp_ns[0]
+    spans = [((a - t0) * 1e-9, (b - t0) * 1e-9, j) for (a, b), j in zip(sim.slip_intervals_ns.tolist(),
+                                                                       sim.slip_joint.tolist())]
+    intro = (f"A second invented vehicle of the seed bank: the {v.name}, {v.role}, a mecanum base "
+             f"(four wheels, rollers at 45 degrees) that strafes along the shelves, turns on the spot and backs up "
+             f"(the default mecanum route twice, {sim.t_s[-1]:.0f} s, {sim.distance_m:.1f} m); its rear-left wheel "
+             f"spins on spilled seed for 1.5 s. Replayed with config/{DEMO_SECOND_CONFIG} (nominal table); its true "
+             "radii and track differ a little.")
+    section = table_vehicle_section(f"Second vehicle: the {v.name} trolley ({nominal.kind})", intro, nominal,
+                                    sc.table, sim.t_s[1:], np.asarray(resid), spans, recording=bag.name)
+    return bag, section
 
 
 def _cmd_demo(args: argparse.Namespace) -> int:
@@ -299,13 +343,15 @@ def _cmd_demo(args: argparse.Namespace) -> int:
         _say("calibrating the demo cart from a simulated ten-minute drive (wheel-dr calibrate)")
         _, section = calibrate_cmd.demo_calibration()
         sections.append(section)
+    second_bag, second_section = _demo_second_vehicle(out, cfg)
+    sections.append(second_section)
     ns = argparse.Namespace(bags=[str(bag)], params=[str(cfg / c) for c in DEMO_CONFIGS], truth="/ground_truth",
                             joint_topic=None, imu_topic=None, no_imu=False, jobs=args.jobs, quiet=args.quiet,
                             out=str(out))
     return _cmd_compare(ns, title="wheel_dr demo: the Quokka cart's night round (invented scenario)",
-                        notes=["Demo data: the 'Quokka' cart and the 'Ferncliff Seed Bank' are invented; the numbers "
-                               "are demo-only."],
-                        extra_sections=sections)
+                        notes=["Demo data: the 'Quokka' cart, the 'Numbat' trolley and the 'Ferncliff Seed Bank' are "
+                               "invented; the numbers are demo-only."],
+                        extra_sections=sections, extra_runs=[([str(second_bag)], [str(cfg / DEMO_SECOND_CONFIG)])])
 
 
 # -- parser --------------------------------------------------------------------------------------

@@ -1,4 +1,4 @@
-"""URDF geometry: wheel radii and track (differential bases), or a wheel table's positions and radii, read from any URDF.
+"""URDF geometry: wheel radii and track, or a wheel table's contact points and radii, read from any URDF.
 
 Reading rule (URDF specification, wiki.ros.org/urdf/XML): a wheel's radius is the ``radius`` of the
 ``cylinder`` in its child link's collision (else visual) geometry; the track is the distance
