@@ -391,8 +391,8 @@ def build_parser(command: str | None = None) -> argparse.ArgumentParser:
                        "/joint_states, /imu (gyro and accelerometer with bias and noise, orientation), /cmd_vel "
                        "(geometry_msgs/Twist, the commanded speed), /ground_truth (nav_msgs/Odometry), "
                        "/robot_description (URDF, nominal geometry) and /ground_truth/slip (true slip intervals, "
-                       "diagnostic_msgs/DiagnosticArray). True radii and track differ from nominal. "
-                       "Deterministic for a given --seed.")
+                       "diagnostic_msgs/DiagnosticArray). True radii and track differ from nominal. With --base KIND a wheel-table "
+                       "vehicle of that kind instead (plus OUT.params.yaml). Deterministic for a given --seed.")
     p.add_argument("out", help="output bag: a directory for rosbag2, a file ending in .bag for --format ros1")
     p.add_argument("--scenario", choices=SCENARIOS, default="demo",
                    help="demo: the night round through the seed-bank aisles with a mopped patch (default); "
@@ -487,7 +487,9 @@ def build_parser(command: str | None = None) -> argparse.ArgumentParser:
                        "through the 'Ferncliff Seed Bank'; cached under DIR/cache), compare "
                        "config/demo_nominal.yaml, config/demo_corrected.yaml, config/demo_motion_model.yaml and "
                        "config/demo_gyro.yaml (gyro substitution while slipping) against its ground truth, add a calibration section (the demo cart calibrated from a simulated "
-                       "ten-minute drive), write the report and print where the page is.")
+                       "ten-minute drive), add the second vehicle (the invented 'Numbat' mecanum trolley, replayed with "
+                       "config/example_mecanum.yaml, its own recording and section), write the report and print where "
+                       "the page is.")
     p.add_argument("--out", metavar="DIR", help="output directory (default out/demo)")
     p.add_argument("--jobs", type=int, default=default_jobs(), help="worker processes (default: CPUs available)")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
