@@ -96,14 +96,18 @@ def test_demo_writes_the_report(tmp_path, capsys):
     page = tmp_path / "demo" / "index.html"
     assert f"report: {page.resolve()}" in text
     doc = json.loads((tmp_path / "demo" / "summary.json").read_text())
-    assert [r["settings"] for r in doc["rows"]] == ["demo_nominal", "demo_corrected", "demo_motion_model",
-                                                    "demo_gyro"]
-    rows = {r["settings"]: r for r in doc["rows"]}
+    quokka = [r for r in doc["rows"] if r["bag"].startswith("ferncliff_night_round")]
+    assert [r["settings"] for r in quokka] == ["demo_nominal", "demo_corrected", "demo_motion_model", "demo_gyro"]
+    # the second vehicle (the Numbat mecanum trolley) is its own recording with its example parameters
+    assert [(r["bag"].split("_s")[0], r["settings"]) for r in doc["rows"] if r not in quokka] == [
+        ("ferncliff_germination_lab_numbat", "example_mecanum")]
+    rows = {r["settings"]: r for r in quokka}
     # corrected geometry drifts less than the nominal one; gyro substitution leaves a smaller heading
     # error after the slip events than flags alone (gyrodometry, Borenstein & Feng 1996)
     assert rows["demo_corrected"]["drift_endpoint_pct"] < rows["demo_nominal"]["drift_endpoint_pct"]
     assert rows["demo_gyro"]["slip_heading_error_mean_deg"] < rows["demo_corrected"]["slip_heading_error_mean_deg"]
     assert "<h2>Calibration" in page.read_text()
+    assert "<h2>Second vehicle: the Numbat trolley (mecanum)</h2>" in page.read_text()
     assert main(["demo", "--out", str(tmp_path / "demo"), "--quiet", "--no-calibration"]) == 0   # cached now
     assert "using the cached demo drive" in capsys.readouterr().out
 
