@@ -18,6 +18,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from rosbags.highlevel import AnyReader
 from scipy.linalg import expm
 from scipy.stats import chi2
 
@@ -201,6 +202,13 @@ def test_synth_base_mecanum_writes_a_bag_that_replay_reads(tmp_path, capsys):
     np.testing.assert_allclose(rows["x"], ref.x_m, rtol=0, atol=1e-8)
     np.testing.assert_allclose(rows["y"], ref.y_m, rtol=0, atol=1e-8)
     np.testing.assert_allclose(rows["vy"], ref.vy_mps, rtol=0, atol=1e-8)
+    # the bag's ground truth carries the lateral speed (nav_msgs/Odometry twist.linear.y, base frame)
+    with AnyReader([bag]) as reader:
+        conns = [c for c in reader.connections if c.topic == "/ground_truth"]
+        truth = [(t, reader.deserialize(raw, c.msgtype).twist.twist.linear.y) for c, t, raw in reader.messages(conns)]
+    at = np.searchsorted(sim.stamp_ns, [t for t, _ in truth])
+    np.testing.assert_allclose([vy for _, vy in truth], sim.true_vy_mps[at], rtol=0, atol=1e-12)
+    assert max(abs(vy) for _, vy in truth) > 0.25
     # and it follows the truth up to the nominal-against-true geometry (radii 0.6 %, y 1 %)
     end = math.hypot(rows["x"][-1] - sim.true_x_m[-1], rows["y"][-1] - sim.true_y_m[-1])
     assert end < 0.03 * sim.distance_m

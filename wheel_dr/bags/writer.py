@@ -8,7 +8,7 @@ Topics (defaults; see ``DEFAULT_TOPICS``):
   orientation (yaw and pitch, covariance diag(1e-4)); with ``imu_accel=False`` orientation and
   linear acceleration are marked unknown (covariance[0] = -1, the message definition's convention);
 * ``/cmd_vel``       geometry_msgs/Twist: the commanded speed and yaw rate (``cmd=False``: none);
-* ``/ground_truth``  nav_msgs/Odometry: true pose in ``odom``, twist (v, w) in ``base_link``;
+* ``/ground_truth``  nav_msgs/Odometry: true pose in ``odom``, twist (v, w; and vy for wheel tables) in ``base_link``;
 * ``/robot_description`` std_msgs/String: the cart's URDF (nominal geometry), one message at the
   start, offered transient-local (rosbag2) / latched (ROS 1);
 * ``/ground_truth/slip`` diagnostic_msgs/DiagnosticArray: one message per true slip interval,
@@ -156,9 +156,11 @@ def _messages(sim, ts, ros1: bool, topics: Mapping[str, str], truth_stride: int,
         p0 = lay.fields["pose"][0]
         quat = yaw_to_quaternion_array(sim.true_theta_rad[pick])
         tw0 = p0 + 56 + 288
-        rows = _fill(template, len(pick), stamps[pick], lay.sec_offset, lay.nsec_offset, ros1,
-                     {p0: sim.true_x_m[pick], p0 + 8: sim.true_y_m[pick], p0 + 40: quat[:, 2],
-                      p0 + 48: quat[:, 3], tw0: sim.true_v_mps[pick], tw0 + 40: sim.true_w_radps[pick]})
+        cols = {p0: sim.true_x_m[pick], p0 + 8: sim.true_y_m[pick], p0 + 40: quat[:, 2],
+                p0 + 48: quat[:, 3], tw0: sim.true_v_mps[pick], tw0 + 40: sim.true_w_radps[pick]}
+        if getattr(sim, "true_vy_mps", None) is not None:      # wheel tables: the lateral speed too
+            cols[tw0 + 8] = sim.true_vy_mps[pick]
+        rows = _fill(template, len(pick), stamps[pick], lay.sec_offset, lay.nsec_offset, ros1, cols)
         out.append((topics["truth"], "nav_msgs/msg/Odometry", False, list(zip(stamps[pick].tolist(), _rows(rows)))))
     if description:
         text = urdf if urdf is not None else sim.robot_description(base_frame)
