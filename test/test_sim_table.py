@@ -191,6 +191,8 @@ def test_synth_base_mecanum_writes_a_bag_that_replay_reads(tmp_path, capsys):
     assert main(["replay", str(bag), "--params", str(params), "--out", str(out)]) == 0
     text = capsys.readouterr().out
     assert "and the URDF on /robot_description (wheel_x, wheel_y, wheel_radius" in text
+    shown = float(text.split("wheel distance ")[1].split(" m")[0])      # mean travel of the four wheels
+    assert shown > 5.0
     rows = np.genfromtxt(out / "trajectory.csv", delimiter=",", names=True)
     # the replayed trajectory equals the core run on the simulator's readings with the nominal table
     # given in full (config/example_mecanum.yaml): the URDF filled the same geometry

@@ -205,6 +205,8 @@ def _cmd_replay(args: argparse.Namespace) -> int:
     used = int(np.count_nonzero(traj.status < 10))
     skipped = {k: v for k, v in traj.counters.items() if v and k not in ("used",)}
     dist = float(np.sum(np.abs(traj.travel.ds_left_m + traj.travel.ds_right_m)) / 2)
+    if res.settings.drive.kind != "differential" and traj.travel.joint_travel_m is not None:
+        dist = float(np.mean(np.sum(np.abs(traj.travel.joint_travel_m), axis=0)))   # tables: mean wheel travel
     _say(f"samples used {used} of {len(data)}; " + ", ".join(f"{k} {v}" for k, v in skipped.items()))
     _say(f"end pose x {traj.x_m[-1]:.3f} m, y {traj.y_m[-1]:.3f} m, yaw {traj.yaw_rad[-1]:.4f} rad "
          f"(sd {np.sqrt(traj.cov[-1, 0, 0]):.3f} m, {np.sqrt(traj.cov[-1, 1, 1]):.3f} m, "
