@@ -18,6 +18,7 @@ import numpy as np
 from .motion import body_increment, integrate, pose_increment_scalar, wrap_angle, wrap_angle_scalar
 from .noise import (UNOBSERVED_VARIANCE, increment_noise, increment_noise_floats, propagate_covariance,
                     propagate_step_floats)
+from .estimator_table import TableStepper, run_table
 from .settings import Settings
 from .slip import SlipMonitor, SlipResult, SlipStep, detect_slip
 from .slip_motion import MotionInputs
@@ -40,7 +41,9 @@ class Trajectory:
 
     Pose (x, y in metres, yaw in rad wrapped to (-pi, pi]) and covariance (M, 3, 3) over
     (x, y, yaw) are in the odom frame; twist (v m/s, w rad/s) and its covariance (M, 2, 2) in the
-    base frame.
+    base frame. For wheel tables (``drive.kind`` other than differential) ``v_mps`` is vx,
+    ``vy_mps`` the lateral speed and ``twist_cov`` (M, 3, 3) over (vx, vy, wz); differential
+    bases have ``vy_mps`` zero.
     """
 
     index: np.ndarray
@@ -60,6 +63,11 @@ class Trajectory:
     # (M, 3, 3) step noise Q_k (odom frame) the covariance was propagated with; metrics use it to
     # restart the covariance at segment starts (NEES). None when not recorded.
     step_noise: np.ndarray | None = None
+    vy_mps: np.ndarray | None = None   # (M,) lateral speed, base frame (zeros for differential drive)
+
+    def __post_init__(self) -> None:
+        if self.vy_mps is None:
+            self.vy_mps = np.zeros(len(self.stamp_ns))
 
     def __len__(self) -> int:
         return int(len(self.stamp_ns))
@@ -96,6 +104,8 @@ def run_travel(travel: Travel, settings: Settings, start_pose: Sequence[float] =
                accel_x_mps2: np.ndarray | None = None, up_x: np.ndarray | None = None,
                cmd_v_mps: np.ndarray | None = None) -> Trajectory:
     """Estimate from wheel travel already computed (IMU and command given per accepted sample)."""
+    if settings.drive.kind != "differential":
+        return run_table(travel, settings, start_pose, start_cov, gyro_z_radps)
     b = settings.wheels.track_width
     dl, dr, dt = travel.ds_left_m, travel.ds_right_m, travel.dt_s
     ds, dth = body_increment(dl, dr, b)
@@ -134,6 +144,7 @@ class Estimator:
         self.settings = settings
         self._tracker = TravelTracker(settings)
         self._slip = SlipMonitor(settings)
+        self._table = TableStepper(settings) if settings.drive.kind != "differential" else None
         self.counters: dict[str, int] = {s.name.lower(): 0 for s in SampleStatus}
         self.last_slip = SlipStep()  # slip outcome of the last accepted sample (none yet: all clear)
         self.reset(start_pose, start_cov)
@@ -146,6 +157,8 @@ class Estimator:
         self.v_mps = 0.0
         self.w_radps = 0.0
         self._twist = _UNOBSERVED_TWIST_FLOATS
+        if self._table is not None:
+            self._table.reset_twist()
 
     @property
     def cov(self) -> np.ndarray:
@@ -159,15 +172,23 @@ class Estimator:
 
     @property
     def twist_cov(self) -> np.ndarray:
-        """(2, 2) covariance of (v, w), base frame (a new array)."""
+        """(2, 2) covariance of (v, w), base frame (a new array); (3, 3) over (vx, vy, wz) for wheel tables."""
+        if self._table is not None:
+            return _sym3(self._table.twist6)
         t00, t01, t11 = self._twist
         return np.array([[t00, t01], [t01, t11]])
+
+    @property
+    def vy_mps(self) -> float:
+        """Lateral speed (m/s, base frame); 0 for differential drive."""
+        return 0.0 if self._table is None else self._table.vy_mps
 
     def update_settings(self, settings: Settings) -> None:
         """Use new settings from the next sample on; pose and covariance are kept, the chain restarts."""
         self.settings = settings
         self._tracker = TravelTracker(settings)
         self._slip = SlipMonitor(settings)
+        self._table = TableStepper(settings) if settings.drive.kind != "differential" else None
 
     @property
     def yaw_rad(self) -> float:
@@ -195,6 +216,10 @@ class Estimator:
         """
         status, dt, dl, dr = self._tracker.step(stamp_ns, names, positions, velocities)
         if status >= 10:
+            self.counters[status.name.lower()] += 1
+            return status
+        if self._table is not None:
+            self.last_slip = self._table.step(self, self._tracker, status, dt, gyro_z_radps)
             self.counters[status.name.lower()] += 1
             return status
         s = self.settings

@@ -27,19 +27,23 @@ __all__ = [
     "INTEGRATION_SCHEMES",
     "NOISE_MODELS",
     "WHEEL_SOURCES",
+    "DRIVE_KINDS",
+    "DriveSettings",
 ]
 
 INTEGRATION_SCHEMES = ("euler", "midpoint", "exact")
 NOISE_MODELS = ("per_wheel", "motion_model")
 WHEEL_SOURCES = ("position", "velocity", "ticks")
+DRIVE_KINDS = ("differential", "tricycle", "ackermann", "mecanum", "omni", "swerve", "custom")
 
 
 def _p(default: Any, description: str, unit: str = "", lo: float | None = None,
        hi: float | None = None, choices: tuple[str, ...] | None = None,
-       lo_open: bool = False, hi_open: bool = False, length: int | None = None) -> Any:
-    """A dataclass field carrying its parameter documentation and range."""
+       lo_open: bool = False, hi_open: bool = False, length: int | None = None, blank: bool = False) -> Any:
+    """A dataclass field carrying its parameter documentation and range (``blank``: a list of
+    names that may be empty and may hold '' entries)."""
     meta = dict(description=description, unit=unit, lo=lo, hi=hi, choices=choices,
-                lo_open=lo_open, hi_open=hi_open, length=length)
+                lo_open=lo_open, hi_open=hi_open, length=length, blank=blank)
     if isinstance(default, (list, tuple)):
         value = tuple(default)
         return field(default_factory=lambda: value, metadata=meta)
@@ -61,6 +65,7 @@ class ParamSpec:
     lo_open: bool
     hi_open: bool
     length: int | None
+    blank: bool = False
 
     def range_text(self) -> str:
         """Human-readable allowed range, for errors, docs/parameters.md and parameter descriptors."""
@@ -68,6 +73,8 @@ class ParamSpec:
             return "one of " + ", ".join(self.choices)
         if self.lo is None and self.hi is None:
             if self.kind is tuple:
+                if self.blank:
+                    return "list of names, '' for none"
                 return "list of names" if self.length is None else f"list of {self.length} numbers"
             return "any" if self.kind is not bool else "true or false"
         lo = "-inf" if self.lo is None else f"{self.lo:g}"
@@ -99,6 +106,10 @@ class ParamSpec:
             if self.length is not None and len(items) != self.length:
                 raise SettingsError(
                     f"{where} has {len(items)} values; it needs exactly {self.length}.")
+            if self.lo is None and self.hi is None and self.blank:  # names, '' for none, may be empty
+                if not all(isinstance(i, str) for i in items):
+                    raise SettingsError(f"{where} is {list(items)!r}; it must list joint names ('' for none).")
+                return items
             if self.lo is None and self.hi is None:  # a list of names
                 if not items or not all(isinstance(i, str) and i for i in items):
                     raise SettingsError(
@@ -149,6 +160,39 @@ class WheelSettings:
     counter_bits: int = _p(0, "Width of the hardware tick counter that rolls over (16, 32, ...); "
                            "0 means counts never roll over.", "bits", 0, 64)
 
+_TABLE_GEOMETRY = ("wheel_x", "wheel_y", "wheel_radius")
+
+
+@dataclass(frozen=True)
+class DriveSettings:
+    """The drive geometry as a table of wheels, one entry per wheel in every array (see docs/drive_models.md).
+
+    With ``kind`` 'differential' (the default) the table is empty and the wheels.* parameters
+    describe the base (skid steer included); every other kind reads the table.
+    """
+
+    kind: str = _p("differential", "Drive geometry: 'differential' (two sides, the wheels.* parameters; skid steer "
+                   "included), or a table of wheels: 'tricycle', 'ackermann' (car-like), 'mecanum', 'omni', "
+                   "'swerve' or 'custom' (any table that determines the motion).", choices=DRIVE_KINDS)
+    wheel_joints: tuple[str, ...] = _p((), "Spin joint of each wheel of the table ('' for a wheel without an "
+                                       "encoder); positions are differenced like the wheels.* joints.", blank=True)
+    steer_joints: tuple[str, ...] = _p((), "Steering joint of each wheel ('' for a fixed wheel); its readings are "
+                                       "angles, not differenced. May be left empty when no wheel steers.", blank=True)
+    wheel_x: tuple[float, ...] = _p((), "Contact point of each wheel in the base frame, x forward (REP 103); "
+                                    "filled from the URDF where left empty.", "m", -50.0, 50.0)
+    wheel_y: tuple[float, ...] = _p((), "Contact point of each wheel in the base frame, y left (REP 103); "
+                                    "filled from the URDF where left empty.", "m", -50.0, 50.0)
+    wheel_radius: tuple[float, ...] = _p((), "Effective rolling radius of each wheel; filled from the URDF where "
+                                         "left empty.", "m", 0.001, 5.0)
+    mount_angle: tuple[float, ...] = _p((), "Rolling direction of each wheel at zero steering in the base frame, "
+                                        "counter-clockwise from x (0 = forward); empty: all 0.", "rad",
+                                        -2.0 * math.pi, 2.0 * math.pi)
+    roller_angle: tuple[float, ...] = _p((), "0 for a standard wheel; otherwise the free direction of its rollers "
+                                         "from its rolling direction, counter-clockwise (+-pi/4 mecanum, pi/2 "
+                                         "omni); empty: all 0.", "rad", -0.5 * math.pi, 0.5 * math.pi)
+    steer_offset: tuple[float, ...] = _p((), "Steering joint reading at which the wheel rolls along its mount "
+                                         "angle; empty: all 0.", "rad", -math.pi, math.pi)
+
 
 @dataclass(frozen=True)
 class FrameSettings:
@@ -173,6 +217,11 @@ class NoiseSettings:
         "Motion model alpha1..alpha4: rotation from rotation (rad^2/rad^2), rotation from translation "
         "(rad^2/m^2), translation from translation (m^2/m^2), translation from rotation (m^2/rad^2).",
         "", 0.0, 10.0, length=4)
+    k_wheels: tuple[float, ...] = _p((5e-4,), "Wheel tables (drive.kind other than differential): variance of a "
+                                     "wheel's travel per metre travelled, one value for every wheel or one per "
+                                     "wheel.", "m", 0.0, 1.0)
+    steer_sd_rad: float = _p(0.005, "Wheel tables: standard deviation of one steering joint reading.", "rad",
+                             0.0, 1.0)
 
 
 @dataclass(frozen=True)
@@ -183,6 +232,10 @@ class LimitSettings:
                           "(the pose is kept, the increment across the gap is dropped).", "s", 0.001, 3600.0)
     max_wheel_speed_mps: float = _p(5.0, "A wheel surface speed above this is an encoder jump or glitch: "
                                     "the increment is dropped and the chain restarts.", "m/s", 0.001, 1000.0)
+    max_steer_rate_radps: float = _p(10.0, "Wheel tables: a steering joint turning faster than this between "
+                                     "samples is a reading glitch: the increment is dropped and the chain "
+                                     "restarts (steering angles are not differenced, so the wheel-speed limit "
+                                     "does not apply to them).", "rad/s", 0.001, 10000.0)
 
 
 @dataclass(frozen=True)
@@ -287,6 +340,7 @@ class ImuSettings:
 
 SECTIONS: dict[str, type] = {
     "wheels": WheelSettings,
+    "drive": DriveSettings,
     "frames": FrameSettings,
     "integration": str,  # a top-level scalar, see Settings.integration
     "noise": NoiseSettings,
@@ -307,6 +361,7 @@ class Settings:
     """All estimator, node and analyser settings; build with ``Settings.from_flat`` to validate."""
 
     wheels: WheelSettings = field(default_factory=WheelSettings)
+    drive: DriveSettings = field(default_factory=DriveSettings)
     frames: FrameSettings = field(default_factory=FrameSettings)
     integration: str = "exact"
     noise: NoiseSettings = field(default_factory=NoiseSettings)
@@ -397,11 +452,49 @@ class Settings:
         if len(set(left)) != len(left) or len(set(right)) != len(right):
             raise SettingsError("a joint is listed twice in wheels.left_joints or wheels.right_joints; "
                                 "list each joint once.")
+        self._check_drive()
         s = self.slip
         if 0.0 < s.long_window_s < s.window_s:
             raise SettingsError(f"parameter 'slip.long_window_s' is {s.long_window_s:g} s, shorter than "
                                 f"slip.window_s ({s.window_s:g} s); set it to 0 (off) or at least slip.window_s.")
         self._check_derived()
+
+    def _check_drive(self) -> None:
+        """A table kind builds its wheel table (one sentence on what does not fit); differential has none."""
+        d = self.drive
+        if d.kind == "differential":
+            given = [f"drive.{f.name}" for f in dataclasses.fields(d) if f.name != "kind" and getattr(d, f.name)]
+            if given:
+                raise SettingsError(f"{given[0]} is set but drive.kind is 'differential' (which uses the wheels.* "
+                                    "parameters); set drive.kind to the base's kind or remove the drive table.")
+            return
+        if all(getattr(d, name) for name in _TABLE_GEOMETRY):   # else the URDF may fill it (drive_model says what is missing)
+            object.__setattr__(self, "_drive_model", self._build_drive_model())
+
+    def _build_drive_model(self):
+        from .drive.table import WheelTable   # the core's own drive package (no cycle: it needs only errors)
+
+        d, n = self.drive, self.noise
+        for name in _TABLE_GEOMETRY:
+            if not getattr(d, name):
+                raise SettingsError(f"parameter 'drive.{name}' is empty; give one value per wheel of drive.wheel_joints "
+                                    "(or let the URDF in the bag fill it).")
+        k = n.k_wheels[0] if len(n.k_wheels) == 1 else n.k_wheels
+        return WheelTable(d.kind, d.wheel_joints, d.wheel_x, d.wheel_y, d.wheel_radius,
+                          steer_joints=d.steer_joints or None, mount_angle=d.mount_angle or None,
+                          roller_angle=d.roller_angle or None, steer_offset=d.steer_offset or None,
+                          k_wheels=k, steer_sd_rad=n.steer_sd_rad)
+
+    def drive_model(self):
+        """The ``core.drive.WheelTable`` of a table kind (built once, at validation), None for 'differential'.
+
+        Raises SettingsError naming the empty geometry array when a table kind's positions or radii
+        were left for a URDF to fill and nothing filled them.
+        """
+        if self.drive.kind == "differential":
+            return None
+        model = getattr(self, "_drive_model", None)
+        return model if model is not None else self._build_drive_model()
 
     def _check_derived(self) -> None:
         """Quantities the core divides by or multiplies with must be finite and positive (no under- or overflow)."""

@@ -41,6 +41,7 @@ __all__ = [
     "JointSamples",
     "Travel",
     "wheel_travel",
+    "joint_layout",
     "TravelTracker",
     "radians_per_unit",
     "wrap_difference",
@@ -131,30 +132,61 @@ class Travel:
     ds_right_m: np.ndarray
     restart: np.ndarray    # (M,) bool: increment dropped, chain restarts here
     status: np.ndarray     # (N,) SampleStatus code of every input sample
-    joint_travel_m: np.ndarray | None = None  # (M, J) per joint, left joints first, then right
+    joint_travel_m: np.ndarray | None = None  # (M, J) per joint, left joints first, then right (tables: encoder wheels)
+    steer_rad: np.ndarray | None = None       # (M, T) steering reading of each step (wheel tables), else None
 
 
-def _columns(names: Sequence[str], wanted: Sequence[str]) -> list[int]:
+def _columns(names: Sequence[str], wanted: Sequence[str], where: str) -> list[int]:
     index = {n: i for i, n in enumerate(names)}
     missing = [n for n in wanted if n not in index]
     if missing:
         raise InputError(
             f"configured joint '{missing[0]}' is not among the joint states' names ({', '.join(names) or 'none'}); "
-            "fix wheels.left_joints / wheels.right_joints in the parameters file.")
+            f"fix {where} in the parameters file.")
     return [index[n] for n in wanted]
 
 
+def joint_layout(settings: Settings) -> tuple[tuple[str, ...], tuple[float, ...], tuple[str, ...], int]:
+    """The joints the settings read: spin joints (travel is differenced, in order: left then right
+    for differential, the table's encoder wheels otherwise), their radii, steering joints (angles,
+    table kinds only) and the number of left joints (differential; 0 for tables)."""
+    model = settings.drive_model()
+    w = settings.wheels
+    if model is None:
+        spin = tuple(w.left_joints) + tuple(w.right_joints)
+        radius = (w.left_radius,) * len(w.left_joints) + (w.right_radius,) * len(w.right_joints)
+        return spin, radius, (), len(w.left_joints)
+    spin = tuple(j for j in model.wheel_joints if j)
+    return spin, tuple(float(r) for r in model.radius[model.spin]), tuple(j for j in model.steer_joints if j), 0
+
+
 def wheel_travel(samples: JointSamples, settings: Settings) -> Travel:
-    """Per-side wheel travel of a whole run, vectorised (same rules as ``TravelTracker.step``)."""
+    """Per-side wheel travel of a whole run, vectorised (same rules as ``TravelTracker.step``).
+
+    For wheel tables (``drive.kind`` other than differential) ``joint_travel_m`` holds the travel of
+    each encoder wheel and ``steer_rad`` the steering reading of each step (the mean of its start
+    and end readings); the per-side travel is zero. A steering joint turning faster than
+    ``limits.max_steer_rate_radps`` over a step is a jump like a wheel speed beyond its limit.
+    """
     w = settings.wheels
     n = len(samples)
-    left_cols = _columns(samples.names, w.left_joints)
-    right_cols = _columns(samples.names, w.right_joints)
-    cols = left_cols + right_cols
-    nl = len(left_cols)
+    spin_names, radii, steer_names, nl = joint_layout(settings)
+    where = "drive.wheel_joints / drive.steer_joints" if steer_names or not nl else \
+        "wheels.left_joints / wheels.right_joints"
+    spin_cols = _columns(samples.names, spin_names, where)
+    steer_cols = _columns(samples.names, steer_names, where)
+    cols = spin_cols + steer_cols
+    ns = len(spin_cols)
     stamp = np.asarray(samples.stamp_ns, dtype=np.int64)
     values = samples.velocity if w.source == "velocity" else samples.position
-    values = np.asarray(values, dtype=np.float64)[:, cols] if n else np.zeros((0, len(cols)))
+    values = np.asarray(values, dtype=np.float64)[:, spin_cols] if n else np.zeros((0, ns))
+    if steer_cols:
+        steer_vals = np.asarray(samples.position, dtype=np.float64)[:, steer_cols] if n else \
+            np.zeros((0, len(steer_cols)))
+        needed = np.hstack([values, steer_vals])
+    else:
+        steer_vals = None
+        needed = values
 
     status = np.zeros(n, dtype=np.int8)
     skipped = np.zeros(n, dtype=bool)
@@ -169,7 +201,7 @@ def wheel_travel(samples: JointSamples, settings: Settings) -> Travel:
     mark(stamp <= 0, SampleStatus.BAD_STAMP)
     if samples.present is not None:
         mark(~np.asarray(samples.present, dtype=bool)[:, cols].all(axis=1), SampleStatus.MISSING_JOINT)
-    mark(~np.isfinite(values).all(axis=1), SampleStatus.NON_FINITE)
+    mark(~np.isfinite(needed).all(axis=1), SampleStatus.NON_FINITE)
     # A candidate is accepted when its stamp exceeds every earlier candidate's stamp: the running
     # maximum of accepted stamps equals that of all candidates, since rejected ones never exceed it.
     cand = np.flatnonzero(~skipped)
@@ -185,7 +217,7 @@ def wheel_travel(samples: JointSamples, settings: Settings) -> Travel:
     dt = np.zeros(m)
     if m > 1:
         dt[1:] = (st[1:] - st[:-1]) * 1e-9
-    radius = np.array([w.left_radius] * nl + [w.right_radius] * (len(cols) - nl))
+    radius = np.array(radii)
     dphi = np.zeros_like(vals)
     with np.errstate(over="ignore", invalid="ignore"):   # overflowing differences become jumps below
         if m > 1:
@@ -198,6 +230,15 @@ def wheel_travel(samples: JointSamples, settings: Settings) -> Travel:
                     d = wrap_difference(d, period)
                 dphi[1:] = d * radians_per_unit(settings)
         travel = dphi * radius
+    steer = None
+    dsteer = None
+    if steer_vals is not None:
+        sv = steer_vals[acc]
+        steer = sv.copy()
+        if m > 1:
+            with np.errstate(over="ignore", invalid="ignore"):
+                dsteer = wrap_difference(sv[1:] - sv[:-1], TWO_PI)
+                steer[1:] = sv[:-1] + 0.5 * dsteer
     restart = np.zeros(m, dtype=bool)
     kind = np.full(m, SampleStatus.USED, dtype=np.int8)
     if m:
@@ -207,16 +248,23 @@ def wheel_travel(samples: JointSamples, settings: Settings) -> Travel:
         with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
             # "not <=" so that a NaN travel (inf - inf, a wrapped inf) is a jump too
             jump = ~(np.abs(travel) <= settings.limits.max_wheel_speed_mps * dt[:, None]).all(axis=1)
+            if dsteer is not None:
+                jump[1:] |= ~(np.abs(dsteer) <= settings.limits.max_steer_rate_radps * dt[1:, None]).all(axis=1)
         jump[0] = False
         jump &= ~gap
         kind[gap] = SampleStatus.GAP
         kind[jump] = SampleStatus.JUMP
         restart = kind != SampleStatus.USED
         travel[restart] = 0.0
+        if steer is not None:
+            steer[restart] = steer_vals[acc][restart]
     status[acc] = kind
-    ds_left = travel[:, :nl].sum(axis=1) / nl
-    ds_right = travel[:, nl:].sum(axis=1) / (len(cols) - nl)
-    return Travel(acc, st, dt, ds_left, ds_right, restart, status, travel)
+    if nl:
+        ds_left = travel[:, :nl].sum(axis=1) / nl
+        ds_right = travel[:, nl:].sum(axis=1) / (len(spin_cols) - nl)
+    else:
+        ds_left = ds_right = np.zeros(m)
+    return Travel(acc, st, dt, ds_left, ds_right, restart, status, travel, steer)
 
 
 class TravelTracker:
@@ -225,9 +273,13 @@ class TravelTracker:
     def __init__(self, settings: Settings) -> None:
         self.settings = settings
         w = settings.wheels
-        self._wanted = tuple(w.left_joints) + tuple(w.right_joints)
-        self._nl = len(w.left_joints)
-        self._radius = [w.left_radius] * self._nl + [w.right_radius] * len(w.right_joints)
+        spin, radii, steer, self._nl = joint_layout(settings)
+        self._wanted = spin + steer
+        self._nspin = len(spin)
+        self._nsteer = len(steer)
+        self._radius = list(radii)
+        self._max_steer = settings.limits.max_steer_rate_radps
+        self.steer_rad: list[float] = [0.0] * len(steer)   # steering readings of the last step (tables)
         self._period = _wrap_period(settings)
         self._scale = radians_per_unit(settings)
         self._use_velocity = w.source == "velocity"
@@ -237,7 +289,7 @@ class TravelTracker:
         self._cols: list[int] | None = None
         self.last_stamp_ns: int | None = None
         self._last: list[float] | None = None
-        self.joint_travel_m: list[float] = [0.0] * len(self._wanted)  # last step, left joints first
+        self.joint_travel_m: list[float] = [0.0] * len(spin)  # last step, left joints first (tables: encoder wheels)
 
     def restart(self) -> None:
         """Forget the last sample: the next accepted one starts a new increment chain."""
@@ -268,7 +320,13 @@ class TravelTracker:
         if len(values) != n:                      # the needed array is empty: no value given
             return SampleStatus.NON_FINITE, 0.0, 0.0, 0.0
         try:
-            vals = [float(values[c]) for c in cols]
+            if self._nsteer:
+                if len(positions) != n:            # steering angles come in the position field
+                    return SampleStatus.NON_FINITE, 0.0, 0.0, 0.0
+                ns = self._nspin
+                vals = [float(values[c]) for c in cols[:ns]] + [float(positions[c]) for c in cols[ns:]]
+            else:
+                vals = [float(values[c]) for c in cols]
         except (TypeError, ValueError, OverflowError):
             return SampleStatus.NON_FINITE, 0.0, 0.0, 0.0
         if not all(math.isfinite(v) for v in vals):
@@ -279,7 +337,9 @@ class TravelTracker:
         last = self._last
         self.last_stamp_ns = int(stamp_ns)
         self._last = vals
-        self.joint_travel_m = [0.0] * len(vals)
+        self.joint_travel_m = [0.0] * self._nspin
+        if self._nsteer:
+            self.steer_rad = vals[self._nspin:]
         if last is None:
             return SampleStatus.CHAIN_START, 0.0, 0.0, 0.0
         dt = (stamp_ns - last_stamp) * 1e-9
@@ -299,8 +359,19 @@ class TravelTracker:
             if not abs(t) <= limit:                # NaN (an overflowed, wrapped difference) too
                 return SampleStatus.JUMP, dt, 0.0, 0.0
             travel.append(t)
+        if self._nsteer:
+            ns, steer = self._nspin, []
+            limit_s = self._max_steer * dt
+            for v, v0 in zip(vals[ns:], last[ns:]):
+                d = wrap_difference(v - v0, TWO_PI)
+                if not abs(d) <= limit_s:
+                    return SampleStatus.JUMP, dt, 0.0, 0.0
+                steer.append(v0 + 0.5 * d)
+            self.steer_rad = steer
         self.joint_travel_m = travel
         nl = self._nl
+        if not nl:                                 # a wheel table: no sides
+            return SampleStatus.USED, dt, 0.0, 0.0
         ds_left = sum(travel[:nl]) / nl
         ds_right = sum(travel[nl:]) / (len(travel) - nl)
         return SampleStatus.USED, dt, ds_left, ds_right

@@ -93,6 +93,10 @@ def parameter_descriptor(spec: ParamSpec, read_only: bool = False) -> Any:
     )
     if spec.choices:
         desc.additional_constraints = "one of: " + ", ".join(spec.choices)
+    if spec.kind is tuple and spec.name.startswith("drive."):
+        # The table's lists are empty by default, which rclpy cannot type (it would take a byte
+        # array): let them take a string or number array; the settings check enforces the type.
+        desc.dynamic_typing = True
     if spec.kind in (float, int) and (spec.lo is not None or spec.hi is not None):
         if spec.kind is float:
             lo = -math.inf if spec.lo is None else float(spec.lo)
