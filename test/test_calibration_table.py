@@ -64,10 +64,10 @@ def tables(kind: str) -> tuple[WheelTable, WheelTable]:
     return WheelTable(kind, **conf, **noise), WheelTable(kind, **true, **noise)
 
 
-def route(kind: str, rng: np.random.Generator, duration_s: float, dt_s: float, rear_x: float,
-          legs: str = "full") -> np.ndarray:
-    """(M, 3) body twists: legs of 3-6 s with 1 s ramps between them. Car-like bases keep the rear
-    axle free of sideways motion (vy = -wz x_rear, the sliding constraint of the fixed wheels)."""
+def route(kind: str, rng: np.random.Generator, duration_s: float, rear_x: float, legs: str = "full"):
+    """Body twists (vx, vy, wz) as a function of time: legs of 3-6 s with 1 s ramps between them.
+    Car-like bases keep the rear axle free of sideways motion (vy = -wz x_rear, the sliding
+    constraint of the fixed wheels)."""
     durations, twists = [], []
     while sum(durations) < duration_s:
         durations.append(rng.uniform(3.0, 6.0))
@@ -82,13 +82,14 @@ def route(kind: str, rng: np.random.Generator, duration_s: float, dt_s: float, r
             twists.append([(v, 0, 0), (-v, 0, 0), (0, v * rng.choice([-1, 1]), 0), (0, 0, rng.choice([-0.8, 0.8])),
                            (0.7 * v, 0.7 * v * rng.choice([-1, 1]), 0),
                            (v, rng.uniform(-0.3, 0.3), rng.choice([-0.5, 0.5]))][rng.integers(6)])
-    n = int(round(duration_s / dt_s))
     starts = np.concatenate(([0.0], np.cumsum(durations)))
     tw = np.asarray(twists, dtype=np.float64)
-    t = (np.arange(n) + 0.5) * dt_s
-    k = np.clip(np.searchsorted(starts, t, side="right") - 1, 0, len(tw) - 1)
-    f = np.clip(t - starts[k], 0.0, 1.0)[:, None]
-    return tw[np.maximum(k - 1, 0)] + f * (tw[k] - tw[np.maximum(k - 1, 0)])
+
+    def at(t: np.ndarray) -> np.ndarray:
+        k = np.clip(np.searchsorted(starts, t, side="right") - 1, 0, len(tw) - 1)
+        f = np.clip(t - starts[k], 0.0, 1.0)[:, None]
+        return tw[np.maximum(k - 1, 0)] + f * (tw[k] - tw[np.maximum(k - 1, 0)])
+    return at
 
 
 @dataclass
@@ -103,14 +104,26 @@ class Drive:
 
 
 def simulate(kind: str, seed: int = 1, duration_s: float = 600.0, dt_s: float = 0.1, legs: str = "full",
-             noise: bool = True) -> Drive:
+             noise: bool = True, readings: bool = False) -> Drive:
+    """A drive of ``kind``. Each step's twist is held constant (the mid-step twist of the route) and
+    the steering of the step is the true inverse's; with ``readings`` the steering joints are read
+    at the samples instead (the route's steering there) and a step uses the mean of its two readings,
+    as the wheel travel does (the shared contract), the motion being what the true table makes of
+    the true travel and that steering (one degree of freedom: exact for a tricycle)."""
     conf, true = tables(kind)
     rng = np.random.default_rng(seed)
     rear_x = float(np.mean(true.x[~true.steered])) if kind in ("tricycle", "ackermann") else 0.0
-    tw = route(kind, rng, duration_s, dt_s, rear_x, legs)
-    m = len(tw)
+    at = route(kind, rng, duration_s, rear_x, legs)
+    m = int(round(duration_s / dt_s))
+    tw = at((np.arange(m) - 0.5) * dt_s)           # step k runs from sample k-1 to sample k
     spin, steer = true.inverse(tw, np.full(m, dt_s))
     body = tw * dt_s
+    read = steer
+    if readings and steer is not None:
+        read = true.inverse(at(np.arange(m) * dt_s), np.full(m, dt_s))[1]
+        steer = read.copy()
+        steer[1:] = 0.5 * (read[1:] + read[:-1])
+        body = true.increment(spin, steer)
     body[0] = 0.0                     # the first sample starts the chain
     x, y, th, _ = integrate_body(body, "exact")
     exact = np.column_stack([x, y, th])
@@ -120,6 +133,7 @@ def simulate(kind: str, seed: int = 1, duration_s: float = 600.0, dt_s: float = 
     travel_m = angle * conf.radius[conf.spin]              # read at the configured radius
     travel_m[0] = 0.0
     if steer is not None and noise:
+        read = read + rng.normal(size=read.shape) * STEER_SD_RAD
         steer = steer + rng.normal(size=steer.shape) * STEER_SD_RAD
     stamp = 1_700_000_000 * 10**9 + np.arange(m, dtype=np.int64) * int(round(dt_s * 1e9))
     restart = np.zeros(m, dtype=bool)
@@ -130,8 +144,8 @@ def simulate(kind: str, seed: int = 1, duration_s: float = 600.0, dt_s: float = 
     travel = Travel(np.arange(m), stamp, dt, zeros, zeros, restart, np.zeros(m, dtype=np.int8), travel_m, steer)
     truth = exact + (rng.normal(size=exact.shape) * [TRUTH_SD[0], TRUTH_SD[0], TRUTH_SD[1]] if noise else 0.0)
     pos = np.cumsum(angle, axis=0)
-    if steer is not None:
-        pos = np.hstack([pos, steer])
+    if read is not None:
+        pos = np.hstack([pos, read])
     return Drive(conf, true, travel, stamp * 1e-9, truth, exact, pos)
 
 
@@ -298,9 +312,7 @@ def test_calibrate_command_on_a_tricycle_bag(tmp_path) -> None:
     from wheel_dr.bags import write_bag
     from wheel_dr.params import parse_params_text
 
-    d = simulate("tricycle", seed=3, duration_s=480.0)
-    # joint states carry one steering reading per sample; the travel uses the mean of a step's two
-    # readings, so the bag's readings are the route's steering at the samples (a smooth route)
+    d = simulate("tricycle", seed=3, duration_s=480.0, readings=True)
     m = len(d.truth_t_s)
     bag = write_bag(BagDrive(d.travel.stamp_ns, ("drive", "steer"), d.position_rad, np.zeros((m, 2)),
                              d.truth[:, 0], d.truth[:, 1], d.truth[:, 2], np.zeros(m), np.zeros(m)),
@@ -315,11 +327,9 @@ def test_calibrate_command_on_a_tricycle_bag(tmp_path) -> None:
     assert "drive.wheel_radius[0]" in proc.stdout and "drive.steer_offset[0]" in proc.stdout
     flat = parse_params_text(out.read_text(encoding="utf-8"))
     radius, x, off = flat["drive.wheel_radius"], flat["drive.wheel_x"], flat["drive.steer_offset"]
-    # the step's steering is the mean of two readings here, so the tolerances are looser than the
-    # core test's (the route's ramps bend the steering within a step)
-    assert radius[0] == pytest.approx(d.true.radius[0], rel=2e-3)
-    assert x[0] == pytest.approx(d.true.x[0], rel=5e-3)
-    assert off[0] == pytest.approx(d.true.offset[0], abs=0.003)
+    assert radius[0] == pytest.approx(d.true.radius[0], rel=RADIUS_TOL)
+    assert x[0] == pytest.approx(d.true.x[0], rel=LENGTH_TOL)
+    assert off[0] == pytest.approx(d.true.offset[0], abs=OFFSET_TOL)
     assert list(radius[1:]) == [0.10, 0.10] and list(x[1:]) == [-0.2, -0.2] and list(off[1:]) == [0.0, 0.0]
     assert flat["drive.wheel_y"] == [0.0, 0.3, -0.3]
     # every line but the three fitted arrays (and the comment header) is as in the starting file
