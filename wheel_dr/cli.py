@@ -28,7 +28,7 @@ __all__ = ["main", "build_parser", "SAFETY_NOTE", "write_trajectory_csv", "write
 SAFETY_NOTE = SAFETY_TEXT
 
 TRAJECTORY_COLUMNS = ("t", "x", "y", "yaw", "cov_xx", "cov_xy", "cov_xyaw", "cov_yy", "cov_yyaw", "cov_yawyaw", "slip",
-                      "v", "w", "slip_left", "slip_right")
+                      "v", "w", "slip_left", "slip_right", "vy")
 
 SCENARIOS = ("demo", "square-cw", "square-ccw", "varied")
 
@@ -62,8 +62,8 @@ def write_trajectory_csv(path: Path, traj) -> None:
     """DIR/trajectory.csv: header row, then one row per joint-state sample used (see TRAJECTORY_COLUMNS).
 
     t in seconds (the sample stamp, exact to the nanosecond), pose (m, rad) and covariance (m^2,
-    m rad, rad^2) in the odom frame, slip 0/1, v (m/s) and w (rad/s) in the base frame, then the
-    per-side slip flags. Floats have 10 significant digits (wheel_dr.bags.textout).
+    m rad, rad^2) in the odom frame, slip 0/1, v (m/s) and w (rad/s) in the base frame, the
+    per-side slip flags, then vy (m/s, base frame; 0 for differential drive). Floats have 10 significant digits (wheel_dr.bags.textout).
     """
     from .bags.textout import flag_field, float_field, join_fields, stamp_field
     c = traj.cov
@@ -71,7 +71,7 @@ def write_trajectory_csv(path: Path, traj) -> None:
     fields = [stamp_field(traj.stamp_ns)] + [float_field(v) for v in (
         traj.x_m, traj.y_m, traj.yaw_rad, c[:, 0, 0], c[:, 0, 1], c[:, 0, 2], c[:, 1, 1], c[:, 1, 2], c[:, 2, 2])]
     fields += [flag_field(slip.slip), float_field(traj.v_mps), float_field(traj.w_radps), flag_field(slip.left),
-               flag_field(slip.right)]
+               flag_field(slip.right), float_field(traj.vy_mps)]
     body = join_fields(fields) if len(traj) else b""
     _atomic_bytes(path, (",".join(TRAJECTORY_COLUMNS) + "\n").encode() + body)
 

@@ -55,6 +55,8 @@ def load_settings_file(path: str | os.PathLike | None) -> SettingsFile:
 def settings_for_run(sf: SettingsFile, data: RunData) -> tuple[Settings, list[str]]:
     """The settings to run on ``data`` and one line per choice made (geometry and joint sources)."""
     s = sf.settings
+    if s.drive.kind != "differential":
+        return _table_settings_for_run(sf, data)
     notes: list[str] = []
     values: dict[str, object] = {}
     names = data.samples.names
@@ -87,6 +89,19 @@ def settings_for_run(sf: SettingsFile, data: RunData) -> tuple[Settings, list[st
     w = s.wheels
     notes.append(f"  left radius {w.left_radius:.6g} m, right radius {w.right_radius:.6g} m, "
                  f"track {w.track_width:.6g} m")
+    return s, notes
+
+
+def _table_settings_for_run(sf: SettingsFile, data: RunData) -> tuple[Settings, list[str]]:
+    """Settings and notes for a wheel-table base (``drive.kind`` other than differential)."""
+    s = sf.settings
+    model = s.drive_model()          # names the empty geometry array when the table is incomplete
+    where = f"the parameters file ({sf.path})" if sf.path else "the defaults"
+    notes = [f"geometry: {s.drive.kind} wheel table from {where}"]
+    for i, joint in enumerate(model.wheel_joints):
+        steer = model.steer_joints[i]
+        notes.append(f"  wheel {i} {joint or '(no encoder)'}{f' steered by {steer}' if steer else ''}: "
+                     f"x {model.x[i]:.6g} m, y {model.y[i]:.6g} m, radius {model.radius[i]:.6g} m")
     return s, notes
 
 

@@ -26,6 +26,7 @@ from ..core.wheels import SampleStatus
 __all__ = [
     "FLAG_FIELDS",
     "FLAGS_LABEL",
+    "flag_fields",
     "STATUS_NAMES",
     "stamp_to_ns",
     "ns_to_sec_nanosec",
@@ -287,7 +288,8 @@ class RawOdometryWriter:
     ``yaw_to_quaternion`` (REP 103).
     """
 
-    def __init__(self, odom_frame: str, base_frame: str, tf_type: type | None = None) -> None:
+    def __init__(self, odom_frame: str, base_frame: str, tf_type: type | None = None,
+                 wheel_joints: Sequence[str] = ()) -> None:
         from geometry_msgs.msg import TransformStamped
         from nav_msgs.msg import Odometry
         from rclpy.serialization import serialize_message
@@ -318,6 +320,7 @@ class RawOdometryWriter:
         self._values[49:85] = twist_base
         self._pose_idx = self._pose_idx + 7
         self._twist_idx = self._twist_idx + 49
+        self._twist3_idx = pose_cov_index(twist_covariance_6x6, 3)[0] + 49   # wheel tables: (vx, vy, wz)
 
         self._tf = None
         if tf_type is not None:
@@ -334,27 +337,34 @@ class RawOdometryWriter:
             self._tf_stamp = _find(raw, "<iI", (s1, s2))
             self._tf_block = _find(raw, "<7d", mark[0:7])
 
+        fields = flag_fields(wheel_joints)
+        nf = len(fields)
         flags = Float64MultiArray()
-        flags.layout.dim = [MultiArrayDimension(label=FLAGS_LABEL, size=len(FLAG_FIELDS), stride=len(FLAG_FIELDS))]
-        flags.data = mark[:len(FLAG_FIELDS)]
+        flags.layout.dim = [MultiArrayDimension(label="wheel_dr_flags:" + ",".join(fields), size=nf, stride=nf)]
+        flags.data = [1e9 + 0.25 * k for k in range(nf)]
         raw = bytes(serialize_message(flags))
         self._flags = bytearray(raw)
-        self._flags_block = _find(raw, f"<{len(FLAG_FIELDS)}d", mark[:len(FLAG_FIELDS)])
-        self._flags_fmt = struct.Struct(f"<{len(FLAG_FIELDS)}d")
+        self._flags_block = _find(raw, f"<{nf}d", list(flags.data))
+        self._flags_fmt = struct.Struct(f"<{nf}d")
+        self.n_wheels = len(wheel_joints)
 
     @property
     def has_tf(self) -> bool:
         return self._tf is not None
 
     def odometry(self, stamp_sec: int, stamp_nanosec: int, x_m: float, y_m: float, yaw_rad: float,
-                 cov_xyyaw: np.ndarray, v_mps: float, w_radps: float, twist_cov_vw: np.ndarray) -> bytes:
-        """Serialised Odometry (and, via ``tf()``, the matching transform) for one estimator state."""
+                 cov_xyyaw: np.ndarray, v_mps: float, w_radps: float, twist_cov_vw: np.ndarray,
+                 vy_mps: float = 0.0) -> bytes:
+        """Serialised Odometry (and, via ``tf()``, the matching transform) for one estimator state.
+
+        ``twist_cov_vw`` is (2, 2) over (v, w) for differential drive (vy 0, its variance tight) or
+        (3, 3) over (vx, vy, wz) for wheel tables."""
         v = self._values
         qx, qy, qz, qw = yaw_to_quaternion(yaw_rad)
         v[0], v[1], v[5], v[6] = x_m, y_m, qz, qw
         v[self._pose_idx] = cov_xyyaw.ravel()
-        v[43], v[48] = v_mps, w_radps
-        v[self._twist_idx] = twist_cov_vw.ravel()
+        v[43], v[44], v[48] = v_mps, vy_mps, w_radps
+        v[self._twist_idx if twist_cov_vw.shape == (2, 2) else self._twist3_idx] = twist_cov_vw.ravel()
         buf = self._odom
         _stamp.pack_into(buf, self._odom_stamp, stamp_sec, stamp_nanosec)
         at = self._odom_block
@@ -375,15 +385,26 @@ class RawOdometryWriter:
         return bytes(self._flags)
 
 
-def flag_values(stamp_sec: int, stamp_nanosec: int, status: int, slip: Any | None) -> list[float]:
-    """The FLAG_FIELDS values of one sample; ``slip`` is the core's SlipStep, or None when the
-    sample was skipped or not evaluated (then the slip fields are 0)."""
+def flag_fields(wheel_joints: Sequence[str] = ()) -> tuple[str, ...]:
+    """Field names of the flags message: FLAG_FIELDS, then ``wheel:<joint>`` per encoder wheel of a
+    wheel table (none for differential drive)."""
+    return FLAG_FIELDS + tuple(f"wheel:{j}" for j in wheel_joints)
+
+
+def flag_values(stamp_sec: int, stamp_nanosec: int, status: int, slip: Any | None, n_wheels: int = 0) -> list[float]:
+    """The flag_fields values of one sample; ``slip`` is the core's SlipStep, or None when the
+    sample was skipped or not evaluated (then the slip fields are 0); ``n_wheels`` per-wheel flags
+    follow for wheel tables."""
     if slip is None:
-        return [float(stamp_sec), float(stamp_nanosec), float(status), 0.0, 0.0, 0.0, 0.0, 0.0]
+        return [float(stamp_sec), float(stamp_nanosec), float(status), 0.0, 0.0, 0.0, 0.0, 0.0] + [0.0] * n_wheels
     score = float(slip.score)
-    return [float(stamp_sec), float(stamp_nanosec), float(status), float(bool(slip.slip)),
-            float(bool(slip.left)), float(bool(slip.right)), float(int(slip.detector)),
-            score if math.isfinite(score) else 0.0]
+    out = [float(stamp_sec), float(stamp_nanosec), float(status), float(bool(slip.slip)),
+           float(bool(slip.left)), float(bool(slip.right)), float(int(slip.detector)),
+           score if math.isfinite(score) else 0.0]
+    if n_wheels:
+        wheels = tuple(getattr(slip, "wheel_flags", ()) or ())
+        out += [float(bool(f)) for f in wheels[:n_wheels]] + [0.0] * (n_wheels - len(wheels))
+    return out
 
 
 def pose_from_msg(msg: Any, odom_frame: str) -> tuple[tuple[float, float, float], np.ndarray]:

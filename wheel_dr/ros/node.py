@@ -143,7 +143,7 @@ class OdometryNode:
         self.estimator = Estimator(settings)
         self.lock = threading.Lock()
         self._tf_type = tf_type
-        self._writer = RawOdometryWriter(settings.frames.odom, settings.frames.base, tf_type)
+        self._writer = RawOdometryWriter(settings.frames.odom, settings.frames.base, tf_type, _flag_wheels(settings))
         self._last_log: dict[str, float] = {}
         self.received = 0
         self.imu_received = 0
@@ -331,7 +331,7 @@ class OdometryNode:
                     self._next_out_ns = (stamp_ns // period_ns + 1) * period_ns
             if due:
                 self.pub_odom.publish(writer.odometry(sec, nanosec, est.x_m, est.y_m, est.yaw_rad, est.cov,
-                                                      est.v_mps, est.w_radps, est.twist_cov))
+                                                      est.v_mps, est.w_radps, est.twist_cov, est.vy_mps))
                 self._latency.add(time.time_ns() - received_ns)
                 if self.pub_tf is not None and writer.has_tf and self.settings.output.publish_tf:
                     self.pub_tf.publish(writer.tf())
@@ -348,7 +348,7 @@ class OdometryNode:
                 kind = status.name.lower()
                 self._period_skipped[kind] = self._period_skipped.get(kind, 0) + 1
         if flags_due:
-            self.pub_flags.publish(writer.flags(flag_values(sec, nanosec, int(status), slip)))
+            self.pub_flags.publish(writer.flags(flag_values(sec, nanosec, int(status), slip, writer.n_wheels)))
         if noteworthy:
             self._note_status(status)
 
@@ -450,6 +450,7 @@ class OdometryNode:
             if not changes:
                 return SetParametersResult(successful=True)
             new = Settings.from_flat(changes, base=self.settings)
+            new.drive_model()        # a wheel table left without geometry is refused here
         except SettingsError as exc:
             self.log.warning(f"parameter change refused: {exc}")
             return SetParametersResult(successful=False, reason=str(exc))
@@ -457,12 +458,13 @@ class OdometryNode:
             return SetParametersResult(successful=False, reason=f"{exc.__class__.__name__}: {exc}")
         old_period = self.settings.output.diagnostics_period_s
         with self.lock:
-            frames_changed = new.frames != self.settings.frames     # compared before the new ones are taken
+            frames_changed = (new.frames != self.settings.frames     # compared before the new ones are taken
+                              or _flag_wheels(new) != _flag_wheels(self.settings))
             self.settings = new
             self._out_period_ns = _output_period_ns(new)
             self.estimator.update_settings(new)
             if frames_changed:
-                self._writer = RawOdometryWriter(new.frames.odom, new.frames.base, self._tf_type)
+                self._writer = RawOdometryWriter(new.frames.odom, new.frames.base, self._tf_type, _flag_wheels(new))
         if new.output.diagnostics_period_s != old_period:
             self._diag_timer.cancel()
             self.node.destroy_timer(self._diag_timer)
@@ -558,6 +560,12 @@ def _output_period_ns(settings: Settings) -> int:
     """Output period in nanoseconds from ``output.rate_hz`` (0: one output per input)."""
     rate = settings.output.rate_hz
     return int(round(1e9 / rate)) if rate > 0 else 0
+
+
+def _flag_wheels(settings: Settings) -> tuple[str, ...]:
+    """Encoder wheels of a wheel table, each with a per-wheel field in the flags message (none for differential)."""
+    model = settings.drive_model()
+    return () if model is None else tuple(j for j in model.wheel_joints if j)
 
 
 def _never_group() -> Any:
