@@ -22,8 +22,8 @@ import numpy as np
 import pytest
 from scipy.linalg import null_space
 
-from wheel_dr.analysis.calibration_table import (ExcitationError, KIND_ADVICE, calibrate_table, offset_modes,
-                                                 table_parameters)
+from wheel_dr.analysis.calibration_table import (CalibrationError, ExcitationError, KIND_ADVICE, TruthError,
+                                                 calibrate_table, offset_modes, table_parameters)
 from wheel_dr.core.drive import WheelTable, integrate_body
 from wheel_dr.core.wheels import Travel
 
@@ -260,6 +260,47 @@ def test_swerve_offset_modes_are_the_derived_null_space() -> None:
     assert seen.shape == (4, 3) and unseen.shape == (4, 1)
     assert abs(float(ref[:, 0] @ unseen[:, 0])) == pytest.approx(1.0)
     np.testing.assert_allclose(np.abs(unseen[:, 0]), 0.5)
+
+
+def test_truth_frame_does_not_matter_and_drives_are_fitted_jointly() -> None:
+    """Only segment-relative motion is compared, so a truth expressed in a frame rotated and shifted
+    from odom gives the same fit (relative motion is invariant under a common SE(2) transform:
+    Sola et al. 2018, sec. IV); a second drive adds its segments to the same fit."""
+    a, b = simulate("omni", seed=4, duration_s=180.0), simulate("omni", seed=5, duration_s=180.0)
+    plain = fit(a)
+    c, s_ = math.cos(0.7), math.sin(0.7)
+    moved = np.column_stack([3.0 + c * a.truth[:, 0] - s_ * a.truth[:, 1], -2.0 + s_ * a.truth[:, 0] + c * a.truth[:, 1],
+                             a.truth[:, 2] + 0.7])
+    turned = calibrate_table(a.conf, a.travel, a.truth_t_s, moved, truth_sd=TRUTH_SD)
+    np.testing.assert_allclose(turned.values, plain.values, rtol=1e-8)
+    both = calibrate_table(a.conf, a.travel, a.truth_t_s, a.truth, truth_sd=TRUTH_SD,
+                           more_runs=[(b.travel, b.truth_t_s, b.truth)])
+    alone = fit(b)
+    assert both.n_segments + both.n_outliers == plain.n_segments + plain.n_outliers + alone.n_segments + alone.n_outliers
+    assert len(both.before) == 2
+    assert both.std_error[0] < plain.std_error[0]          # more data, a tighter fit
+
+
+def test_truth_glitch_is_set_aside() -> None:
+    """A stretch where the truth jumps by 5 cm (a tracking glitch) makes the segments that end or
+    start there outliers: they are set aside (chi-square(3) 99.9 % quantile from scipy) and said."""
+    d = simulate("mecanum", seed=6, duration_s=300.0)
+    d.truth[1500:1560, 0] += 0.05                 # six seconds of a shifted truth
+    res = fit(d)
+    assert res.n_outliers >= 1 and any("set aside as outliers" in n for n in res.notes)
+    assert res.model.radius[0] == pytest.approx(d.true.radius[0], rel=RADIUS_TOL)
+
+
+def test_bad_input_is_one_sentence() -> None:
+    """Travel that does not fit the table and a truth from another time are refused in one sentence."""
+    d = simulate("tricycle", duration_s=60.0)
+    wrong = Travel(d.travel.index, d.travel.stamp_ns, d.travel.dt_s, d.travel.ds_left_m, d.travel.ds_right_m,
+                   d.travel.restart, d.travel.status, np.zeros((len(d.truth_t_s), 2)), d.travel.steer_rad)
+    with pytest.raises(CalibrationError, match="drive.wheel_joints"):
+        calibrate_table(d.conf, wrong, d.truth_t_s, d.truth)
+    with pytest.raises(TruthError, match="does not overlap the joint states in time") as exc:
+        calibrate_table(d.conf, d.travel, d.truth_t_s + 1e5, d.truth)
+    assert "\n" not in str(exc.value)
 
 
 # ------------------------------------------------------------------------------------------------

@@ -465,8 +465,9 @@ def table_excitation(model: WheelTable, runs: Sequence[_Run], n_segments: int, c
                     bins_r[k] = bins_r.get(k, 0.0) + float(wheel[(-a >= lo) & (-a < hi)].sum())
             else:
                 ang = np.remainder(rel + 0.5 * math.pi, math.pi) - 0.5 * math.pi
-                spin_t = np.abs(run.spin[:, model.steered[model.spin]]) if model.steered[model.spin].all() \
-                    else np.repeat(wheel[:, None], rel.shape[1], axis=1)
+                col = np.cumsum(model.spin) - 1          # encoder column of each wheel
+                spin_t = np.column_stack([np.abs(run.spin[:, col[i]]) if model.spin[i] else wheel
+                                          for i in np.flatnonzero(model.steered)])
                 b = np.floor((ang + 0.5 * math.pi) / MODULE_BIN_RAD).astype(int)
                 for k in np.unique(b):
                     module_bins[int(k)] = module_bins.get(int(k), 0.0) + float(spin_t[b == k].sum()) / rel.shape[1]
