@@ -157,12 +157,14 @@ def fit(d: Drive, **kw):
 def test_recovers_known_geometry_per_kind(kind: str) -> None:
     """Each kind's parameters come back within the issue's tolerances from a noisy ten-minute drive,
     every other entry of the arrays is left exactly as configured, and the errors are within five
-    of the reported standard errors (s^2 (J^T J)^-1, the Gauss-Newton covariance)."""
+    of the reported standard errors (s^2 (J^T J)^-1, the Gauss-Newton covariance of least squares:
+    common practice, e.g. Antonelli et al. 2005 report theirs so, from memory)."""
     d = simulate(kind)
     res = fit(d)
     conf, true = d.conf, d.true
     got = res.model
-    assert 0.5 < res.residual_variance < 2.0      # the whitened residuals are unit variance when the model fits
+    # whitened by the true noise, the residuals have unit variance (chi-square of ~3S dof; common practice)
+    assert 0.5 < res.residual_variance < 2.0
     enc = true.spin
     np.testing.assert_allclose(got.radius[enc], true.radius[enc], rtol=RADIUS_TOL)
     fitted = {p.name: (v, se) for p, v, se in zip(res.parameters, res.values, res.std_error)}
