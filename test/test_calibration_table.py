@@ -158,7 +158,7 @@ def test_recovers_known_geometry_per_kind(kind: str) -> None:
     """Each kind's parameters come back within the issue's tolerances from a noisy ten-minute drive,
     every other entry of the arrays is left exactly as configured, and the errors are within five
     of the reported standard errors (s^2 (J^T J)^-1, the Gauss-Newton covariance of least squares:
-    common practice, e.g. Antonelli et al. 2005 report theirs so, from memory)."""
+    common practice)."""
     d = simulate(kind)
     res = fit(d)
     conf, true = d.conf, d.true
