@@ -23,7 +23,7 @@ import pytest
 from scipy.linalg import null_space
 
 from wheel_dr.analysis.calibration_table import (CalibrationError, ExcitationError, KIND_ADVICE, TruthError,
-                                                 calibrate_table, offset_modes, table_parameters)
+                                                 calibrate_table, offset_modes, table_figures, table_parameters)
 from wheel_dr.core.drive import WheelTable, integrate_body
 from wheel_dr.core.wheels import Travel
 
@@ -281,6 +281,9 @@ def test_truth_frame_does_not_matter_and_drives_are_fitted_jointly() -> None:
     assert both.n_segments + both.n_outliers == plain.n_segments + plain.n_outliers + alone.n_segments + alone.n_outliers
     assert len(both.before) == 2
     assert both.std_error[0] < plain.std_error[0]          # more data, a tighter fit
+    # a drive the fit did not see is better after than before (the held-out check)
+    before, after = table_figures(a.conf, plain, b.travel, b.truth_t_s, b.truth)
+    assert after.drift_pct < 0.5 * before.drift_pct and after.ate_m < before.ate_m
 
 
 def test_truth_glitch_is_set_aside() -> None:
@@ -365,9 +368,12 @@ def test_calibrate_command_on_a_tricycle_bag(tmp_path) -> None:
     start.write_text(TRICYCLE_START, encoding="utf-8")
     out = tmp_path / "tuned.yaml"
     proc = _cli(str(bag), "--truth", "/ground_truth", "--params", str(start), "--write", str(out),
-                "--truth-sd", "0.0005,0.0005")
+                "--truth-sd", "0.0005,0.0005", "--holdout", str(bag))
     assert proc.returncode == 0, proc.stderr
     assert "drive.wheel_radius[0]" in proc.stdout and "drive.steer_offset[0]" in proc.stdout
+    # the same bag as held-out gives the fitted bag's figures again
+    fitted_rows = proc.stdout.split("Fitted bags (before -> after):")[1].split("Held-out bags")
+    assert fitted_rows[0].splitlines()[2].split() == fitted_rows[1].splitlines()[2].split()
     flat = parse_params_text(out.read_text(encoding="utf-8"))
     radius, x, off = flat["drive.wheel_radius"], flat["drive.wheel_x"], flat["drive.steer_offset"]
     assert radius[0] == pytest.approx(d.true.radius[0], rel=RADIUS_TOL)

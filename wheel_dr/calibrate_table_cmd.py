@@ -17,7 +17,7 @@ from typing import Sequence
 
 import numpy as np
 
-from .analysis.calibration_table import TABLE_KINDS, TableCalibration, calibrate_table
+from .analysis.calibration_table import TABLE_KINDS, TableCalibration, TableFigures, calibrate_table, table_figures
 from .core.errors import CalibrationError, SettingsError
 from .core.settings import Settings
 from .core.wheels import wheel_travel
@@ -33,7 +33,6 @@ def _refuse(args: argparse.Namespace, kind: str) -> None:
                    ("--noise-model", getattr(args, "noise_model", None)),
                    ("--truth-offset", getattr(args, "truth_offset", False)),
                    ("--report", getattr(args, "report", None)),
-                   ("--holdout", getattr(args, "holdout", None)),
                    ("--scheduler", getattr(args, "scheduler", None))]
     for flag, value in unsupported:
         if value:
@@ -46,8 +45,20 @@ def _fmt_value(unit: str, v: float) -> str:
     return f"{v:+.6f} rad ({math.degrees(v):+.3f} deg)" if unit == "rad" else f"{v:.6f} m"
 
 
-def table_result_lines(res: TableCalibration, bag_names: Sequence[str]) -> list[str]:
-    """What was fitted, with standard errors, the drive's content and the before/after figures."""
+def _figures_table(title: str, names: Sequence[str], before: Sequence[TableFigures],
+                   after: Sequence[TableFigures]) -> list[str]:
+    lines = [title, f"  {'bag':<28} {'ATE before':>10} {'after':>8}  {'drift% before':>13} {'after':>7}  "
+                    f"{'heading rms deg before':>22} {'after':>7}  segs"]
+    for name, b, a in zip(names, before, after):
+        lines.append(f"  {name[:28]:<28} {b.ate_m:10.3f} {a.ate_m:8.3f}  {b.drift_pct:13.2f} {a.drift_pct:7.2f}  "
+                     f"{math.degrees(b.heading_rms_rad):22.3f} {math.degrees(a.heading_rms_rad):7.3f}  {a.n_segments:4d}")
+    return lines
+
+
+def table_result_lines(res: TableCalibration, bag_names: Sequence[str],
+                       holdout: Sequence[tuple[str, TableFigures, TableFigures]] = ()) -> list[str]:
+    """What was fitted, with standard errors, the drive's content and the before/after figures
+    (``holdout``: (bag name, before, after) of recordings the fit did not see)."""
     lines = [f"Calibrated the {res.kind} table on {len(bag_names)} bag(s): {', '.join(bag_names)}; "
              f"{res.n_segments} segments of {res.segment_length_m:g} m"]
     for p, v, se in zip(res.parameters, res.values, res.std_error):
@@ -69,12 +80,10 @@ def table_result_lines(res: TableCalibration, bag_names: Sequence[str]) -> list[
     lines.append(drive)
     lines += [f"  note: {n}" for n in res.notes]
     lines.append("  noise.k_wheels and noise.steer_sd_rad are not fitted for wheel tables (kept as in the file).")
-    lines.append("Fitted bags (before -> after):")
-    lines.append(f"  {'bag':<28} {'ATE before':>10} {'after':>8}  {'drift% before':>13} {'after':>7}  "
-                 f"{'heading rms deg before':>22} {'after':>7}  segs")
-    for name, b, a in zip(bag_names, res.before, res.after):
-        lines.append(f"  {name[:28]:<28} {b.ate_m:10.3f} {a.ate_m:8.3f}  {b.drift_pct:13.2f} {a.drift_pct:7.2f}  "
-                     f"{math.degrees(b.heading_rms_rad):22.3f} {math.degrees(a.heading_rms_rad):7.3f}  {a.n_segments:4d}")
+    lines += _figures_table("Fitted bags (before -> after):", bag_names, res.before, res.after)
+    if holdout:
+        lines += _figures_table("Held-out bags (not used in the fit):", [n for n, _, _ in holdout],
+                                [b for _, b, _ in holdout], [a for _, _, a in holdout])
     return lines
 
 
@@ -89,18 +98,24 @@ def run_table_calibration(args: argparse.Namespace, text: str, settings: Setting
                                "(a 'custom' table is calibrated by hand).")
     _refuse(args, kind)
     model = settings.drive_model()
-    recordings = []
-    for path in args.bags:
+
+    def recording(path: str):
         samples, truth = load_bag(path, args.truth, args.joint_topic)
         travel = wheel_travel(samples, settings)
         poses = np.column_stack([np.asarray(truth.x_m, dtype=np.float64), np.asarray(truth.y_m, dtype=np.float64),
                                  np.asarray(truth.yaw_rad, dtype=np.float64)])
-        recordings.append((travel, np.asarray(truth.stamp_ns, dtype=np.int64) * 1e-9, poses))
+        return travel, np.asarray(truth.stamp_ns, dtype=np.int64) * 1e-9, poses
+
+    recordings = [recording(p) for p in args.bags]
+    held = [recording(p) for p in (getattr(args, "holdout", None) or [])]
     res = calibrate_table(model, *recordings[0], scheme=settings.integration, segment_length_m=args.segment_m,
                           truth_sd=truth_sd or (0.0, 0.0), max_truth_gap_s=settings.limits.max_gap_s,
                           more_runs=recordings[1:])
     names = [Path(p).name for p in args.bags]
-    lines = table_result_lines(res, names)
+    holdout = [(Path(p).name, *table_figures(model, res, *rec, scheme=settings.integration,
+                                             max_truth_gap_s=settings.limits.max_gap_s))
+               for p, rec in zip(args.holdout or [], held)]
+    lines = table_result_lines(res, names, holdout)
     for line in lines:
         print(line)
     if args.write:

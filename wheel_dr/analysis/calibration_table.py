@@ -48,7 +48,7 @@ from .calibration import TIED_CORRELATION, correlation_notes
 
 __all__ = ["TableParameter", "TableExcitation", "TableFigures", "TableCalibration", "TABLE_KINDS",
            "KIND_ADVICE", "table_parameters", "apply_parameters", "table_excitation", "calibrate_table",
-           "MECANUM_SUM_NOTE"]
+           "MECANUM_SUM_NOTE", "offset_modes", "table_figures"]
 
 CalibrationError = _errors.CalibrationError
 TruthError = _errors.TruthError
@@ -741,3 +741,16 @@ def calibrate_table(model: WheelTable, travel, truth_t_s, truth_xy_yaw, *, schem
                            changed, fitted, notes, before, after, float(segment_length_m), bool(res.success),
                            configured)
     return out
+
+
+def table_figures(model: WheelTable, result: TableCalibration, travel, truth_t_s, truth_xy_yaw, *,
+                  scheme: str = "exact", max_truth_gap_s: float = 0.5) -> tuple[TableFigures, TableFigures]:
+    """Figures (ATE, drift %, heading RMS) of a recording the fit did not see, before and after:
+    ``model`` is the configured table, ``result`` the fit (the honest check of a calibration)."""
+    run = _prepare(model, travel, truth_t_s, truth_xy_yaw, max_truth_gap_s)
+    st, en = _segments(run, result.segment_length_m)
+    out = []
+    for values in (result.start, result.values):
+        x, y, th, _, _ = _odometry(model, run, result.parameters, values, scheme)
+        out.append(_figures(x, y, th, run, st, en))
+    return out[0], out[1]
