@@ -391,3 +391,8 @@ def test_calibrate_command_on_a_tricycle_bag(tmp_path) -> None:
     assert bad.returncode == 2 and "Traceback" not in bad.stderr
     assert bad.stderr.count("\n") == 1 and "--truth-offset is not available for a tricycle base" in bad.stderr
     assert not refused.exists()
+    custom = tmp_path / "custom.yaml"
+    custom.write_text(TRICYCLE_START.replace("kind: tricycle", "kind: custom"), encoding="utf-8")
+    bad = _cli(str(bag), "--truth", "/ground_truth", "--params", str(custom), "--write", str(refused))
+    assert bad.returncode == 2 and "Traceback" not in bad.stderr and bad.stderr.count("\n") == 1
+    assert "drive.kind 'custom' has no per-kind calibration" in bad.stderr and not refused.exists()

@@ -94,8 +94,8 @@ def run_table_calibration(args: argparse.Namespace, text: str, settings: Setting
 
     kind = settings.drive.kind
     if kind not in TABLE_KINDS:
-        raise CalibrationError(f"drive.kind '{kind}' has no per-kind calibration; one of {', '.join(TABLE_KINDS)} has "
-                               "(a 'custom' table is calibrated by hand).")
+        raise CalibrationError(f"the base's drive.kind '{kind}' has no per-kind calibration (only {', '.join(TABLE_KINDS)} have "
+                               "one); set the table's values from its drawing, or give the base's kind.")
     _refuse(args, kind)
     model = settings.drive_model()
 

@@ -170,8 +170,8 @@ def table_parameters(model: WheelTable) -> list[TableParameter]:
             out += [TableParameter(f"drive.steer_offset[{i}]", "offset", (i,), "rad", float(model.offset[i]))
                     for i in ste]
     else:
-        raise CalibrationError(f"drive.kind '{kind}' has no per-kind calibration; use one of "
-                               f"{', '.join(TABLE_KINDS)} (a 'custom' table is calibrated by hand).")
+        raise CalibrationError(f"the base's drive.kind '{kind}' has no per-kind calibration (only {', '.join(TABLE_KINDS)} have "
+                               "one); set the table's values from its drawing, or give the base's kind.")
     return out
 
 
