@@ -183,6 +183,9 @@ def _bags(args: argparse.Namespace) -> int:
                          "geometry_msgs/PoseStamped), or use --square for the square test without truth.")
     truth_sd = _truth_sd(getattr(args, "truth_sd", None))
     text, settings, label = _read_params(args.params)
+    if settings.drive.kind != "differential":       # a wheel table: calibrate_table_cmd
+        from .calibrate_table_cmd import run_table_calibration
+        return run_table_calibration(args, text, settings, label, truth_sd)
     if getattr(args, "scheduler", None):     # one Dask task per bag; the joint fit stays here
         from .fleet.commands import prepare_on_cluster
         both = prepare_on_cluster(list(args.bags) + list(args.holdout or []), args.truth, args.joint_topic,
