@@ -59,10 +59,10 @@ def fleet_root(tmp_path_factory) -> Path:
     shutil.copytree(good, broken)
     data = next(broken.glob("*.mcap"))
     data.write_bytes(data.read_bytes()[: data.stat().st_size // 2])
-    (root / "bilby" / "junk").mkdir()
-    (root / "bilby" / "junk" / "notes.bag").write_bytes(b"not a bag at all\n" * 40)
-    (root / "numbat" / "loose").mkdir()
-    shutil.copy(next((root / "numbat" / "day01" / "shift").glob("*.db3")), root / "numbat" / "loose" / "x.db3")
+    (root / "bettong" / "junk").mkdir()
+    (root / "bettong" / "junk" / "notes.bag").write_bytes(b"not a bag at all\n" * 40)
+    (root / "potoroo" / "loose").mkdir()
+    shutil.copy(next((root / "potoroo" / "day01" / "shift").glob("*.db3")), root / "potoroo" / "loose" / "x.db3")
     shutil.copy(next(good.glob("*.mcap")), root / "quokka-2" / "loose.mcap")
     return root
 
@@ -108,11 +108,11 @@ def test_discovery_finds_every_kind_at_any_depth(fleet_root):
     found, notes = find_bags(fleet_root)
     kinds = {b.rel: b.kind for b in found}
     assert kinds["quokka-2/day01/shift"] == "rosbag2"
-    assert kinds["numbat/day02/shift"] == "rosbag2"
-    assert kinds["bilby/day03/shift.bag"] == "rosbag1"
-    assert kinds["bilby/junk/notes.bag"] == "rosbag1"
+    assert kinds["potoroo/day02/shift"] == "rosbag2"
+    assert kinds["bettong/day03/shift.bag"] == "rosbag1"
+    assert kinds["bettong/junk/notes.bag"] == "rosbag1"
     assert kinds["quokka-2/loose.mcap"] == "mcap"
-    assert "numbat/loose/x.db3" not in kinds            # a loose sqlite file is no bag by itself
+    assert "potoroo/loose/x.db3" not in kinds            # a loose sqlite file is no bag by itself
     assert len(found) == 3 * BAGS_PER_ROBOT + 3 and not notes
     # a pattern with one group names the robot instead of the first component
     by_day, _ = find_bags(fleet_root, r"/(day0[12])/")
@@ -135,7 +135,7 @@ def test_reference_rows_columns_errors_and_order(reference):
     by_bag = {r["bag"]: r for r in rows}
     assert len(rows) == 3 * BAGS_PER_ROBOT + 3
     assert "truncated" in by_bag["quokka-2/day09/truncated"]["error"]
-    assert by_bag["bilby/junk/notes.bag"]["error"]
+    assert by_bag["bettong/junk/notes.bag"]["error"]
     assert by_bag["quokka-2/loose.mcap"]["error"] or by_bag["quokka-2/loose.mcap"]["fit_left_radius"]
     good = [r for r in rows if not r["error"]]
     assert len(good) >= 3 * BAGS_PER_ROBOT
@@ -143,37 +143,37 @@ def test_reference_rows_columns_errors_and_order(reference):
         assert r["start"].endswith("Z") and float(r["duration_s"]) > 100
         assert float(r["ate_anchored_rmse_m"]) >= 0
         assert r["fit_left_radius"] or r["fit_note"]
-    for robot in ("bilby", "numbat", "quokka-2"):   # each robot's bags in start order
+    for robot in ("bettong", "potoroo", "quokka-2"):   # each robot's bags in start order
         starts = [r["start"] for r in good if r["robot"] == robot]
         assert starts == sorted(starts) and len(starts) >= BAGS_PER_ROBOT
     assert all(not (out / n).with_suffix(".part").exists() for n in OUTPUT_NAMES)
     page = (out / "index.html").read_text()
-    assert "numbat" in page and "Where the wheels slip" in page and "Caution" in page
+    assert "potoroo" in page and "Where the wheels slip" in page and "Caution" in page
 
 
 def test_trend_and_alert_on_a_wearing_tyre(reference):
-    """The simulator's numbat loses 6 % of its left radius per km (true geometry per bag); the fitted
+    """The simulator's potoroo loses 6 % of its left radius per km (true geometry per bag); the fitted
     trend must find that slope and the current radius within three of their standard errors (a
     normal deviate beyond 3 sigma has probability 0.3 %, common practice), and only it is alerted."""
     fr, _ = reference
     robots = {s.row["robot"]: s for s in fr.robots}
-    numbat = next(r for r in DEMO_FLEET if r.name == "numbat")
+    potoroo = next(r for r in DEMO_FLEET if r.name == "potoroo")
     from wheel_dr.demo.scenarios import varied_drive_scenario
     driven = 0.0
     for k in range(BAGS_PER_ROBOT):      # the same routes build_demo_fleet drove (seed + 31 * 1 + k)
         driven += _route_length_m(varied_drive_scenario(DURATION_S, route_seed=SEED + 31 + k, rate_hz=RATE_HZ))
-    s = robots["numbat"]
+    s = robots["potoroo"]
     tr = s.trends["fit_left_radius"]
-    true_slope = -numbat.wear_per_km * numbat.radius_m / 1000.0
+    true_slope = -potoroo.wear_per_km * potoroo.radius_m / 1000.0
     assert abs(tr.slope_per_m - true_slope) < 3 * tr.slope_se_per_m
     assert tr.slope_per_m < 0 and abs(tr.slope_per_m) > 3 * tr.slope_se_per_m      # the wear is resolved
-    true_end = numbat.true_geometry(tr.end_distance_m)[0]
+    true_end = potoroo.true_geometry(tr.end_distance_m)[0]
     assert abs(tr.value_at_end - true_end) < 3 * tr.value_at_end_se
     assert abs(s.row["distance_m"] - driven) < 0.02 * driven          # wheel distance ~ route length
     assert "left_radius" in s.row["alert"] and "suggested wheels.left_radius" in s.row["alert"]
     assert "right_radius 0.076 ->" not in s.row["alert"]
     # the healthy carts stay within 0.5 % of their files: no alert; their slopes are not resolved as wear
-    for name in ("quokka-2", "bilby"):
+    for name in ("quokka-2", "bettong"):
         assert robots[name].row["alert"] == ""
         t = robots[name].trends["fit_left_radius"]
         assert abs(t.slope_per_m) < 3 * t.slope_se_per_m + 1e-9
@@ -187,7 +187,7 @@ def test_local_cluster_two_workers_equals_in_process(fleet_root, reference, tmp_
     assert "fleet [" in r.stderr and "failed" in r.stderr          # the progress bar on stderr
     for name in ("bags.csv", "robots.csv"):
         assert (out / name).read_text() == (ref / name).read_text()
-    assert "ALERT" in r.stdout and "numbat" in r.stdout
+    assert "ALERT" in r.stdout and "potoroo" in r.stdout
 
 
 def test_scheduler_and_worker_processes_equal_local(fleet_root, reference, dask_cluster, tmp_path):
@@ -267,7 +267,7 @@ def test_resume_processes_only_new_bags(fleet_root, reference, dask_cluster, tmp
                                nominal_right_radius_m=0.09, nominal_track_m=0.45, true_left_radius_m=0.09,
                                true_right_radius_m=0.09, true_track_m=0.45, k_left_m=2e-5, k_right_m=2e-5,
                                start_stamp_ns=1_805_000_000 * 10 ** 9)
-    write_bag(simulate(sc, 3), root / "bilby" / "day20" / "shift.bag", "ros1")
+    write_bag(simulate(sc, 3), root / "bettong" / "day20" / "shift.bag", "ros1")
     r2 = _cli("fleet", str(root), "--out", str(out), "--scheduler", dask_cluster, "--quiet", "--resume")
     assert r2.returncode == 0, r2.stderr
     errors = sum(1 for r in _rows(ref / "bags.csv") if r["error"])   # never cached (may be re-copied): analysed again
@@ -275,10 +275,10 @@ def test_resume_processes_only_new_bags(fleet_root, reference, dask_cluster, tmp
     assert f"{1 + errors} analysed, {n - errors} from the cache" in r2.stdout
     rows = {r["bag"]: r for r in _rows(out / "bags.csv")}
     old = {r["bag"]: r for r in _rows(ref / "bags.csv")}
-    assert set(rows) == set(old) | {"bilby/day20/shift.bag"}
+    assert set(rows) == set(old) | {"bettong/day20/shift.bag"}
     for bag, row in old.items():
         assert rows[bag] == row
-    assert rows["bilby/day20/shift.bag"]["fit_left_radius"]
+    assert rows["bettong/day20/shift.bag"]["fit_left_radius"]
 
 
 def test_compare_and_calibrate_on_the_cluster(fleet_root, dask_cluster, tmp_path):

@@ -38,8 +38,8 @@ from wheel_dr.fleet.run import _jobs, run_fleet  # noqa: E402
 from wheel_dr.fleet.task import analyse_bag  # noqa: E402
 
 ROBOTS = (DemoRobot("quokka-2", left_off=0.0005, fmt="mcap"),
-          DemoRobot("numbat", radius_m=0.076, track_m=0.384, wear_per_km=0.01, fmt="sqlite3"),
-          DemoRobot("bilby", radius_m=0.09, track_m=0.45, fmt="ros1"),
+          DemoRobot("potoroo", radius_m=0.076, track_m=0.384, wear_per_km=0.01, fmt="sqlite3"),
+          DemoRobot("bettong", radius_m=0.09, track_m=0.45, fmt="ros1"),
           DemoRobot("potoroo", radius_m=0.08, track_m=0.40, track_off=0.002, fmt="mcap"))
 
 

@@ -42,8 +42,8 @@ class DemoRobot:
 
 DEMO_FLEET: tuple[DemoRobot, ...] = (
     DemoRobot("quokka-2", left_off=0.0005, right_off=-0.0004, track_off=0.001, fmt="mcap"),
-    DemoRobot("numbat", radius_m=0.076, track_m=0.384, left_off=-0.0003, wear_per_km=0.06, fmt="sqlite3"),
-    DemoRobot("bilby", radius_m=0.09, track_m=0.45, right_off=0.0004, track_off=-0.001, fmt="ros1"),
+    DemoRobot("potoroo", radius_m=0.076, track_m=0.384, left_off=-0.0003, wear_per_km=0.06, fmt="sqlite3"),
+    DemoRobot("bettong", radius_m=0.09, track_m=0.45, right_off=0.0004, track_off=-0.001, fmt="ros1"),
 )
 
 
