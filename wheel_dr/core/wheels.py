@@ -132,6 +132,7 @@ class Travel:
     restart: np.ndarray    # (M,) bool: increment dropped, chain restarts here
     status: np.ndarray     # (N,) SampleStatus code of every input sample
     joint_travel_m: np.ndarray | None = None  # (M, J) per joint, left joints first, then right
+    steer_rad: np.ndarray | None = None       # (M, T) steering reading per step (wheel tables), else None
 
 
 def _columns(names: Sequence[str], wanted: Sequence[str]) -> list[int]:

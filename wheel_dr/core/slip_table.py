@@ -1,0 +1,530 @@
+"""Slip and wheel-fault detection for wheel-table bases (tricycle, car-like, mecanum, omni, swerve, custom).
+
+Interface used by the estimator (the two forms are tested equal, sample by sample):
+
+* ``detect_slip_table(model, travel, body, body_cov, gyro_z_radps, settings) -> SlipResult`` over a
+  whole run, vectorised (``travel.joint_travel_m`` (M, E) spin travel per encoder wheel in table
+  order, ``travel.steer_rad`` (M, T) steering readings, ``body`` (M, 3) increments, ``body_cov``
+  (M, 3, 3) their covariances, gyro per accepted sample, NaN where none, or None);
+* ``TableSlipMonitor(model, settings).step(status, stamp_ns, dt_s, spin, steer, body, body_cov6,
+  resid, gyro_z_radps) -> SlipStep`` one accepted sample at a time (``resid`` is
+  ``model.residual(spin, steer)`` of the step, ``body_cov6`` the upper triangle
+  (xx, xy, xt, yy, yt, tt) of its covariance).
+
+The windows, the chain-restart rule, the scores (1 at the threshold), the debounce/hysteresis latch
+and the traction latch are those of ``wheel_dr.core.slip`` (imported from there, same settings).
+Detectors (bits of ``detector``):
+
+* ``DETECTOR_GYRO`` (1), gyro against wheels: the model's heading change over the window,
+  sum dtheta, against the gyro's, sum (w_z - bias) dt, gated by a chi-square test with one degree
+  of freedom (Bar-Shalom, Li & Kirubarajan 2001, sec. 5.4; ``slip.gyro_gate``):
+  ``z = |d| / sqrt(gate * var)`` with ``var = sum C[2,2] + sigma_g^2 T^2 / n + (tol_w T)^2
+  + (tol_s dtheta_wheels)^2``, C[2,2] the heading variance of the model's increment covariance,
+  the rest as for the differential base (including the long window and the standstill gyro
+  bias, where all encoder wheels are below ``slip.still_speed_mps``). The gyro cannot say which
+  wheel is wrong: while its flag is set every encoder wheel is flagged.
+* ``DETECTOR_TRACTION`` (2), per encoder wheel: the wheel measures the ground speed of its contact
+  point along one direction (its rolling direction, or across its rollers, scaled by
+  sin(roller)); the change of that velocity (as a vector, so a steering flip by pi with the spin
+  reversed is no spike) between the window-mean at the sample and at its window's boundary,
+  over the distance of the windows' centres, beyond ``slip.traction_mu`` g cannot come from
+  rolling contact (common practice). Signed along the wheel's current direction (positive:
+  spinning up), latched per wheel by ``slip.traction_latch``; a spike on a wheel another
+  detector already flags starts nothing. The differential base's gyro veto of one-sided traction
+  flags is not applied: one wheel spinning need not turn a table base's heading.
+* ``DETECTOR_RESIDUAL`` (32), where the encoders outnumber the motion's degrees of freedom
+  (dof = 3 minus the table's sliding-constraint rank; 1 for the steered kinds): the whitened
+  least-squares residuals r of ``WheelTable.residual`` are, per step, N(0, I - P) with P the
+  projection onto the fitted directions, so each step's |r|^2 is chi-square with E - dof degrees
+  of freedom (Bar-Shalom, Li & Kirubarajan 2001, sec. 5.4; the least-squares residual test).
+  Over the window the per-wheel sums S = sum r have covariance sum (I - P_k), whose trace is
+  n (E - dof) (the trace of a projection is its rank); the statistic |S|^2 / n is chi-square with
+  E - dof degrees of freedom where P does not change within the window (and has the same mean,
+  with a lighter tail, where it does). The gate is the chi-square quantile with E - dof degrees
+  of freedom at the tail probability of ``slip.gyro_gate`` (6.63: 1 %), ``z = sqrt(stat / gate)``.
+  The wheel named is the one with the largest |S_i| (judged while the score is over 1, kept
+  while under). Steering noise is not in the residual's variance (a steering offset error shows
+  as a residual). Tables with E <= dof have no residual test.
+
+``left`` / ``right``: a flagged wheel with y > 0 / y < 0 (a wheel at y = 0 counts for both).
+Responses (``slip.response``) as for the differential base: ``inflate`` scales the step noise of
+flagged samples, ``gyro`` takes the gyro's heading increment on flagged samples with a reading
+(``dtheta_rad``; the model's elsewhere) and inflates flagged samples without one.
+
+Slip flags are advisory, not a safety function (the caution in ``wheel_dr.safety``).
+"""
+from __future__ import annotations
+
+import math
+from collections import deque
+from typing import Sequence
+
+import numpy as np
+from scipy import stats
+
+from .drive.table import WheelTable
+from .settings import Settings
+from .slip import (BIAS_MIN_SAMPLES, DETECTOR_GYRO, DETECTOR_RESIDUAL, DETECTOR_TRACTION, LONG_SHORT_SCORE,
+                   MAX_GYRO_RADPS, SlipResult, SlipStep, _Constants, _cum, _Latch, _TractionLatch, latch,
+                   traction_latch)
+from .wheels import SampleStatus, Travel
+
+__all__ = ["detect_slip_table", "TableSlipMonitor", "residual_dof", "residual_gate", "residual_statistic"]
+
+
+def residual_dof(model: WheelTable) -> int:
+    """Degrees of freedom of the residual test: encoder wheels minus the motion's dof (<= 0: no test)."""
+    return int(model.spin.sum()) - (3 - int(model._constraint_rank))
+
+
+def residual_gate(model: WheelTable, settings: Settings) -> float:
+    """Chi-square gate of the residual test: the quantile with ``residual_dof`` degrees of freedom at
+    the tail probability that ``slip.gyro_gate`` has with one (inf when there is no test)."""
+    dof = residual_dof(model)
+    if dof <= 0:
+        return math.inf
+    tail = float(stats.chi2.sf(settings.slip.gyro_gate, 1))
+    return float(stats.chi2.isf(tail, dof))
+
+
+class _TableConstants:
+    """The model and settings turned into the numbers both forms use (computed once)."""
+
+    def __init__(self, model: WheelTable, settings: Settings) -> None:
+        self.k = _Constants(settings)
+        enc = np.asarray(model.spin, dtype=bool)
+        self.e = int(enc.sum())
+        self.t = int(np.asarray(model.steered).sum())
+        self.rdof = residual_dof(model)
+        self.gate_r = residual_gate(model, settings)
+        self.y = [float(v) for v in model.y[enc]]
+        self.left = [v >= 0.0 for v in self.y]
+        self.right = [v <= 0.0 for v in self.y]
+        ang0 = (model.mount + np.where(model.standard, 0.0, model.roller - 0.5 * math.pi))[enc]
+        self.ang0 = [float(v) for v in ang0]
+        self.scale = [float(v) for v in np.where(model.standard, 1.0, np.sin(model.roller))[enc]]
+        self.cos0 = [float(v) for v in np.cos(ang0)]
+        self.sin0 = [float(v) for v in np.sin(ang0)]
+        col = np.cumsum(model.steered) - 1
+        self.steer_col = [int(col[i]) if model.steered[i] else -1 for i in np.flatnonzero(enc)]
+        self.offset = [float(model.offset[i]) for i in np.flatnonzero(enc)]
+
+
+def _finite(x: np.ndarray) -> np.ndarray:
+    return np.where(np.isfinite(x), x, 0.0)
+
+
+def _no_slip(m: int, e: int) -> SlipResult:
+    no = np.zeros(m, dtype=bool)
+    return SlipResult(no, no.copy(), no.copy(), np.zeros(m, dtype=np.int64), np.zeros(m),
+                      wheel_flags=np.zeros((m, e), dtype=bool))
+
+
+# ------------------------------------------------------------------------------------------------
+# batch
+# ------------------------------------------------------------------------------------------------
+def _window_residual(resid: np.ndarray, restart: np.ndarray, j: np.ndarray, n_win: np.ndarray):
+    """|S|^2 / n of the window sums S of the whitened residuals, and the wheel of the largest |S_i|."""
+    m = len(restart)
+    resid = np.where(restart[:, None], 0.0, _finite(np.asarray(resid, dtype=np.float64).reshape(m, -1)))
+    e = resid.shape[1]
+    cums = [_cum(resid[:, i]) for i in range(e)]
+    sums = [cr[1:] - cr[j] for cr in cums]
+    stat = sums[0] * sums[0]
+    for i in range(1, e):
+        stat = stat + sums[i] * sums[i]
+    return stat / n_win, np.argmax(np.abs(np.column_stack(sums)), axis=1)
+
+
+def residual_statistic(model: WheelTable, travel: Travel, settings: Settings) -> tuple[np.ndarray, np.ndarray]:
+    """The residual test's statistic |S|^2 / n per accepted sample (NaN where its window is not
+    evaluated or the table has no residual test) and the wheel it names (index in table order
+    of the encoder wheels). Chi-square with ``residual_dof(model)`` degrees of freedom on clean data."""
+    k = _Constants(settings)
+    m = len(travel.dt_s)
+    stamp = np.asarray(travel.stamp_ns, dtype=np.int64)
+    restart = np.asarray(travel.restart, dtype=bool)
+    if residual_dof(model) <= 0 or m == 0:
+        return np.full(m, np.nan), np.zeros(m, dtype=np.int64)
+    e = int(model.spin.sum())
+    spin = np.where(restart[:, None], 0.0, _finite(np.asarray(travel.joint_travel_m, dtype=np.float64).reshape(m, e)))
+    steer = None
+    if model.steered.any():
+        steer = _finite(np.asarray(travel.steer_rad, dtype=np.float64).reshape(m, -1))
+    j = np.searchsorted(stamp, stamp - k.window_ns, side="right")
+    idx = np.arange(m)
+    clean = (j >= 1) & (np.maximum.accumulate(np.where(restart, idx, -1)) < j)
+    stat, named = _window_residual(model.residual(spin, steer), restart, j, (idx - j + 1).astype(np.float64))
+    return np.where(clean, stat, np.nan), named
+
+
+def detect_slip_table(model: WheelTable, travel: Travel, body: np.ndarray, body_cov: np.ndarray,
+                      gyro_z_radps: np.ndarray | None, settings: Settings) -> SlipResult:
+    """Run the wheel-table slip detectors over a whole run (one entry per accepted sample).
+
+    See the module docstring for the detectors, their thresholds and the responses.
+    """
+    c = _TableConstants(model, settings)
+    k = c.k
+    e = c.e
+    m = len(travel.dt_s)
+    if not k.enabled or m == 0:
+        return _no_slip(m, e)
+    stamp = np.asarray(travel.stamp_ns, dtype=np.int64)
+    restart = np.asarray(travel.restart, dtype=bool)
+    dt = np.where(restart, 0.0, np.asarray(travel.dt_s, dtype=np.float64))
+    spin = np.where(restart[:, None], 0.0, _finite(np.asarray(travel.joint_travel_m, dtype=np.float64).reshape(m, e)))
+    steer = None
+    if c.t:
+        steer = _finite(np.asarray(travel.steer_rad, dtype=np.float64).reshape(m, c.t))
+    body = np.asarray(body, dtype=np.float64).reshape(m, 3)
+    dth = np.where(restart, 0.0, _finite(body[:, 2]))
+    var_th = np.where(restart, 0.0, _finite(np.asarray(body_cov, dtype=np.float64).reshape(m, 3, 3)[:, 2, 2]))
+
+    # gyro and its bias (mean over the last N samples with every encoder wheel standing still)
+    has_gyro = gyro_z_radps is not None
+    if has_gyro:
+        g = np.asarray(gyro_z_radps, dtype=np.float64)
+        with np.errstate(invalid="ignore"):
+            avail = np.abs(g) <= MAX_GYRO_RADPS
+        g = np.where(avail, g, 0.0)
+        still = avail & ~restart & np.all(np.abs(spin) <= (k.still * dt)[:, None], axis=1)
+        still_total = _cum(g[still])
+        cnt = np.arange(1, len(still_total))
+        n_used = np.minimum(cnt, k.bias_samples)
+        at_still = np.concatenate(((k.bias_prior,), (still_total[cnt] - still_total[cnt - n_used]) / n_used))
+        at_still[1:BIAS_MIN_SAMPLES] = k.bias_prior
+        bias = at_still[np.cumsum(still)]
+        gi = np.where(avail, (g - bias) * dt, 0.0)
+    else:
+        avail = np.zeros(m, dtype=bool)
+        gi = np.zeros(m)
+
+    # windows (stamp in (t - window, t]), boundary sample j - 1; clean: no restart inside
+    j = np.searchsorted(stamp, stamp - k.window_ns, side="right")
+    bnd = np.maximum(j - 1, 0)
+    has_b = j >= 1
+    idx = np.arange(m)
+    last_restart = np.maximum.accumulate(np.where(restart, idx, -1))
+    clean = has_b & (last_restart < j)
+    n_win = (idx - j + 1).astype(np.float64)
+    t_eff = (stamp - stamp[bnd]) * 1e-9
+    sf = np.where(clean, t_eff, 1.0)
+    rows = slice(1, m + 1)
+
+    # traction per wheel: velocity of the contact point along the wheel's measuring direction
+    za = np.zeros((m, e))
+    ok_a = clean & has_b & clean[bnd]
+    gap = 0.5 * (sf + sf[bnd])
+    for i in range(e):
+        sc = spin[:, i] * c.scale[i]
+        if c.steer_col[i] >= 0:
+            a = c.ang0[i] + (steer[:, c.steer_col[i]] - c.offset[i])
+            ca, sa = np.cos(a), np.sin(a)
+        else:
+            ca, sa = c.cos0[i], c.sin0[i]
+        cu, cw = _cum(sc * ca), _cum(sc * sa)
+        vu, vw = (cu[rows] - cu[j]) / sf, (cw[rows] - cw[j]) / sf
+        du, dw = vu - vu[bnd], vw - vw[bnd]
+        mag = np.sqrt(du * du + dw * dw) / gap / k.mu_g
+        za[:, i] = np.where(ok_a, np.where(du * ca + dw * sa >= 0.0, mag, -mag), 0.0)
+
+    # residual test
+    if c.rdof > 0:
+        resid = model.residual(spin, steer)
+        stat, raw = _window_residual(resid, restart, j, n_win)
+        zr = np.where(clean, np.sqrt(stat / c.gate_r), 0.0)
+        li = np.maximum.accumulate(np.where(zr > 1.0, idx, -1))
+        named = np.where(li >= 0, raw[np.maximum(li, 0)], raw)
+    else:
+        zr = np.zeros(m)
+        named = np.zeros(m, dtype=np.int64)
+
+    # gyro against the model's heading (window, long window)
+    zg = np.zeros(m)
+    if has_gyro:
+        last_miss = np.maximum.accumulate(np.where(avail, -1, idx))
+        g_ok = clean & (last_miss < j)
+        cum_gi, cum_v, cum_d = _cum(gi), _cum(var_th), _cum(dth)
+
+        def gyro_test(at1, jw, t_w, n, ok):
+            dth_w = cum_d[at1] - cum_d[jw]
+            d_w = dth_w - (cum_gi[at1] - cum_gi[jw])
+            var = (cum_v[at1] - cum_v[jw]) + (t_w * t_w) * (k.gyro_var / n + k.rate_tol2) \
+                + k.scale_tol2 * (dth_w * dth_w)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                z = np.where(ok, np.abs(d_w) / np.sqrt(var * k.gate), 0.0)
+            return z, d_w
+
+        zg, d = gyro_test(rows, j, t_eff, n_win, g_ok)
+        if k.long_ns > 0:
+            sub = np.flatnonzero(g_ok & (zg >= LONG_SHORT_SCORE))
+            jl = np.searchsorted(stamp, stamp[sub] - k.long_ns, side="right")
+            ok_l = (jl >= 1) & (last_restart[sub] < jl) & (last_miss[sub] < jl)
+            t_l = (stamp[sub] - stamp[np.maximum(jl - 1, 0)]) * 1e-9
+            zl, dl_w = gyro_test(sub + 1, jl, t_l, (sub - jl + 1).astype(np.float64), ok_l)
+            zg[sub] = np.maximum(zg[sub], np.where((d[sub] > 0.0) == (dl_w > 0.0), zl, 0.0))
+
+    # latches
+    def lat(z: np.ndarray) -> np.ndarray:
+        return latch(z, stamp, k.set_ns, k.clear_ns, k.clear_fraction)
+
+    no = np.zeros(m, dtype=bool)
+    on_g = lat(zg) if has_gyro else no
+    on_r = lat(zr) if c.rdof > 0 else no
+    flags = np.zeros((m, e), dtype=bool)
+    on_t = np.zeros(m, dtype=bool)
+    for i in range(e):
+        res_i = on_r & (named == i)
+        tr = traction_latch(za[:, i], stamp, k.hold_ns, k.clear_fraction, on_g | res_i)
+        on_t |= tr
+        flags[:, i] = on_g | res_i | tr
+    left = np.zeros(m, dtype=bool)
+    right = np.zeros(m, dtype=bool)
+    for i in range(e):
+        if c.left[i]:
+            left |= flags[:, i]
+        if c.right[i]:
+            right |= flags[:, i]
+    flagged = flags.any(axis=1)
+    detector = (on_g * DETECTOR_GYRO + on_t * DETECTOR_TRACTION + on_r * DETECTOR_RESIDUAL).astype(np.int64)
+    score = np.maximum(np.maximum(zg, zr), np.abs(za).max(axis=1) if e else 0.0)
+    result = SlipResult(flagged, left, right, detector, score, gyro_bias_radps=bias if has_gyro else None,
+                        wheel_flags=flags)
+    if k.response == "inflate":
+        result.noise_scale = np.where(flagged, k.inflate, 1.0)
+    elif k.response == "gyro":
+        sub = flagged & avail
+        result.dtheta_rad = np.where(sub, gi, body[:, 2])
+        result.noise_scale = np.where(flagged & ~avail, k.inflate, 1.0)
+    return result
+
+
+# ------------------------------------------------------------------------------------------------
+# streaming
+# ------------------------------------------------------------------------------------------------
+class _Entry:
+    """One sample in the window: stamp, running totals after it, and what the boundary needs."""
+
+    __slots__ = ("stamp", "totals", "cu", "cw", "cr", "clean", "vu", "vw", "span")
+
+    def __init__(self, stamp: int, totals: tuple, cu: list, cw: list, cr: list) -> None:
+        self.stamp = stamp
+        self.totals = totals
+        self.cu, self.cw, self.cr = cu, cw, cr
+        self.clean = False
+        self.vu: list[float] = []
+        self.vw: list[float] = []
+        self.span = 1.0
+
+
+def _num(v) -> float:
+    try:
+        x = float(v)
+    except (TypeError, ValueError):
+        return 0.0
+    return x if math.isfinite(x) else 0.0
+
+
+class TableSlipMonitor:
+    """Streaming form of ``detect_slip_table`` (same rules; tested equal sample by sample)."""
+
+    def __init__(self, model: WheelTable, settings: Settings) -> None:
+        self.model = model
+        self.settings = settings
+        self._c = _TableConstants(model, settings)
+        self.reset()
+
+    def reset(self) -> None:
+        """Forget detector state (windows, latches, gyro bias)."""
+        c = self._c
+        k = c.k
+        e = c.e
+        self._entries: deque[_Entry] = deque()
+        self._boundary: _Entry | None = None
+        self._lentries: deque[_Entry] = deque()
+        self._lboundary: _Entry | None = None
+        self._tu, self._tw, self._tr = [0.0] * e, [0.0] * e, [0.0] * e
+        self._t_gi = self._t_var = self._t_dth = 0.0
+        self._t_restart = self._t_miss = 0
+        self._still_count = 0
+        self._still_totals: deque[float] = deque([0.0], maxlen=k.bias_samples + 1)
+        self._named: int | None = None
+        self._lat_g, self._lat_r = _Latch(k), _Latch(k)
+        self._lat_t = [_TractionLatch(k) for _ in range(e)]
+
+    def _gyro_test(self, stamp: int, b_stamp: int, now: tuple, b_tot: tuple, n: int) -> tuple[float, float]:
+        k = self._c.k
+        t_w = (stamp - b_stamp) * 1e-9
+        dth_w = now[2] - b_tot[2]
+        d_w = dth_w - (now[0] - b_tot[0])
+        var = (now[1] - b_tot[1]) + (t_w * t_w) * (k.gyro_var / float(n) + k.rate_tol2) \
+            + k.scale_tol2 * (dth_w * dth_w)
+        return abs(d_w) / math.sqrt(var * k.gate), d_w
+
+    def step(self, status: SampleStatus, stamp_ns: int, dt_s: float, spin: Sequence[float],
+             steer: Sequence[float] | None, body: Sequence[float], body_cov6: Sequence[float],
+             resid: Sequence[float] | None, gyro_z_radps: float | None) -> SlipStep:
+        """One accepted sample (``status`` < 10); returns its flags and the response's changes."""
+        c = self._c
+        k = c.k
+        e = c.e
+        if not k.enabled:
+            return SlipStep(wheel_flags=(False,) * e)
+        stamp = int(stamp_ns)
+        restart = status != SampleStatus.USED
+        dt = 0.0 if restart else float(dt_s)
+        s = [0.0] * e if restart else [_num(v) for v in spin]
+        dth_body = _num(body[2])
+        dth = 0.0 if restart else dth_body
+        var_th = 0.0 if restart else _num(body_cov6[5])
+        st = [_num(v) for v in steer] if steer is not None else [0.0] * c.t
+
+        # gyro and bias
+        try:
+            g = float(gyro_z_radps) if gyro_z_radps is not None else math.nan
+        except (TypeError, ValueError):
+            g = math.nan
+        avail = abs(g) <= MAX_GYRO_RADPS                     # False for NaN and inf too
+        if not avail:
+            g = 0.0
+        if avail and not restart:
+            lim = k.still * dt
+            still = True
+            for v in s:
+                if abs(v) > lim:
+                    still = False
+                    break
+            if still:
+                self._still_count += 1
+                self._still_totals.append(self._still_totals[-1] + g)
+        count = self._still_count
+        if count >= BIAS_MIN_SAMPLES:
+            n_used = min(count, k.bias_samples)
+            bias = (self._still_totals[-1] - self._still_totals[-1 - n_used]) / n_used
+        else:
+            bias = k.bias_prior
+        gi = (g - bias) * dt if avail else 0.0
+
+        # running totals
+        tu, tw, tr = self._tu, self._tw, self._tr
+        cas, sas = [], []
+        for i in range(e):
+            sc = s[i] * c.scale[i]
+            col = c.steer_col[i]
+            if col >= 0:
+                a = c.ang0[i] + (st[col] - c.offset[i])
+                ca, sa = math.cos(a), math.sin(a)
+            else:
+                ca, sa = c.cos0[i], c.sin0[i]
+            cas.append(ca)
+            sas.append(sa)
+            tu[i] = tu[i] + sc * ca
+            tw[i] = tw[i] + sc * sa
+        if c.rdof > 0 and not restart and resid is not None:
+            for i in range(e):
+                tr[i] = tr[i] + _num(resid[i])
+        else:
+            for i in range(e):
+                tr[i] = tr[i] + 0.0
+        self._t_gi += gi
+        self._t_var += var_th
+        self._t_dth += dth
+        self._t_restart += int(restart)
+        self._t_miss += int(not avail)
+        entry = _Entry(stamp, (self._t_gi, self._t_var, self._t_dth, self._t_restart, self._t_miss),
+                       list(tu), list(tw), list(tr))
+        self._entries.append(entry)
+        cutoff = stamp - k.window_ns
+        while self._entries[0].stamp <= cutoff:
+            self._boundary = self._entries.popleft()
+        if k.long_ns > 0:
+            self._lentries.append(entry)
+            cutoff_l = stamp - k.long_ns
+            while self._lentries[0].stamp <= cutoff_l:
+                self._lboundary = self._lentries.popleft()
+        bnd = self._boundary
+        zeros = [0.0] * e
+        if bnd is None:
+            b_tot, b_u, b_w, b_r, b_stamp = (0.0, 0.0, 0.0, 0, 0), zeros, zeros, zeros, stamp
+        else:
+            b_tot, b_u, b_w, b_r, b_stamp = bnd.totals, bnd.cu, bnd.cw, bnd.cr, bnd.stamp
+        now = entry.totals
+        n = len(self._entries)
+        clean = bnd is not None and now[3] - b_tot[3] == 0
+        safe = (stamp - b_stamp) * 1e-9 if clean else 1.0
+        vu = [(tu[i] - b_u[i]) / safe for i in range(e)]
+        vw = [(tw[i] - b_w[i]) / safe for i in range(e)]
+        entry.clean, entry.vu, entry.vw, entry.span = clean, vu, vw, safe
+        clean_b = bnd is not None and bnd.clean
+
+        # traction per wheel
+        za = [0.0] * e
+        if clean and clean_b:
+            gap = 0.5 * (safe + bnd.span)
+            for i in range(e):
+                du, dw = vu[i] - bnd.vu[i], vw[i] - bnd.vw[i]
+                mag = math.sqrt(du * du + dw * dw) / gap / k.mu_g
+                za[i] = mag if du * cas[i] + dw * sas[i] >= 0.0 else -mag
+
+        # residual
+        zr = 0.0
+        named = 0
+        if c.rdof > 0:
+            best = -1.0
+            stat = 0.0
+            for i in range(e):
+                si = tr[i] - b_r[i]
+                stat = si * si if i == 0 else stat + si * si
+                if abs(si) > best:
+                    best, named = abs(si), i
+            if clean:
+                zr = math.sqrt(stat / float(n) / c.gate_r)
+            if zr > 1.0:
+                self._named = named
+            elif self._named is not None:
+                named = self._named
+
+        # gyro against the model's heading
+        zg = 0.0
+        g_ok = clean and now[4] - b_tot[4] == 0
+        if g_ok:
+            zg, d = self._gyro_test(stamp, b_stamp, now, b_tot, n)
+            lb = self._lboundary
+            if k.long_ns > 0 and lb is not None and zg >= LONG_SHORT_SCORE and now[3] - lb.totals[3] == 0 \
+                    and now[4] - lb.totals[4] == 0:
+                zl, dl_w = self._gyro_test(stamp, lb.stamp, now, lb.totals, len(self._lentries))
+                if (d > 0.0) == (dl_w > 0.0):
+                    zg = max(zg, zl)
+
+        on_g = self._lat_g.update(zg, stamp)
+        on_r = self._lat_r.update(zr, stamp) if c.rdof > 0 else False
+        flags = []
+        on_t = False
+        left = right = False
+        for i in range(e):
+            res_i = on_r and named == i
+            tr_i = self._lat_t[i].update(za[i], stamp, on_g or res_i)
+            on_t = on_t or tr_i
+            f = on_g or res_i or tr_i
+            flags.append(f)
+            if f:
+                left = left or c.left[i]
+                right = right or c.right[i]
+        flagged = left or right
+        detector = ((DETECTOR_GYRO if on_g else 0) | (DETECTOR_TRACTION if on_t else 0)
+                    | (DETECTOR_RESIDUAL if on_r else 0))
+        score = max(zg, zr)
+        for z in za:
+            if abs(z) > score:
+                score = abs(z)
+        out = SlipStep(flagged, left, right, detector, score,
+                       gyro_bias_radps=bias if gyro_z_radps is not None else None, wheel_flags=tuple(flags))
+        if k.response == "inflate" and flagged:
+            out.noise_scale = k.inflate
+        elif k.response == "gyro" and flagged:
+            if avail:
+                out.dtheta_rad = gi
+            else:
+                out.noise_scale = k.inflate
+        return out
