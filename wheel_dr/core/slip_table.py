@@ -42,8 +42,11 @@ Detectors (bits of ``detector``):
   E - dof degrees of freedom where P does not change within the window (and has the same mean,
   with a lighter tail, where it does). The gate is the chi-square quantile with E - dof degrees
   of freedom at the tail probability of ``slip.gyro_gate`` (6.63: 1 %), ``z = sqrt(stat / gate)``.
-  The wheel named is the one with the largest |S_i| (judged while the score is over 1, kept
-  while under). Steering noise is not in the residual's variance (a steering offset error shows
+  With E - dof >= 2 the flagged wheel is the one with the largest |S_i| (judged while the score
+  is over 1, kept while under). With E - dof = 1 (mecanum, four omni wheels, a car-like base with
+  two rear encoders) there is one parity equation: every single-wheel fault moves the residual
+  along the same direction, so the test detects but cannot isolate, and flags every encoder
+  wheel. Steering noise is not in the residual's variance (a steering offset error shows
   as a residual). Tables with E <= dof have no residual test.
 
 ``left`` / ``right``: a flagged wheel with y > 0 / y < 0 (a wheel at y = 0 counts for both).
@@ -275,7 +278,7 @@ def detect_slip_table(model: WheelTable, travel: Travel, body: np.ndarray, body_
     flags = np.zeros((m, e), dtype=bool)
     on_t = np.zeros(m, dtype=bool)
     for i in range(e):
-        res_i = on_r & (named == i)
+        res_i = on_r & (named == i) if c.rdof > 1 else on_r
         tr = traction_latch(za[:, i], stamp, k.hold_ns, k.clear_fraction, on_g | res_i)
         on_t |= tr
         flags[:, i] = on_g | res_i | tr
@@ -503,7 +506,7 @@ class TableSlipMonitor:
         on_t = False
         left = right = False
         for i in range(e):
-            res_i = on_r and named == i
+            res_i = on_r and (named == i or c.rdof == 1)
             tr_i = self._lat_t[i].update(za[i], stamp, on_g or res_i)
             on_t = on_t or tr_i
             f = on_g or res_i or tr_i
