@@ -162,10 +162,13 @@ def residual_statistic(model: WheelTable, travel: Travel, settings: Settings) ->
 
 
 def detect_slip_table(model: WheelTable, travel: Travel, body: np.ndarray, body_cov: np.ndarray,
-                      gyro_z_radps: np.ndarray | None, settings: Settings) -> SlipResult:
+                      gyro_z_radps: np.ndarray | None, settings: Settings,
+                      resid: np.ndarray | None = None) -> SlipResult:
     """Run the wheel-table slip detectors over a whole run (one entry per accepted sample).
 
-    See the module docstring for the detectors, their thresholds and the responses.
+    ``resid`` (M, E): ``model.residual(travel.joint_travel_m, travel.steer_rad)`` if the caller
+    has it already (else it is computed here). See the module docstring for the detectors, their
+    thresholds and the responses.
     """
     c = _TableConstants(model, settings)
     k = c.k
@@ -234,7 +237,8 @@ def detect_slip_table(model: WheelTable, travel: Travel, body: np.ndarray, body_
 
     # residual test
     if c.rdof > 0:
-        resid = model.residual(spin, steer)
+        if resid is None:
+            resid = model.residual(spin, steer)
         stat, raw = _window_residual(resid, restart, j, n_win)
         zr = np.where(clean, np.sqrt(stat / c.gate_r), 0.0)
         li = np.maximum.accumulate(np.where(zr > 1.0, idx, -1))
@@ -329,6 +333,18 @@ def _num(v) -> float:
     return x if math.isfinite(x) else 0.0
 
 
+def _nums(values, n: int) -> list[float]:
+    """``n`` finite floats (non-numbers, NaN and inf as 0); the fast path checks the sum only."""
+    try:
+        out = [float(v) for v in values]
+        if len(out) == n and math.isfinite(math.fsum(out)):
+            return out
+    except (TypeError, ValueError):
+        pass
+    out = [_num(v) for v in values][:n]
+    return out + [0.0] * (n - len(out))
+
+
 class TableSlipMonitor:
     """Streaming form of ``detect_slip_table`` (same rules; tested equal sample by sample)."""
 
@@ -336,6 +352,9 @@ class TableSlipMonitor:
         self.model = model
         self.settings = settings
         self._c = _TableConstants(model, settings)
+        c = self._c
+        self._wheels = list(range(c.e))
+        self._fixed = [c.steer_col[i] < 0 for i in range(c.e)]
         self.reset()
 
     def reset(self) -> None:
@@ -368,20 +387,26 @@ class TableSlipMonitor:
     def step(self, status: SampleStatus, stamp_ns: int, dt_s: float, spin: Sequence[float],
              steer: Sequence[float] | None, body: Sequence[float], body_cov6: Sequence[float],
              resid: Sequence[float] | None, gyro_z_radps: float | None) -> SlipStep:
-        """One accepted sample (``status`` < 10); returns its flags and the response's changes."""
+        """One accepted sample (``status`` < 10); returns its flags and the response's changes.
+
+        ``spin`` (E) travel per encoder wheel (m), ``steer`` (T) steering readings (rad, None
+        without steering), ``body`` (dx, dy, dtheta), ``body_cov6`` (xx, xy, xt, yy, yt, tt) of its
+        covariance, ``resid`` (E) ``model.residual(spin, steer)`` of the step (None: not given),
+        ``gyro_z_radps`` the z rate held at the sample or None.
+        """
         c = self._c
         k = c.k
         e = c.e
+        wheels = self._wheels
         if not k.enabled:
             return SlipStep(wheel_flags=(False,) * e)
         stamp = int(stamp_ns)
         restart = status != SampleStatus.USED
         dt = 0.0 if restart else float(dt_s)
-        s = [0.0] * e if restart else [_num(v) for v in spin]
-        dth_body = _num(body[2])
-        dth = 0.0 if restart else dth_body
+        s = [0.0] * e if restart else _nums(spin, e)
+        dth = 0.0 if restart else _num(body[2])
         var_th = 0.0 if restart else _num(body_cov6[5])
-        st = [_num(v) for v in steer] if steer is not None else [0.0] * c.t
+        st = _nums(steer, c.t) if (c.t and steer is not None) else [0.0] * c.t
 
         # gyro and bias
         try:
@@ -411,72 +436,71 @@ class TableSlipMonitor:
 
         # running totals
         tu, tw, tr = self._tu, self._tw, self._tr
-        cas, sas = [], []
-        for i in range(e):
-            sc = s[i] * c.scale[i]
-            col = c.steer_col[i]
-            if col >= 0:
-                a = c.ang0[i] + (st[col] - c.offset[i])
-                ca, sa = math.cos(a), math.sin(a)
-            else:
-                ca, sa = c.cos0[i], c.sin0[i]
-            cas.append(ca)
-            sas.append(sa)
-            tu[i] = tu[i] + sc * ca
-            tw[i] = tw[i] + sc * sa
-        if c.rdof > 0 and not restart and resid is not None:
-            for i in range(e):
-                tr[i] = tr[i] + _num(resid[i])
-        else:
-            for i in range(e):
-                tr[i] = tr[i] + 0.0
+        scale, cos0, sin0, fixed = c.scale, c.cos0, c.sin0, self._fixed
+        cas, sas = cos0, sin0
+        if c.t:
+            cas, sas = list(cos0), list(sin0)
+            for i in wheels:
+                if not fixed[i]:
+                    a = c.ang0[i] + (st[c.steer_col[i]] - c.offset[i])
+                    cas[i], sas[i] = math.cos(a), math.sin(a)
+        for i in wheels:
+            sc = s[i] * scale[i]
+            tu[i] = tu[i] + sc * cas[i]
+            tw[i] = tw[i] + sc * sas[i]
+        if c.rdof > 0:
+            r = [0.0] * e if (restart or resid is None) else _nums(resid, e)
+            for i in wheels:
+                tr[i] = tr[i] + r[i]
         self._t_gi += gi
         self._t_var += var_th
         self._t_dth += dth
         self._t_restart += int(restart)
         self._t_miss += int(not avail)
         entry = _Entry(stamp, (self._t_gi, self._t_var, self._t_dth, self._t_restart, self._t_miss),
-                       list(tu), list(tw), list(tr))
-        self._entries.append(entry)
+                       tu.copy(), tw.copy(), tr.copy())
+        entries = self._entries
+        entries.append(entry)
         cutoff = stamp - k.window_ns
-        while self._entries[0].stamp <= cutoff:
-            self._boundary = self._entries.popleft()
+        while entries[0].stamp <= cutoff:
+            self._boundary = entries.popleft()
         if k.long_ns > 0:
             self._lentries.append(entry)
             cutoff_l = stamp - k.long_ns
             while self._lentries[0].stamp <= cutoff_l:
                 self._lboundary = self._lentries.popleft()
         bnd = self._boundary
-        zeros = [0.0] * e
-        if bnd is None:
-            b_tot, b_u, b_w, b_r, b_stamp = (0.0, 0.0, 0.0, 0, 0), zeros, zeros, zeros, stamp
-        else:
-            b_tot, b_u, b_w, b_r, b_stamp = bnd.totals, bnd.cu, bnd.cw, bnd.cr, bnd.stamp
         now = entry.totals
-        n = len(self._entries)
-        clean = bnd is not None and now[3] - b_tot[3] == 0
-        safe = (stamp - b_stamp) * 1e-9 if clean else 1.0
-        vu = [(tu[i] - b_u[i]) / safe for i in range(e)]
-        vw = [(tw[i] - b_w[i]) / safe for i in range(e)]
-        entry.clean, entry.vu, entry.vw, entry.span = clean, vu, vw, safe
-        clean_b = bnd is not None and bnd.clean
-
-        # traction per wheel
+        n = len(entries)
+        if bnd is None:
+            clean, clean_b, b_stamp, b_tot = False, False, stamp, (0.0, 0.0, 0.0, 0, 0)
+        else:
+            b_stamp, b_tot = bnd.stamp, bnd.totals
+            clean, clean_b = now[3] - b_tot[3] == 0, bnd.clean
         za = [0.0] * e
-        if clean and clean_b:
-            gap = 0.5 * (safe + bnd.span)
-            for i in range(e):
-                du, dw = vu[i] - bnd.vu[i], vw[i] - bnd.vw[i]
-                mag = math.sqrt(du * du + dw * dw) / gap / k.mu_g
-                za[i] = mag if du * cas[i] + dw * sas[i] >= 0.0 else -mag
-
-        # residual
         zr = 0.0
         named = 0
+        if clean:
+            safe = (stamp - b_stamp) * 1e-9
+            b_u, b_w = bnd.cu, bnd.cw
+            vu = [(tu[i] - b_u[i]) / safe for i in wheels]
+            vw = [(tw[i] - b_w[i]) / safe for i in wheels]
+            entry.clean, entry.vu, entry.vw, entry.span = True, vu, vw, safe
+            # traction per wheel
+            if clean_b:
+                den = 0.5 * (safe + bnd.span)
+                mu_g = k.mu_g
+                bu, bw = bnd.vu, bnd.vw
+                for i in wheels:
+                    du, dw = vu[i] - bu[i], vw[i] - bw[i]
+                    mag = math.sqrt(du * du + dw * dw) / den / mu_g
+                    za[i] = mag if du * cas[i] + dw * sas[i] >= 0.0 else -mag
+        # residual
         if c.rdof > 0:
+            b_r = bnd.cr if bnd is not None else [0.0] * e
             best = -1.0
             stat = 0.0
-            for i in range(e):
+            for i in wheels:
                 si = tr[i] - b_r[i]
                 stat = si * si if i == 0 else stat + si * si
                 if abs(si) > best:
@@ -490,8 +514,7 @@ class TableSlipMonitor:
 
         # gyro against the model's heading
         zg = 0.0
-        g_ok = clean and now[4] - b_tot[4] == 0
-        if g_ok:
+        if clean and now[4] - b_tot[4] == 0:
             zg, d = self._gyro_test(stamp, b_stamp, now, b_tot, n)
             lb = self._lboundary
             if k.long_ns > 0 and lb is not None and zg >= LONG_SHORT_SCORE and now[3] - lb.totals[3] == 0 \
@@ -502,25 +525,26 @@ class TableSlipMonitor:
 
         on_g = self._lat_g.update(zg, stamp)
         on_r = self._lat_r.update(zr, stamp) if c.rdof > 0 else False
-        flags = []
+        every = on_r and c.rdof == 1
+        flags = [False] * e
         on_t = False
         left = right = False
-        for i in range(e):
-            res_i = on_r and (named == i or c.rdof == 1)
-            tr_i = self._lat_t[i].update(za[i], stamp, on_g or res_i)
-            on_t = on_t or tr_i
-            f = on_g or res_i or tr_i
-            flags.append(f)
-            if f:
+        score = zg if zg > zr else zr
+        lat_t = self._lat_t
+        for i in wheels:
+            res_i = every or (on_r and named == i)
+            z = za[i]
+            tr_i = lat_t[i].update(z, stamp, on_g or res_i)
+            if abs(z) > score:
+                score = abs(z)
+            if on_g or res_i or tr_i:
+                on_t = on_t or tr_i
+                flags[i] = True
                 left = left or c.left[i]
                 right = right or c.right[i]
         flagged = left or right
         detector = ((DETECTOR_GYRO if on_g else 0) | (DETECTOR_TRACTION if on_t else 0)
                     | (DETECTOR_RESIDUAL if on_r else 0))
-        score = max(zg, zr)
-        for z in za:
-            if abs(z) > score:
-                score = abs(z)
         out = SlipStep(flagged, left, right, detector, score,
                        gyro_bias_radps=bias if gyro_z_radps is not None else None, wheel_flags=tuple(flags))
         if k.response == "inflate" and flagged:
