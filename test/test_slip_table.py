@@ -300,14 +300,15 @@ def _stream(model, travel, body, cov, gyro, settings, drop=()):
 
 
 @pytest.mark.parametrize("kind", KINDS)
-@pytest.mark.parametrize("response", ["flag", "gyro"])
+@pytest.mark.parametrize("response", ["inflate", "gyro"])
 def test_batch_equals_streaming_sample_by_sample(kind, response) -> None:
     """DESIGN.md: batch and streaming agree sample by sample: flags, wheel flags, detectors exactly,
     scores and increments to 1e-9 (the streaming form gets its residuals one row at a time).
-    With a spinning wheel, a gyro disagreement, IMU dropouts (NaN / None) and a chain restart."""
+    With a spinning wheel, a gyro disagreement, IMU dropouts (NaN / None, inside the slip) and a
+    chain restart."""
     travel, body, cov, gyro, model, _ = _make(kind, seconds=14.0, seed=12, slip=(0, 4.0, 6.0, 1.0, 0.05),
                                               gyro_offset=(9.0, 10.5, 0.5), gaps=(700,))
-    drop = set(range(300, 330))
+    drop = set(range(520, 560))
     gyro = gyro.copy()
     gyro[list(drop)] = np.nan
     settings = Settings().with_values({"slip.response": response})
@@ -323,6 +324,9 @@ def test_batch_equals_streaming_sample_by_sample(kind, response) -> None:
     assert (~read).sum() == len(drop)
     np.testing.assert_allclose(np.array([x.gyro_bias_radps for x in steps if x.gyro_bias_radps is not None]),
                                res.gyro_bias_radps[read], rtol=1e-12)
+    scale = np.array([x.noise_scale for x in steps])
+    np.testing.assert_array_equal(scale, res.noise_scale)
+    assert (scale > 1.0).any()
     if response == "gyro":
         dth = np.array([body[i, 2] if x.dtheta_rad is None else x.dtheta_rad for i, x in enumerate(steps)])
         np.testing.assert_allclose(dth, res.dtheta_rad, rtol=1e-9, atol=1e-15)
@@ -341,3 +345,25 @@ def test_monitor_never_raises_on_bad_values_and_resets() -> None:
     mon.reset()
     assert mon.step(SampleStatus.GAP, 0, 0.0, [0.0] * 4, [0.0] * 4, [0.0] * 3, [0.0] * 6, [0.0] * 4,
                     None).score == 0.0
+
+
+def test_steered_table_without_steering_readings_is_refused_in_one_sentence() -> None:
+    """Bad input gets one clear sentence naming the thing and the fix."""
+    travel, body, cov, gyro, model, _ = _make("swerve", seconds=2.0)
+    travel.steer_rad = None
+    with pytest.raises(ValueError, match="steer_rad"):
+        detect_slip_table(model, travel, body, cov, gyro, Settings())
+
+
+def test_disabled_detection_never_flags() -> None:
+    """slip.enabled false: no flags in either form, one (false) flag per encoder wheel."""
+    travel, body, cov, gyro, model, _ = _make("mecanum", seconds=12.0, slip=(1, 4.0, 6.0, 1.0, 0.05),
+                                              gyro_offset=(8.0, 10.0, 0.5))
+    on = detect_slip_table(model, travel, body, cov, gyro, Settings())
+    assert on.slip.any()
+    off_settings = Settings().with_values({"slip.enabled": False})
+    off = detect_slip_table(model, travel, body, cov, gyro, off_settings)
+    assert not off.slip.any() and off.wheel_flags.shape == (len(travel.dt_s), 4) and not off.wheel_flags.any()
+    st = TableSlipMonitor(model, off_settings).step(SampleStatus.USED, 10, DT, [0.01] * 4, None, [0.01, 0, 0],
+                                                    [0.0] * 6, [0.0] * 4, 0.0)
+    assert not st.slip and st.wheel_flags == (False,) * 4

@@ -182,6 +182,9 @@ def detect_slip_table(model: WheelTable, travel: Travel, body: np.ndarray, body_
     spin = np.where(restart[:, None], 0.0, _finite(np.asarray(travel.joint_travel_m, dtype=np.float64).reshape(m, e)))
     steer = None
     if c.t:
+        if travel.steer_rad is None:
+            raise ValueError(f"a {model.kind} table has steered wheels: Travel.steer_rad must hold their "
+                             "readings (one column per steered wheel).")
         steer = _finite(np.asarray(travel.steer_rad, dtype=np.float64).reshape(m, c.t))
     body = np.asarray(body, dtype=np.float64).reshape(m, 3)
     dth = np.where(restart, 0.0, _finite(body[:, 2]))
