@@ -337,7 +337,7 @@ def test_monitor_never_raises_on_bad_values_and_resets() -> None:
     ``reset`` forgets the state (the next sample starts a fresh chain)."""
     model = tables()["swerve"]
     mon = TableSlipMonitor(model, Settings())
-    bad = [math.nan, math.inf, "x", None]
+    bad = [math.nan, math.inf, "x", None, 10 ** 400, 1e308]
     for i, b in enumerate(bad):
         st = mon.step(SampleStatus.USED, (i + 1) * 10_000_000, DT, [b, 0.01, 0.01, 0.01], [b, 0.0, 0.0, 0.0],
                       [0.01, 0.0, b], [1e-6, 0.0, 0.0, 1e-6, 0.0, b], [b, 0.0, 0.0, 0.0], b)

@@ -331,7 +331,7 @@ class _Entry:
 def _num(v) -> float:
     try:
         x = float(v)
-    except (TypeError, ValueError):
+    except (TypeError, ValueError, OverflowError):
         return 0.0
     return x if math.isfinite(x) else 0.0
 
@@ -342,7 +342,7 @@ def _nums(values, n: int) -> list[float]:
         out = [float(v) for v in values]
         if len(out) == n and math.isfinite(math.fsum(out)):
             return out
-    except (TypeError, ValueError):
+    except (TypeError, ValueError, OverflowError):
         pass
     out = [_num(v) for v in values][:n]
     return out + [0.0] * (n - len(out))
@@ -414,7 +414,7 @@ class TableSlipMonitor:
         # gyro and bias
         try:
             g = float(gyro_z_radps) if gyro_z_radps is not None else math.nan
-        except (TypeError, ValueError):
+        except (TypeError, ValueError, OverflowError):
             g = math.nan
         avail = abs(g) <= MAX_GYRO_RADPS                     # False for NaN and inf too
         if not avail:
