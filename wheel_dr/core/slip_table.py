@@ -63,7 +63,6 @@ from collections import deque
 from typing import Sequence
 
 import numpy as np
-from scipy import stats
 
 from .drive.table import WheelTable
 from .settings import Settings
@@ -86,6 +85,8 @@ def residual_gate(model: WheelTable, settings: Settings) -> float:
     dof = residual_dof(model)
     if dof <= 0:
         return math.inf
+    from scipy import stats               # here, not at import: the node's start-up stays lean
+
     tail = float(stats.chi2.sf(settings.slip.gyro_gate, 1))
     return float(stats.chi2.isf(tail, dof))
 
