@@ -227,6 +227,28 @@ def test_residual_test_flags_and_names_a_spinning_wheel(kind) -> None:
     assert res.slip[t > 11.5].mean() <= 0.05
 
 
+@pytest.mark.parametrize("kind", ["ackermann", "mecanum", "omni"])
+def test_gyro_narrows_the_wheels_of_a_single_parity_equation(kind) -> None:
+    """With one parity equation and an IMU, the gyro is a second redundant measurement: only the
+    wheels whose fault would also explain the heading difference (chi-square gate, Bar-Shalom et al.
+    2001, sec. 5.4) are flagged. On the car-like base the two rear wheels turn the heading opposite
+    ways, so the wheel itself is named; on mecanum and four-wheel omni bases a wheel and its diagonal
+    partner have the same signature in both equations, so the pair is named (two of four)."""
+    wheel = SLIP_WHEEL[kind]
+    travel, body, cov, gyro, model, _ = _make(kind, seconds=20.0, seed=8, slip=(wheel, 8.0, 11.0, 0.4, 0.5))
+    res = detect_slip_table(model, travel, body, cov, gyro, Settings())
+    t = travel.stamp_ns * 1e-9
+    core = (t >= 8.3) & (t <= 11.0)
+    assert res.slip[core].mean() >= 0.9
+    inside = core & res.slip
+    assert res.wheel_flags[inside, wheel].mean() >= 0.9
+    count = res.wheel_flags[inside].sum(axis=1)
+    if kind == "ackermann":
+        assert (count == 1).mean() >= 0.75
+    else:
+        assert (count == 2).mean() >= 0.9
+
+
 @pytest.mark.parametrize("kind", KINDS)
 def test_traction_test_names_a_wheel_that_spins_up_faster_than_mu_g(kind) -> None:
     """A wheel whose surface speed jumps by 1.5 m/s in 50 ms (30 m/s^2, beyond 0.5 g; common

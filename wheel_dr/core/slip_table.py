@@ -21,8 +21,9 @@ Detectors (bits of ``detector``):
   ``z = |d| / sqrt(gate * var)`` with ``var = sum C[2,2] + sigma_g^2 T^2 / n + (tol_w T)^2
   + (tol_s dtheta_wheels)^2``, C[2,2] the heading variance of the model's increment covariance,
   the rest as for the differential base (including the long window and the standstill gyro
-  bias, where all encoder wheels are below ``slip.still_speed_mps``). The gyro cannot say which
-  wheel is wrong: while its flag is set every encoder wheel is flagged.
+  bias, where all encoder wheels are below ``slip.still_speed_mps``). The gyro alone cannot say
+  which wheel is wrong: while its flag is set and the residual's is not, every encoder wheel is
+  flagged (with the residual's set, the residual names the wheels).
 * ``DETECTOR_TRACTION`` (2), per encoder wheel: the wheel measures the ground speed of its contact
   point along one direction (its rolling direction, or across its rollers, scaled by
   sin(roller)); the change of that velocity (as a vector, so a steering flip by pi with the spin
@@ -45,8 +46,12 @@ Detectors (bits of ``detector``):
   With E - dof >= 2 the flagged wheel is the one with the largest |S_i| (judged while the score
   is over 1, kept while under). With E - dof = 1 (mecanum, four omni wheels, a car-like base with
   two rear encoders) there is one parity equation: every single-wheel fault moves the residual
-  along the same direction, so the test detects but cannot isolate, and flags every encoder
-  wheel. Steering noise is not in the residual's variance (a steering offset error shows
+  along the same direction, so the residual alone detects but cannot isolate. Where the gyro is
+  read it is a second redundant measurement: a fault on wheel i that explains the residual would
+  change the heading by sqrt(w_i) (C R_i^T)[theta] |r|^2 / r_i per step (C the increment's
+  covariance, R_i the wheel's rolling row, w_i its weight), and the wheels flagged are those whose
+  window sum of that agrees with the gyro's heading difference within the gyro test's gate (all,
+  if none does or without a gyro). Steering noise is not in the residual's variance (a steering offset error shows
   as a residual). Tables with E <= dof have no residual test.
 
 ``left`` / ``right``: a flagged wheel with y > 0 / y < 0 (a wheel at y = 0 counts for both).
@@ -66,6 +71,7 @@ import numpy as np
 
 from .drive.table import WheelTable
 from .settings import Settings
+from .drive.table import _ROBUST_FRACTION as _ROBUST
 from .slip import (BIAS_MIN_SAMPLES, DETECTOR_GYRO, DETECTOR_RESIDUAL, DETECTOR_TRACTION, LONG_SHORT_SCORE,
                    MAX_GYRO_RADPS, SlipResult, SlipStep, _Constants, _cum, _Latch, _TractionLatch, latch,
                    traction_latch)
@@ -112,6 +118,8 @@ class _TableConstants:
         col = np.cumsum(model.steered) - 1
         self.steer_col = [int(col[i]) if model.steered[i] else -1 for i in np.flatnonzero(enc)]
         self.offset = [float(model.offset[i]) for i in np.flatnonzero(enc)]
+        self.x = [float(v) for v in model.x[enc]]
+        self.kw = [float(v) for v in model.k[enc]]
 
 
 def _finite(x: np.ndarray) -> np.ndarray:
@@ -226,6 +234,7 @@ def detect_slip_table(model: WheelTable, travel: Travel, body: np.ndarray, body_
     za = np.zeros((m, e))
     ok_a = clean & has_b & clean[bnd]
     gap = 0.5 * (sf + sf[bnd])
+    dirs = []
     for i in range(e):
         sc = spin[:, i] * c.scale[i]
         if c.steer_col[i] >= 0:
@@ -233,6 +242,7 @@ def detect_slip_table(model: WheelTable, travel: Travel, body: np.ndarray, body_
             ca, sa = np.cos(a), np.sin(a)
         else:
             ca, sa = c.cos0[i], c.sin0[i]
+        dirs.append((ca, sa))
         cu, cw = _cum(sc * ca), _cum(sc * sa)
         vu, vw = (cu[rows] - cu[j]) / sf, (cw[rows] - cw[j]) / sf
         du, dw = vu - vu[bnd], vw - vw[bnd]
@@ -243,6 +253,7 @@ def detect_slip_table(model: WheelTable, travel: Travel, body: np.ndarray, body_
     if c.rdof > 0:
         if resid is None:
             resid = model.residual(spin, steer)
+        resid = np.where(restart[:, None], 0.0, _finite(np.asarray(resid, dtype=np.float64).reshape(m, e)))
         stat, raw = _window_residual(resid, restart, j, n_win)
         zr = np.where(clean, np.sqrt(stat / c.gate_r), 0.0)
         li = np.maximum.accumulate(np.where(zr > 1.0, idx, -1))
@@ -265,16 +276,46 @@ def detect_slip_table(model: WheelTable, travel: Travel, body: np.ndarray, body_
                 + k.scale_tol2 * (dth_w * dth_w)
             with np.errstate(divide="ignore", invalid="ignore"):
                 z = np.where(ok, np.abs(d_w) / np.sqrt(var * k.gate), 0.0)
-            return z, d_w
+            return z, d_w, var
 
-        zg, d = gyro_test(rows, j, t_eff, n_win, g_ok)
+        zg, d, var_g = gyro_test(rows, j, t_eff, n_win, g_ok)
         if k.long_ns > 0:
             sub = np.flatnonzero(g_ok & (zg >= LONG_SHORT_SCORE))
             jl = np.searchsorted(stamp, stamp[sub] - k.long_ns, side="right")
             ok_l = (jl >= 1) & (last_restart[sub] < jl) & (last_miss[sub] < jl)
             t_l = (stamp[sub] - stamp[np.maximum(jl - 1, 0)]) * 1e-9
-            zl, dl_w = gyro_test(sub + 1, jl, t_l, (sub - jl + 1).astype(np.float64), ok_l)
+            zl, dl_w, _ = gyro_test(sub + 1, jl, t_l, (sub - jl + 1).astype(np.float64), ok_l)
             zg[sub] = np.maximum(zg[sub], np.where((d[sub] > 0.0) == (dl_w > 0.0), zl, 0.0))
+
+    # which wheels the residual flags: the one named (E - dof >= 2); with one parity equation the
+    # wheels whose fault would also explain the gyro's heading difference, or all without a gyro
+    if c.rdof >= 2:
+        res_set = np.column_stack([named == i for i in range(e)])
+    else:
+        res_set = np.ones((m, e), dtype=bool)
+    if c.rdof == 1 and has_gyro:
+        cov3 = np.asarray(body_cov, dtype=np.float64).reshape(m, 3, 3)
+        xt, yt, tt = (np.where(restart, 0.0, _finite(cov3[:, a, 2])) for a in range(3))
+        r2 = resid[:, 0] * resid[:, 0]
+        mean_abs = np.abs(spin[:, 0])
+        for i in range(1, e):
+            r2 = r2 + resid[:, i] * resid[:, i]
+            mean_abs = mean_abs + np.abs(spin[:, i])
+        floor = np.maximum(_ROBUST * (mean_abs / e), 1e-12)
+        cons = np.empty((m, e), dtype=bool)
+        for i in range(e):
+            ca, sa = dirs[i]
+            crow = xt * ca + yt * sa + tt * (sa * c.x[i] - ca * c.y[i])
+            sw = 1.0 / (abs(c.scale[i]) * np.sqrt(c.kw[i] * np.maximum(np.abs(spin[:, i]), floor) + 1e-30))
+            ri = resid[:, i]
+            with np.errstate(divide="ignore", invalid="ignore"):
+                sig = np.where(ri != 0.0, crow * sw * r2 / ri, 0.0)
+            cd = _cum(np.where(avail, _finite(sig), 0.0))   # only windows with every gyro reading use it
+            with np.errstate(divide="ignore", invalid="ignore"):
+                cons[:, i] = np.abs(d - (cd[rows] - cd[j])) / np.sqrt(var_g * k.gate) <= 1.0
+        cons = np.where(cons.any(axis=1)[:, None], cons, True)
+        li = np.maximum.accumulate(np.where((zr > 1.0) & g_ok, idx, -1))
+        res_set = np.where((li >= 0)[:, None], cons[np.maximum(li, 0)], True)
 
     # latches
     def lat(z: np.ndarray) -> np.ndarray:
@@ -285,11 +326,12 @@ def detect_slip_table(model: WheelTable, travel: Travel, body: np.ndarray, body_
     on_r = lat(zr) if c.rdof > 0 else no
     flags = np.zeros((m, e), dtype=bool)
     on_t = np.zeros(m, dtype=bool)
+    gyro_all = on_g & ~on_r           # with the residual flag set, it names the wheels
     for i in range(e):
-        res_i = on_r & (named == i) if c.rdof > 1 else on_r
+        res_i = on_r & res_set[:, i]
         tr = traction_latch(za[:, i], stamp, k.hold_ns, k.clear_fraction, on_g | res_i)
         on_t |= tr
-        flags[:, i] = on_g | res_i | tr
+        flags[:, i] = gyro_all | res_i | tr
     left = np.zeros(m, dtype=bool)
     right = np.zeros(m, dtype=bool)
     for i in range(e):
@@ -317,12 +359,12 @@ def detect_slip_table(model: WheelTable, travel: Travel, body: np.ndarray, body_
 class _Entry:
     """One sample in the window: stamp, running totals after it, and what the boundary needs."""
 
-    __slots__ = ("stamp", "totals", "cu", "cw", "cr", "clean", "vu", "vw", "span")
+    __slots__ = ("stamp", "totals", "cu", "cw", "cr", "cd", "clean", "vu", "vw", "span")
 
-    def __init__(self, stamp: int, totals: tuple, cu: list, cw: list, cr: list) -> None:
+    def __init__(self, stamp: int, totals: tuple, cu: list, cw: list, cr: list, cd: list) -> None:
         self.stamp = stamp
         self.totals = totals
-        self.cu, self.cw, self.cr = cu, cw, cr
+        self.cu, self.cw, self.cr, self.cd = cu, cw, cr, cd
         self.clean = False
         self.vu: list[float] = []
         self.vw: list[float] = []
@@ -370,7 +412,8 @@ class TableSlipMonitor:
         self._boundary: _Entry | None = None
         self._lentries: deque[_Entry] = deque()
         self._lboundary: _Entry | None = None
-        self._tu, self._tw, self._tr = [0.0] * e, [0.0] * e, [0.0] * e
+        self._tu, self._tw, self._tr, self._td = [0.0] * e, [0.0] * e, [0.0] * e, [0.0] * e
+        self._cons: list[bool] | None = None
         self._t_gi = self._t_var = self._t_dth = 0.0
         self._t_restart = self._t_miss = 0
         self._still_count = 0
@@ -386,7 +429,7 @@ class TableSlipMonitor:
         d_w = dth_w - (now[0] - b_tot[0])
         var = (now[1] - b_tot[1]) + (t_w * t_w) * (k.gyro_var / float(n) + k.rate_tol2) \
             + k.scale_tol2 * (dth_w * dth_w)
-        return abs(d_w) / math.sqrt(var * k.gate), d_w
+        return abs(d_w) / math.sqrt(var * k.gate), d_w, var
 
     def step(self, status: SampleStatus, stamp_ns: int, dt_s: float, spin: Sequence[float],
              steer: Sequence[float] | None, body: Sequence[float], body_cov6: Sequence[float],
@@ -452,17 +495,40 @@ class TableSlipMonitor:
             sc = s[i] * scale[i]
             tu[i] = tu[i] + sc * cas[i]
             tw[i] = tw[i] + sc * sas[i]
+        td = self._td
         if c.rdof > 0:
             r = [0.0] * e if (restart or resid is None) else _nums(resid, e)
             for i in wheels:
                 tr[i] = tr[i] + r[i]
+            if c.rdof == 1 and avail:
+                # heading change a fault on wheel i would explain (its parity share, through the
+                # increment's covariance row): sqrt(w_i) (C R_i^T)[theta] |r|^2 / r_i
+                if restart:
+                    xt = yt = tt = 0.0
+                else:
+                    xt, yt, tt = _num(body_cov6[2]), _num(body_cov6[4]), var_th
+                r2 = r[0] * r[0]
+                mean_abs = abs(s[0])
+                for i in range(1, e):
+                    r2 = r2 + r[i] * r[i]
+                    mean_abs = mean_abs + abs(s[i])
+                floor = max(_ROBUST * (mean_abs / e), 1e-12)
+                for i in wheels:
+                    ri = r[i]
+                    if ri != 0.0:
+                        ca, sa = cas[i], sas[i]
+                        crow = xt * ca + yt * sa + tt * (sa * c.x[i] - ca * c.y[i])
+                        sw = 1.0 / (abs(scale[i]) * math.sqrt(c.kw[i] * max(abs(s[i]), floor) + 1e-30))
+                        sig = crow * sw * r2 / ri
+                        if math.isfinite(sig):
+                            td[i] = td[i] + sig      # (adding nothing leaves the total as the batch's)
         self._t_gi += gi
         self._t_var += var_th
         self._t_dth += dth
         self._t_restart += int(restart)
         self._t_miss += int(not avail)
         entry = _Entry(stamp, (self._t_gi, self._t_var, self._t_dth, self._t_restart, self._t_miss),
-                       tu.copy(), tw.copy(), tr.copy())
+                       tu.copy(), tw.copy(), tr.copy(), td.copy())
         entries = self._entries
         entries.append(entry)
         cutoff = stamp - k.window_ns
@@ -519,29 +585,36 @@ class TableSlipMonitor:
         # gyro against the model's heading
         zg = 0.0
         if clean and now[4] - b_tot[4] == 0:
-            zg, d = self._gyro_test(stamp, b_stamp, now, b_tot, n)
+            zg, d, var_g = self._gyro_test(stamp, b_stamp, now, b_tot, n)
             lb = self._lboundary
             if k.long_ns > 0 and lb is not None and zg >= LONG_SHORT_SCORE and now[3] - lb.totals[3] == 0 \
                     and now[4] - lb.totals[4] == 0:
-                zl, dl_w = self._gyro_test(stamp, lb.stamp, now, lb.totals, len(self._lentries))
+                zl, dl_w, _ = self._gyro_test(stamp, lb.stamp, now, lb.totals, len(self._lentries))
                 if (d > 0.0) == (dl_w > 0.0):
                     zg = max(zg, zl)
+            if c.rdof == 1 and zr > 1.0:
+                lim = math.sqrt(var_g * k.gate)
+                b_d = bnd.cd
+                cons = [abs(d - (td[i] - b_d[i])) / lim <= 1.0 for i in wheels]
+                self._cons = cons if any(cons) else [True] * e
 
         on_g = self._lat_g.update(zg, stamp)
         on_r = self._lat_r.update(zr, stamp) if c.rdof > 0 else False
-        every = on_r and c.rdof == 1
+        gyro_all = on_g and not on_r          # with the residual flag set, it names the wheels
+        cons = self._cons if (on_r and c.rdof == 1) else None
+        every = on_r and c.rdof == 1 and cons is None
         flags = [False] * e
         on_t = False
         left = right = False
         score = zg if zg > zr else zr
         lat_t = self._lat_t
         for i in wheels:
-            res_i = every or (on_r and named == i)
+            res_i = every or (on_r and (cons[i] if cons is not None else (c.rdof >= 2 and named == i)))
             z = za[i]
             tr_i = lat_t[i].update(z, stamp, on_g or res_i)
             if abs(z) > score:
                 score = abs(z)
-            if on_g or res_i or tr_i:
+            if gyro_all or res_i or tr_i:
                 on_t = on_t or tr_i
                 flags[i] = True
                 left = left or c.left[i]
