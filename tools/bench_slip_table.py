@@ -11,8 +11,6 @@ import sys
 import time
 from pathlib import Path
 
-import numpy as np
-
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "test"))
 from test_slip_table import DT, KINDS, _make  # noqa: E402  (the tests' drives, one per kind)
 
