@@ -5,7 +5,8 @@ Interface used by the estimator (the two forms are tested equal, sample by sampl
 * ``detect_slip_table(model, travel, body, body_cov, gyro_z_radps, settings) -> SlipResult`` over a
   whole run, vectorised (``travel.joint_travel_m`` (M, E) spin travel per encoder wheel in table
   order, ``travel.steer_rad`` (M, T) steering readings, ``body`` (M, 3) increments, ``body_cov``
-  (M, 3, 3) their covariances, gyro per accepted sample, NaN where none, or None);
+  (M, 3, 3) their covariances, gyro per accepted sample, NaN where none, or None; an optional
+  ``resid`` (M, E) saves recomputing ``model.residual``);
 * ``TableSlipMonitor(model, settings).step(status, stamp_ns, dt_s, spin, steer, body, body_cov6,
   resid, gyro_z_radps) -> SlipStep`` one accepted sample at a time (``resid`` is
   ``model.residual(spin, steer)`` of the step, ``body_cov6`` the upper triangle
@@ -40,9 +41,11 @@ Detectors (bits of ``detector``):
   of freedom (Bar-Shalom, Li & Kirubarajan 2001, sec. 5.4; the least-squares residual test).
   Over the window the per-wheel sums S = sum r have covariance sum (I - P_k), whose trace is
   n (E - dof) (the trace of a projection is its rank); the statistic |S|^2 / n is chi-square with
-  E - dof degrees of freedom where P does not change within the window (and has the same mean,
-  with a lighter tail, where it does). The gate is the chi-square quantile with E - dof degrees
-  of freedom at the tail probability of ``slip.gyro_gate`` (6.63: 1 %), ``z = sqrt(stat / gate)``.
+  E - dof degrees of freedom where P does not change within the window (where it does, the mean
+  is the same and the upper tail, in the tests, no heavier; the weights are taken at the measured
+  travel, which adds to both once the step's noise is a sizeable part of the step). The gate is
+  the chi-square quantile with E - dof degrees of freedom at the tail probability of
+  ``slip.gyro_gate`` (6.63: 1 %), ``z = sqrt(stat / gate)``.
   With E - dof >= 2 the flagged wheel is the one with the largest |S_i| (judged while the score
   is over 1, kept while under). With E - dof = 1 (mecanum, four omni wheels, a car-like base with
   two rear encoders) there is one parity equation: every single-wheel fault moves the residual
@@ -51,8 +54,9 @@ Detectors (bits of ``detector``):
   change the heading by sqrt(w_i) (C R_i^T)[theta] |r|^2 / r_i per step (C the increment's
   covariance, R_i the wheel's rolling row, w_i its weight), and the wheels flagged are those whose
   window sum of that agrees with the gyro's heading difference within the gyro test's gate (all,
-  if none does or without a gyro). Steering noise is not in the residual's variance (a steering offset error shows
-  as a residual). Tables with E <= dof have no residual test.
+  if none does or without a gyro). Steering noise is not in the residual's variance (a steering
+  offset error shows as a residual). Tables with E <= dof have no residual test;
+  ``residual_statistic`` gives the statistic itself (for checks and the report).
 
 ``left`` / ``right``: a flagged wheel with y > 0 / y < 0 (a wheel at y = 0 counts for both).
 Responses (``slip.response``) as for the differential base: ``inflate`` scales the step noise of
