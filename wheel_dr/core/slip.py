@@ -86,6 +86,7 @@ __all__ = [
     "DETECTOR_GYRO",
     "DETECTOR_TRACTION",
     "DETECTOR_SAME_SIDE",
+    "DETECTOR_RESIDUAL",
     "DETECTOR_ACCEL",
     "DETECTOR_COMMAND",
     "DETECTOR_NAMES",
@@ -98,8 +99,9 @@ __all__ = [
 DETECTOR_GYRO = 1        # gyro z rate disagrees with the wheels' yaw rate (chi-square gate)
 DETECTOR_TRACTION = 2    # a wheel accelerates faster than traction allows (mu g)
 DETECTOR_SAME_SIDE = 4   # wheels of one side disagree (sides with two or more joints)
+DETECTOR_RESIDUAL = 32   # a wheel disagrees with the others (wheel tables with redundant encoders)
 DETECTOR_NAMES = {DETECTOR_GYRO: "gyro", DETECTOR_TRACTION: "traction", DETECTOR_SAME_SIDE: "same_side",
-                  DETECTOR_ACCEL: "accel", DETECTOR_COMMAND: "command"}
+                  DETECTOR_ACCEL: "accel", DETECTOR_COMMAND: "command", DETECTOR_RESIDUAL: "residual"}
 
 STANDARD_GRAVITY_MPS2 = 9.80665  # standard acceleration of gravity (3rd CGPM, 1901)
 BIAS_MIN_SAMPLES = 10            # standing-still samples needed before the gyro bias estimate is used
@@ -122,6 +124,7 @@ class SlipResult:
     gyro_bias_radps: np.ndarray | None = None  # gyro bias estimate in use at each sample, or None without gyro
     ds_m: np.ndarray | None = None         # body distances to integrate (slip.distance_source 'observer'), or None
     accel_bias_mps2: np.ndarray | None = None  # accelerometer bias estimate in use, or None without accelerometer
+    wheel_flags: np.ndarray | None = None  # (M, E) bool per encoder wheel (wheel tables), or None (differential)
 
 
 @dataclass
@@ -138,6 +141,7 @@ class SlipStep:
     gyro_bias_radps: float | None = None
     ds_m: float | None = None
     accel_bias_mps2: float | None = None
+    wheel_flags: tuple = ()    # one bool per encoder wheel (wheel tables), () for differential
 
 
 # ------------------------------------------------------------------------------------------------

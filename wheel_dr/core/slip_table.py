@@ -1,0 +1,638 @@
+"""Slip and wheel-fault detection for wheel-table bases (tricycle, car-like, mecanum, omni, swerve, custom).
+
+Interface used by the estimator (the two forms are tested equal, sample by sample):
+
+* ``detect_slip_table(model, travel, body, body_cov, gyro_z_radps, settings) -> SlipResult`` over a
+  whole run, vectorised (``travel.joint_travel_m`` (M, E) spin travel per encoder wheel in table
+  order, ``travel.steer_rad`` (M, T) steering readings, ``body`` (M, 3) increments, ``body_cov``
+  (M, 3, 3) their covariances, gyro per accepted sample, NaN where none, or None; an optional
+  ``resid`` (M, E) saves recomputing ``model.residual``);
+* ``TableSlipMonitor(model, settings).step(status, stamp_ns, dt_s, spin, steer, body, body_cov6,
+  resid, gyro_z_radps) -> SlipStep`` one accepted sample at a time (``resid`` is
+  ``model.residual(spin, steer)`` of the step, ``body_cov6`` the upper triangle
+  (xx, xy, xt, yy, yt, tt) of its covariance).
+
+The windows, the chain-restart rule, the scores (1 at the threshold), the debounce/hysteresis latch
+and the traction latch are those of ``wheel_dr.core.slip`` (imported from there, same settings).
+Detectors (bits of ``detector``):
+
+* ``DETECTOR_GYRO`` (1), gyro against wheels: the model's heading change over the window,
+  sum dtheta, against the gyro's, sum (w_z - bias) dt, gated by a chi-square test with one degree
+  of freedom (Bar-Shalom, Li & Kirubarajan 2001, sec. 5.4; ``slip.gyro_gate``):
+  ``z = |d| / sqrt(gate * var)`` with ``var = sum C[2,2] + sigma_g^2 T^2 / n + (tol_w T)^2
+  + (tol_s dtheta_wheels)^2``, C[2,2] the heading variance of the model's increment covariance,
+  the rest as for the differential base (including the long window and the standstill gyro
+  bias, where all encoder wheels are below ``slip.still_speed_mps``). The gyro alone cannot say
+  which wheel is wrong: while its flag is set and the residual's is not, every encoder wheel is
+  flagged (with the residual's set, the residual names the wheels).
+* ``DETECTOR_TRACTION`` (2), per encoder wheel: the wheel measures the ground speed of its contact
+  point along one direction (its rolling direction, or across its rollers, scaled by
+  sin(roller)); the change of that velocity (as a vector, so a steering flip by pi with the spin
+  reversed is no spike) between the window-mean at the sample and at its window's boundary,
+  over the distance of the windows' centres, beyond ``slip.traction_mu`` g cannot come from
+  rolling contact (common practice). Signed along the wheel's current direction (positive:
+  spinning up), latched per wheel by ``slip.traction_latch``; a spike on a wheel another
+  detector already flags starts nothing. The differential base's gyro veto of one-sided traction
+  flags is not applied: one wheel spinning need not turn a table base's heading.
+* ``DETECTOR_RESIDUAL`` (32), where the encoders outnumber the motion's degrees of freedom
+  (dof = 3 minus the table's sliding-constraint rank; 1 for the steered kinds): the whitened
+  least-squares residuals r of ``WheelTable.residual`` are, per step, N(0, I - P) with P the
+  projection onto the fitted directions, so each step's |r|^2 is chi-square with E - dof degrees
+  of freedom (Bar-Shalom, Li & Kirubarajan 2001, sec. 5.4; the least-squares residual test).
+  Over the window the per-wheel sums S = sum r have covariance sum (I - P_k), whose trace is
+  n (E - dof) (the trace of a projection is its rank); the statistic |S|^2 / n is chi-square with
+  E - dof degrees of freedom where P does not change within the window (where it does, the mean
+  is the same and the upper tail, in the tests, no heavier; the weights are taken at the measured
+  travel, which adds to both once the step's noise is a sizeable part of the step). The gate is
+  the chi-square quantile with E - dof degrees of freedom at the tail probability of
+  ``slip.gyro_gate`` (6.63: 1 %), ``z = sqrt(stat / gate)``.
+  With E - dof >= 2 the flagged wheel is the one with the largest |S_i| (judged while the score
+  is over 1, kept while under). With E - dof = 1 (mecanum, four omni wheels, a car-like base with
+  two rear encoders) there is one parity equation: every single-wheel fault moves the residual
+  along the same direction, so the residual alone detects but cannot isolate. Where the gyro is
+  read it is a second redundant measurement: a fault on wheel i that explains the residual would
+  change the heading by sqrt(w_i) (C R_i^T)[theta] |r|^2 / r_i per step (C the increment's
+  covariance, R_i the wheel's rolling row, w_i its weight), and the wheels flagged are those whose
+  window sum of that agrees with the gyro's heading difference within the gyro test's gate (all,
+  if none does or without a gyro). Steering noise is not in the residual's variance (a steering
+  offset error shows as a residual). Tables with E <= dof have no residual test;
+  ``residual_statistic`` gives the statistic itself (for checks and the report).
+
+``left`` / ``right``: a flagged wheel with y > 0 / y < 0 (a wheel at y = 0 counts for both).
+Responses (``slip.response``) as for the differential base: ``inflate`` scales the step noise of
+flagged samples, ``gyro`` takes the gyro's heading increment on flagged samples with a reading
+(``dtheta_rad``; the model's elsewhere) and inflates flagged samples without one.
+
+Slip flags are advisory, not a safety function (the caution in ``wheel_dr.safety``).
+"""
+from __future__ import annotations
+
+import math
+from collections import deque
+from typing import Sequence
+
+import numpy as np
+
+from .drive.table import WheelTable
+from .settings import Settings
+from .drive.table import _ROBUST_FRACTION as _ROBUST
+from .slip import (BIAS_MIN_SAMPLES, DETECTOR_GYRO, DETECTOR_RESIDUAL, DETECTOR_TRACTION, LONG_SHORT_SCORE,
+                   MAX_GYRO_RADPS, SlipResult, SlipStep, _Constants, _cum, _Latch, _TractionLatch, latch,
+                   traction_latch)
+from .wheels import SampleStatus, Travel
+
+__all__ = ["detect_slip_table", "TableSlipMonitor", "residual_dof", "residual_gate", "residual_statistic"]
+
+
+def residual_dof(model: WheelTable) -> int:
+    """Degrees of freedom of the residual test: encoder wheels minus the motion's dof (<= 0: no test)."""
+    return int(model.spin.sum()) - (3 - int(model._constraint_rank))
+
+
+def residual_gate(model: WheelTable, settings: Settings) -> float:
+    """Chi-square gate of the residual test: the quantile with ``residual_dof`` degrees of freedom at
+    the tail probability that ``slip.gyro_gate`` has with one (inf when there is no test)."""
+    dof = residual_dof(model)
+    if dof <= 0:
+        return math.inf
+    from scipy import stats               # here, not at import: the node's start-up stays lean
+
+    tail = float(stats.chi2.sf(settings.slip.gyro_gate, 1))
+    return float(stats.chi2.isf(tail, dof))
+
+
+class _TableConstants:
+    """The model and settings turned into the numbers both forms use (computed once)."""
+
+    def __init__(self, model: WheelTable, settings: Settings) -> None:
+        self.k = _Constants(settings)
+        enc = np.asarray(model.spin, dtype=bool)
+        self.e = int(enc.sum())
+        self.t = int(np.asarray(model.steered).sum())
+        self.rdof = residual_dof(model)
+        self.gate_r = residual_gate(model, settings)
+        self.y = [float(v) for v in model.y[enc]]
+        self.left = [v >= 0.0 for v in self.y]
+        self.right = [v <= 0.0 for v in self.y]
+        ang0 = (model.mount + np.where(model.standard, 0.0, model.roller - 0.5 * math.pi))[enc]
+        self.ang0 = [float(v) for v in ang0]
+        self.scale = [float(v) for v in np.where(model.standard, 1.0, np.sin(model.roller))[enc]]
+        self.cos0 = [float(v) for v in np.cos(ang0)]
+        self.sin0 = [float(v) for v in np.sin(ang0)]
+        col = np.cumsum(model.steered) - 1
+        self.steer_col = [int(col[i]) if model.steered[i] else -1 for i in np.flatnonzero(enc)]
+        self.offset = [float(model.offset[i]) for i in np.flatnonzero(enc)]
+        self.x = [float(v) for v in model.x[enc]]
+        self.kw = [float(v) for v in model.k[enc]]
+
+
+def _finite(x: np.ndarray) -> np.ndarray:
+    return np.where(np.isfinite(x), x, 0.0)
+
+
+def _no_slip(m: int, e: int) -> SlipResult:
+    no = np.zeros(m, dtype=bool)
+    return SlipResult(no, no.copy(), no.copy(), np.zeros(m, dtype=np.int64), np.zeros(m),
+                      wheel_flags=np.zeros((m, e), dtype=bool))
+
+
+# ------------------------------------------------------------------------------------------------
+# batch
+# ------------------------------------------------------------------------------------------------
+def _window_residual(resid: np.ndarray, restart: np.ndarray, j: np.ndarray, n_win: np.ndarray):
+    """|S|^2 / n of the window sums S of the whitened residuals, and the wheel of the largest |S_i|."""
+    m = len(restart)
+    resid = np.where(restart[:, None], 0.0, _finite(np.asarray(resid, dtype=np.float64).reshape(m, -1)))
+    e = resid.shape[1]
+    cums = [_cum(resid[:, i]) for i in range(e)]
+    sums = [cr[1:] - cr[j] for cr in cums]
+    stat = sums[0] * sums[0]
+    for i in range(1, e):
+        stat = stat + sums[i] * sums[i]
+    return stat / n_win, np.argmax(np.abs(np.column_stack(sums)), axis=1)
+
+
+def residual_statistic(model: WheelTable, travel: Travel, settings: Settings) -> tuple[np.ndarray, np.ndarray]:
+    """The residual test's statistic |S|^2 / n per accepted sample (NaN where its window is not
+    evaluated or the table has no residual test) and the wheel it names (index in table order
+    of the encoder wheels). Chi-square with ``residual_dof(model)`` degrees of freedom on clean data."""
+    k = _Constants(settings)
+    m = len(travel.dt_s)
+    stamp = np.asarray(travel.stamp_ns, dtype=np.int64)
+    restart = np.asarray(travel.restart, dtype=bool)
+    if residual_dof(model) <= 0 or m == 0:
+        return np.full(m, np.nan), np.zeros(m, dtype=np.int64)
+    e = int(model.spin.sum())
+    spin = np.where(restart[:, None], 0.0, _finite(np.asarray(travel.joint_travel_m, dtype=np.float64).reshape(m, e)))
+    steer = None
+    if model.steered.any():
+        steer = _finite(np.asarray(travel.steer_rad, dtype=np.float64).reshape(m, -1))
+    j = np.searchsorted(stamp, stamp - k.window_ns, side="right")
+    idx = np.arange(m)
+    clean = (j >= 1) & (np.maximum.accumulate(np.where(restart, idx, -1)) < j)
+    stat, named = _window_residual(model.residual(spin, steer), restart, j, (idx - j + 1).astype(np.float64))
+    return np.where(clean, stat, np.nan), named
+
+
+def detect_slip_table(model: WheelTable, travel: Travel, body: np.ndarray, body_cov: np.ndarray,
+                      gyro_z_radps: np.ndarray | None, settings: Settings,
+                      resid: np.ndarray | None = None) -> SlipResult:
+    """Run the wheel-table slip detectors over a whole run (one entry per accepted sample).
+
+    ``resid`` (M, E): ``model.residual(travel.joint_travel_m, travel.steer_rad)`` if the caller
+    has it already (else it is computed here). See the module docstring for the detectors, their
+    thresholds and the responses.
+    """
+    c = _TableConstants(model, settings)
+    k = c.k
+    e = c.e
+    m = len(travel.dt_s)
+    if not k.enabled or m == 0:
+        return _no_slip(m, e)
+    stamp = np.asarray(travel.stamp_ns, dtype=np.int64)
+    restart = np.asarray(travel.restart, dtype=bool)
+    dt = np.where(restart, 0.0, np.asarray(travel.dt_s, dtype=np.float64))
+    spin = np.where(restart[:, None], 0.0, _finite(np.asarray(travel.joint_travel_m, dtype=np.float64).reshape(m, e)))
+    steer = None
+    if c.t:
+        if travel.steer_rad is None:
+            raise ValueError(f"a {model.kind} table has steered wheels: Travel.steer_rad must hold their "
+                             "readings (one column per steered wheel).")
+        steer = _finite(np.asarray(travel.steer_rad, dtype=np.float64).reshape(m, c.t))
+    body = np.asarray(body, dtype=np.float64).reshape(m, 3)
+    dth = np.where(restart, 0.0, _finite(body[:, 2]))
+    var_th = np.where(restart, 0.0, _finite(np.asarray(body_cov, dtype=np.float64).reshape(m, 3, 3)[:, 2, 2]))
+
+    # gyro and its bias (mean over the last N samples with every encoder wheel standing still)
+    has_gyro = gyro_z_radps is not None
+    if has_gyro:
+        g = np.asarray(gyro_z_radps, dtype=np.float64)
+        with np.errstate(invalid="ignore"):
+            avail = np.abs(g) <= MAX_GYRO_RADPS
+        g = np.where(avail, g, 0.0)
+        still = avail & ~restart & np.all(np.abs(spin) <= (k.still * dt)[:, None], axis=1)
+        still_total = _cum(g[still])
+        cnt = np.arange(1, len(still_total))
+        n_used = np.minimum(cnt, k.bias_samples)
+        at_still = np.concatenate(((k.bias_prior,), (still_total[cnt] - still_total[cnt - n_used]) / n_used))
+        at_still[1:BIAS_MIN_SAMPLES] = k.bias_prior
+        bias = at_still[np.cumsum(still)]
+        gi = np.where(avail, (g - bias) * dt, 0.0)
+    else:
+        avail = np.zeros(m, dtype=bool)
+        gi = np.zeros(m)
+
+    # windows (stamp in (t - window, t]), boundary sample j - 1; clean: no restart inside
+    j = np.searchsorted(stamp, stamp - k.window_ns, side="right")
+    bnd = np.maximum(j - 1, 0)
+    has_b = j >= 1
+    idx = np.arange(m)
+    last_restart = np.maximum.accumulate(np.where(restart, idx, -1))
+    clean = has_b & (last_restart < j)
+    n_win = (idx - j + 1).astype(np.float64)
+    t_eff = (stamp - stamp[bnd]) * 1e-9
+    sf = np.where(clean, t_eff, 1.0)
+    rows = slice(1, m + 1)
+
+    # traction per wheel: velocity of the contact point along the wheel's measuring direction
+    za = np.zeros((m, e))
+    ok_a = clean & has_b & clean[bnd]
+    gap = 0.5 * (sf + sf[bnd])
+    dirs = []
+    for i in range(e):
+        sc = spin[:, i] * c.scale[i]
+        if c.steer_col[i] >= 0:
+            a = c.ang0[i] + (steer[:, c.steer_col[i]] - c.offset[i])
+            ca, sa = np.cos(a), np.sin(a)
+        else:
+            ca, sa = c.cos0[i], c.sin0[i]
+        dirs.append((ca, sa))
+        cu, cw = _cum(sc * ca), _cum(sc * sa)
+        vu, vw = (cu[rows] - cu[j]) / sf, (cw[rows] - cw[j]) / sf
+        du, dw = vu - vu[bnd], vw - vw[bnd]
+        mag = np.sqrt(du * du + dw * dw) / gap / k.mu_g
+        za[:, i] = np.where(ok_a, np.where(du * ca + dw * sa >= 0.0, mag, -mag), 0.0)
+
+    # residual test
+    if c.rdof > 0:
+        if resid is None:
+            resid = model.residual(spin, steer)
+        resid = np.where(restart[:, None], 0.0, _finite(np.asarray(resid, dtype=np.float64).reshape(m, e)))
+        stat, raw = _window_residual(resid, restart, j, n_win)
+        zr = np.where(clean, np.sqrt(stat / c.gate_r), 0.0)
+        li = np.maximum.accumulate(np.where(zr > 1.0, idx, -1))
+        named = np.where(li >= 0, raw[np.maximum(li, 0)], raw)
+    else:
+        zr = np.zeros(m)
+        named = np.zeros(m, dtype=np.int64)
+
+    # gyro against the model's heading (window, long window)
+    zg = np.zeros(m)
+    if has_gyro:
+        last_miss = np.maximum.accumulate(np.where(avail, -1, idx))
+        g_ok = clean & (last_miss < j)
+        cum_gi, cum_v, cum_d = _cum(gi), _cum(var_th), _cum(dth)
+
+        def gyro_test(at1, jw, t_w, n, ok):
+            dth_w = cum_d[at1] - cum_d[jw]
+            d_w = dth_w - (cum_gi[at1] - cum_gi[jw])
+            var = (cum_v[at1] - cum_v[jw]) + (t_w * t_w) * (k.gyro_var / n + k.rate_tol2) \
+                + k.scale_tol2 * (dth_w * dth_w)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                z = np.where(ok, np.abs(d_w) / np.sqrt(var * k.gate), 0.0)
+            return z, d_w, var
+
+        zg, d, var_g = gyro_test(rows, j, t_eff, n_win, g_ok)
+        if k.long_ns > 0:
+            sub = np.flatnonzero(g_ok & (zg >= LONG_SHORT_SCORE))
+            jl = np.searchsorted(stamp, stamp[sub] - k.long_ns, side="right")
+            ok_l = (jl >= 1) & (last_restart[sub] < jl) & (last_miss[sub] < jl)
+            t_l = (stamp[sub] - stamp[np.maximum(jl - 1, 0)]) * 1e-9
+            zl, dl_w, _ = gyro_test(sub + 1, jl, t_l, (sub - jl + 1).astype(np.float64), ok_l)
+            zg[sub] = np.maximum(zg[sub], np.where((d[sub] > 0.0) == (dl_w > 0.0), zl, 0.0))
+
+    # which wheels the residual flags: the one named (E - dof >= 2); with one parity equation the
+    # wheels whose fault would also explain the gyro's heading difference, or all without a gyro
+    if c.rdof >= 2:
+        res_set = np.column_stack([named == i for i in range(e)])
+    else:
+        res_set = np.ones((m, e), dtype=bool)
+    if c.rdof == 1 and has_gyro:
+        cov3 = np.asarray(body_cov, dtype=np.float64).reshape(m, 3, 3)
+        xt, yt, tt = (np.where(restart, 0.0, _finite(cov3[:, a, 2])) for a in range(3))
+        r2 = resid[:, 0] * resid[:, 0]
+        mean_abs = np.abs(spin[:, 0])
+        for i in range(1, e):
+            r2 = r2 + resid[:, i] * resid[:, i]
+            mean_abs = mean_abs + np.abs(spin[:, i])
+        floor = np.maximum(_ROBUST * (mean_abs / e), 1e-12)
+        cons = np.empty((m, e), dtype=bool)
+        for i in range(e):
+            ca, sa = dirs[i]
+            crow = xt * ca + yt * sa + tt * (sa * c.x[i] - ca * c.y[i])
+            sw = 1.0 / (abs(c.scale[i]) * np.sqrt(c.kw[i] * np.maximum(np.abs(spin[:, i]), floor) + 1e-30))
+            ri = resid[:, i]
+            with np.errstate(divide="ignore", invalid="ignore"):
+                sig = np.where(ri != 0.0, crow * sw * r2 / ri, 0.0)
+            cd = _cum(np.where(avail, _finite(sig), 0.0))   # only windows with every gyro reading use it
+            with np.errstate(divide="ignore", invalid="ignore"):
+                cons[:, i] = np.abs(d - (cd[rows] - cd[j])) / np.sqrt(var_g * k.gate) <= 1.0
+        cons = np.where(cons.any(axis=1)[:, None], cons, True)
+        li = np.maximum.accumulate(np.where((zr > 1.0) & g_ok, idx, -1))
+        res_set = np.where((li >= 0)[:, None], cons[np.maximum(li, 0)], True)
+
+    # latches
+    def lat(z: np.ndarray) -> np.ndarray:
+        return latch(z, stamp, k.set_ns, k.clear_ns, k.clear_fraction)
+
+    no = np.zeros(m, dtype=bool)
+    on_g = lat(zg) if has_gyro else no
+    on_r = lat(zr) if c.rdof > 0 else no
+    flags = np.zeros((m, e), dtype=bool)
+    on_t = np.zeros(m, dtype=bool)
+    gyro_all = on_g & ~on_r           # with the residual flag set, it names the wheels
+    for i in range(e):
+        res_i = on_r & res_set[:, i]
+        tr = traction_latch(za[:, i], stamp, k.hold_ns, k.clear_fraction, on_g | res_i)
+        on_t |= tr
+        flags[:, i] = gyro_all | res_i | tr
+    left = np.zeros(m, dtype=bool)
+    right = np.zeros(m, dtype=bool)
+    for i in range(e):
+        if c.left[i]:
+            left |= flags[:, i]
+        if c.right[i]:
+            right |= flags[:, i]
+    flagged = flags.any(axis=1)
+    detector = (on_g * DETECTOR_GYRO + on_t * DETECTOR_TRACTION + on_r * DETECTOR_RESIDUAL).astype(np.int64)
+    score = np.maximum(np.maximum(zg, zr), np.abs(za).max(axis=1) if e else 0.0)
+    result = SlipResult(flagged, left, right, detector, score, gyro_bias_radps=bias if has_gyro else None,
+                        wheel_flags=flags)
+    if k.response == "inflate":
+        result.noise_scale = np.where(flagged, k.inflate, 1.0)
+    elif k.response == "gyro":
+        sub = flagged & avail
+        result.dtheta_rad = np.where(sub, gi, body[:, 2])
+        result.noise_scale = np.where(flagged & ~avail, k.inflate, 1.0)
+    return result
+
+
+# ------------------------------------------------------------------------------------------------
+# streaming
+# ------------------------------------------------------------------------------------------------
+class _Entry:
+    """One sample in the window: stamp, running totals after it, and what the boundary needs."""
+
+    __slots__ = ("stamp", "totals", "cu", "cw", "cr", "cd", "clean", "vu", "vw", "span")
+
+    def __init__(self, stamp: int, totals: tuple, cu: list, cw: list, cr: list, cd: list) -> None:
+        self.stamp = stamp
+        self.totals = totals
+        self.cu, self.cw, self.cr, self.cd = cu, cw, cr, cd
+        self.clean = False
+        self.vu: list[float] = []
+        self.vw: list[float] = []
+        self.span = 1.0
+
+
+def _num(v) -> float:
+    try:
+        x = float(v)
+    except (TypeError, ValueError, OverflowError):
+        return 0.0
+    return x if math.isfinite(x) else 0.0
+
+
+def _nums(values, n: int) -> list[float]:
+    """``n`` finite floats (non-numbers, NaN and inf as 0); the fast path checks the sum only."""
+    try:
+        out = [float(v) for v in values]
+        if len(out) == n and math.isfinite(math.fsum(out)):
+            return out
+    except (TypeError, ValueError, OverflowError):
+        pass
+    out = [_num(v) for v in values][:n]
+    return out + [0.0] * (n - len(out))
+
+
+class TableSlipMonitor:
+    """Streaming form of ``detect_slip_table`` (same rules; tested equal sample by sample)."""
+
+    def __init__(self, model: WheelTable, settings: Settings) -> None:
+        self.model = model
+        self.settings = settings
+        self._c = _TableConstants(model, settings)
+        c = self._c
+        self._wheels = list(range(c.e))
+        self._fixed = [c.steer_col[i] < 0 for i in range(c.e)]
+        self.reset()
+
+    def reset(self) -> None:
+        """Forget detector state (windows, latches, gyro bias)."""
+        c = self._c
+        k = c.k
+        e = c.e
+        self._entries: deque[_Entry] = deque()
+        self._boundary: _Entry | None = None
+        self._lentries: deque[_Entry] = deque()
+        self._lboundary: _Entry | None = None
+        self._tu, self._tw, self._tr, self._td = [0.0] * e, [0.0] * e, [0.0] * e, [0.0] * e
+        self._cons: list[bool] | None = None
+        self._t_gi = self._t_var = self._t_dth = 0.0
+        self._t_restart = self._t_miss = 0
+        self._still_count = 0
+        self._still_totals: deque[float] = deque([0.0], maxlen=k.bias_samples + 1)
+        self._named: int | None = None
+        self._lat_g, self._lat_r = _Latch(k), _Latch(k)
+        self._lat_t = [_TractionLatch(k) for _ in range(e)]
+
+    def _gyro_test(self, stamp: int, b_stamp: int, now: tuple, b_tot: tuple, n: int) -> tuple[float, float]:
+        k = self._c.k
+        t_w = (stamp - b_stamp) * 1e-9
+        dth_w = now[2] - b_tot[2]
+        d_w = dth_w - (now[0] - b_tot[0])
+        var = (now[1] - b_tot[1]) + (t_w * t_w) * (k.gyro_var / float(n) + k.rate_tol2) \
+            + k.scale_tol2 * (dth_w * dth_w)
+        return abs(d_w) / math.sqrt(var * k.gate), d_w, var
+
+    def step(self, status: SampleStatus, stamp_ns: int, dt_s: float, spin: Sequence[float],
+             steer: Sequence[float] | None, body: Sequence[float], body_cov6: Sequence[float],
+             resid: Sequence[float] | None, gyro_z_radps: float | None) -> SlipStep:
+        """One accepted sample (``status`` < 10); returns its flags and the response's changes.
+
+        ``spin`` (E) travel per encoder wheel (m), ``steer`` (T) steering readings (rad, None
+        without steering), ``body`` (dx, dy, dtheta), ``body_cov6`` (xx, xy, xt, yy, yt, tt) of its
+        covariance, ``resid`` (E) ``model.residual(spin, steer)`` of the step (None: not given),
+        ``gyro_z_radps`` the z rate held at the sample or None.
+        """
+        c = self._c
+        k = c.k
+        e = c.e
+        wheels = self._wheels
+        if not k.enabled:
+            return SlipStep(wheel_flags=(False,) * e)
+        stamp = int(stamp_ns)
+        restart = status != SampleStatus.USED
+        dt = 0.0 if restart else float(dt_s)
+        s = [0.0] * e if restart else _nums(spin, e)
+        dth = 0.0 if restart else _num(body[2])
+        var_th = 0.0 if restart else _num(body_cov6[5])
+        st = _nums(steer, c.t) if (c.t and steer is not None) else [0.0] * c.t
+
+        # gyro and bias
+        try:
+            g = float(gyro_z_radps) if gyro_z_radps is not None else math.nan
+        except (TypeError, ValueError, OverflowError):
+            g = math.nan
+        avail = abs(g) <= MAX_GYRO_RADPS                     # False for NaN and inf too
+        if not avail:
+            g = 0.0
+        if avail and not restart:
+            lim = k.still * dt
+            still = True
+            for v in s:
+                if abs(v) > lim:
+                    still = False
+                    break
+            if still:
+                self._still_count += 1
+                self._still_totals.append(self._still_totals[-1] + g)
+        count = self._still_count
+        if count >= BIAS_MIN_SAMPLES:
+            n_used = min(count, k.bias_samples)
+            bias = (self._still_totals[-1] - self._still_totals[-1 - n_used]) / n_used
+        else:
+            bias = k.bias_prior
+        gi = (g - bias) * dt if avail else 0.0
+
+        # running totals
+        tu, tw, tr = self._tu, self._tw, self._tr
+        scale, cos0, sin0, fixed = c.scale, c.cos0, c.sin0, self._fixed
+        cas, sas = cos0, sin0
+        if c.t:
+            cas, sas = list(cos0), list(sin0)
+            for i in wheels:
+                if not fixed[i]:
+                    a = c.ang0[i] + (st[c.steer_col[i]] - c.offset[i])
+                    cas[i], sas[i] = math.cos(a), math.sin(a)
+        for i in wheels:
+            sc = s[i] * scale[i]
+            tu[i] = tu[i] + sc * cas[i]
+            tw[i] = tw[i] + sc * sas[i]
+        td = self._td
+        if c.rdof > 0:
+            r = [0.0] * e if (restart or resid is None) else _nums(resid, e)
+            for i in wheels:
+                tr[i] = tr[i] + r[i]
+            if c.rdof == 1 and avail:
+                # heading change a fault on wheel i would explain (its parity share, through the
+                # increment's covariance row): sqrt(w_i) (C R_i^T)[theta] |r|^2 / r_i
+                if restart:
+                    xt = yt = tt = 0.0
+                else:
+                    xt, yt, tt = _num(body_cov6[2]), _num(body_cov6[4]), var_th
+                r2 = r[0] * r[0]
+                mean_abs = abs(s[0])
+                for i in range(1, e):
+                    r2 = r2 + r[i] * r[i]
+                    mean_abs = mean_abs + abs(s[i])
+                floor = max(_ROBUST * (mean_abs / e), 1e-12)
+                for i in wheels:
+                    ri = r[i]
+                    if ri != 0.0:
+                        ca, sa = cas[i], sas[i]
+                        crow = xt * ca + yt * sa + tt * (sa * c.x[i] - ca * c.y[i])
+                        sw = 1.0 / (abs(scale[i]) * math.sqrt(c.kw[i] * max(abs(s[i]), floor) + 1e-30))
+                        sig = crow * sw * r2 / ri
+                        if math.isfinite(sig):
+                            td[i] = td[i] + sig      # (adding nothing leaves the total as the batch's)
+        self._t_gi += gi
+        self._t_var += var_th
+        self._t_dth += dth
+        self._t_restart += int(restart)
+        self._t_miss += int(not avail)
+        entry = _Entry(stamp, (self._t_gi, self._t_var, self._t_dth, self._t_restart, self._t_miss),
+                       tu.copy(), tw.copy(), tr.copy(), td.copy())
+        entries = self._entries
+        entries.append(entry)
+        cutoff = stamp - k.window_ns
+        while entries[0].stamp <= cutoff:
+            self._boundary = entries.popleft()
+        if k.long_ns > 0:
+            self._lentries.append(entry)
+            cutoff_l = stamp - k.long_ns
+            while self._lentries[0].stamp <= cutoff_l:
+                self._lboundary = self._lentries.popleft()
+        bnd = self._boundary
+        now = entry.totals
+        n = len(entries)
+        if bnd is None:
+            clean, clean_b, b_stamp, b_tot = False, False, stamp, (0.0, 0.0, 0.0, 0, 0)
+        else:
+            b_stamp, b_tot = bnd.stamp, bnd.totals
+            clean, clean_b = now[3] - b_tot[3] == 0, bnd.clean
+        za = [0.0] * e
+        zr = 0.0
+        named = 0
+        if clean:
+            safe = (stamp - b_stamp) * 1e-9
+            b_u, b_w = bnd.cu, bnd.cw
+            vu = [(tu[i] - b_u[i]) / safe for i in wheels]
+            vw = [(tw[i] - b_w[i]) / safe for i in wheels]
+            entry.clean, entry.vu, entry.vw, entry.span = True, vu, vw, safe
+            # traction per wheel
+            if clean_b:
+                den = 0.5 * (safe + bnd.span)
+                mu_g = k.mu_g
+                bu, bw = bnd.vu, bnd.vw
+                for i in wheels:
+                    du, dw = vu[i] - bu[i], vw[i] - bw[i]
+                    mag = math.sqrt(du * du + dw * dw) / den / mu_g
+                    za[i] = mag if du * cas[i] + dw * sas[i] >= 0.0 else -mag
+        # residual
+        if c.rdof > 0:
+            b_r = bnd.cr if bnd is not None else [0.0] * e
+            best = -1.0
+            stat = 0.0
+            for i in wheels:
+                si = tr[i] - b_r[i]
+                stat = si * si if i == 0 else stat + si * si
+                if abs(si) > best:
+                    best, named = abs(si), i
+            if clean:
+                zr = math.sqrt(stat / float(n) / c.gate_r)
+            if zr > 1.0:
+                self._named = named
+            elif self._named is not None:
+                named = self._named
+
+        # gyro against the model's heading
+        zg = 0.0
+        if clean and now[4] - b_tot[4] == 0:
+            zg, d, var_g = self._gyro_test(stamp, b_stamp, now, b_tot, n)
+            lb = self._lboundary
+            if k.long_ns > 0 and lb is not None and zg >= LONG_SHORT_SCORE and now[3] - lb.totals[3] == 0 \
+                    and now[4] - lb.totals[4] == 0:
+                zl, dl_w, _ = self._gyro_test(stamp, lb.stamp, now, lb.totals, len(self._lentries))
+                if (d > 0.0) == (dl_w > 0.0):
+                    zg = max(zg, zl)
+            if c.rdof == 1 and zr > 1.0:
+                lim = math.sqrt(var_g * k.gate)
+                b_d = bnd.cd
+                cons = [abs(d - (td[i] - b_d[i])) / lim <= 1.0 for i in wheels]
+                self._cons = cons if any(cons) else [True] * e
+
+        on_g = self._lat_g.update(zg, stamp)
+        on_r = self._lat_r.update(zr, stamp) if c.rdof > 0 else False
+        gyro_all = on_g and not on_r          # with the residual flag set, it names the wheels
+        cons = self._cons if (on_r and c.rdof == 1) else None
+        every = on_r and c.rdof == 1 and cons is None
+        flags = [False] * e
+        on_t = False
+        left = right = False
+        score = zg if zg > zr else zr
+        lat_t = self._lat_t
+        for i in wheels:
+            res_i = every or (on_r and (cons[i] if cons is not None else (c.rdof >= 2 and named == i)))
+            z = za[i]
+            tr_i = lat_t[i].update(z, stamp, on_g or res_i)
+            if abs(z) > score:
+                score = abs(z)
+            if gyro_all or res_i or tr_i:
+                on_t = on_t or tr_i
+                flags[i] = True
+                left = left or c.left[i]
+                right = right or c.right[i]
+        flagged = left or right
+        detector = ((DETECTOR_GYRO if on_g else 0) | (DETECTOR_TRACTION if on_t else 0)
+                    | (DETECTOR_RESIDUAL if on_r else 0))
+        out = SlipStep(flagged, left, right, detector, score,
+                       gyro_bias_radps=bias if gyro_z_radps is not None else None, wheel_flags=tuple(flags))
+        if k.response == "inflate" and flagged:
+            out.noise_scale = k.inflate
+        elif k.response == "gyro" and flagged:
+            if avail:
+                out.dtheta_rad = gi
+            else:
+                out.noise_scale = k.inflate
+        return out
