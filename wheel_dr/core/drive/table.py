@@ -36,12 +36,126 @@ __all__ = ["WheelTable", "DRIVE_KINDS"]
 DRIVE_KINDS = ("differential", "tricycle", "ackermann", "mecanum", "omni", "swerve", "custom")
 _ROBUST_FRACTION = 0.25
 _FD_STEP_RAD = 1e-6
+_TINY = 1e-300          # floor of a divisor (a degenerate step stays finite)
+_NEWTON_STEPS = 8
+_NEWTON_TOL = 1e-14      # relative to trace(A): the smallest eigenvalue to round-off
 
 
 def _rot_rows(angle: np.ndarray, x: np.ndarray, y: np.ndarray) -> np.ndarray:
     """Rows g . A_i of unit vectors g at ``angle`` acting on tau: (gx, gy, -gx y + gy x), shape (..., 3)."""
     gx, gy = np.cos(angle), np.sin(angle)
     return np.stack([gx, gy, gy * x - gx * y], axis=-1)
+
+
+def _smallest_eigvec(a00, a01, a02, a11, a12, a22):
+    """Unit eigenvector (n0, n1, n2) of the smallest eigenvalue lam of symmetric positive semi-definite
+    3 x 3 matrices A given by their six entries (arrays), with lam and the sigma = trace and pi = sum
+    of principal 2 x 2 minors of M = A - lam I (its two other eigenvalues' sum and product).
+
+    lam by Newton's method on det(A - lam I) from 0 (the polynomial is convex and decreasing up to
+    lam, so the steps approach it from below); n from the adjugate of M, which is pi n n^T for a
+    rank-two M: its column with the largest diagonal entry, divided by that entry's square root."""
+    tr = a00 + a11 + a22
+    c2 = a00 * a11 - a01 * a01 + a00 * a22 - a02 * a02 + a11 * a22 - a12 * a12
+    det = a00 * (a11 * a22 - a12 * a12) - a01 * (a01 * a22 - a12 * a02) + a02 * (a01 * a12 - a11 * a02)
+    lam = np.where(c2 > _TINY, det, 0.0) / np.where(c2 > _TINY, c2, 1.0)       # the first step from 0
+    todo = np.arange(len(tr))
+    for _ in range(_NEWTON_STEPS - 1):       # further steps only where the last one still changed lam
+        lt, trt, c2t = lam[todo], tr[todo], c2[todo]
+        dp = -c2t + lt * (2.0 * trt - 3.0 * lt)
+        ok = dp < 0.0
+        step = np.where(ok, (det[todo] - lt * (c2t - lt * (trt - lt))) / np.where(ok, dp, -1.0), 0.0)
+        lam[todo] = lt - step
+        todo = todo[np.abs(step) > _NEWTON_TOL * trt]
+        if not len(todo):
+            break
+    m00, m11, m22 = a00 - lam, a11 - lam, a22 - lam
+    j00, j11, j22 = m11 * m22 - a12 * a12, m00 * m22 - a02 * a02, m00 * m11 - a01 * a01
+    j01, j02, j12 = a02 * a12 - a01 * m22, a01 * a12 - a02 * m11, a01 * a02 - m00 * a12
+    pick1 = (j11 > j00) & (j11 >= j22)
+    pick2 = (j22 > j00) & (j22 > j11)
+    d = np.where(pick2, j22, np.where(pick1, j11, j00))
+    ok = d > _TINY
+    inv = 1.0 / np.sqrt(np.where(ok, d, 1.0))
+    n0 = np.where(ok, np.where(pick2, j02, np.where(pick1, j01, j00)) * inv, 1.0)
+    n1 = np.where(ok, np.where(pick2, j12, np.where(pick1, j11, j01)) * inv, 0.0)
+    n2 = np.where(ok, np.where(pick2, j22, np.where(pick1, j12, j02)) * inv, 0.0)
+    return n0, n1, n2, lam, m00 + m11 + m22, j00 + j11 + j22
+
+
+def _smallest_eigvec_floats(a00, a01, a02, a11, a12, a22):
+    """Float twin of ``_smallest_eigvec`` (Newton stops once a step no longer changes lam)."""
+    tr = a00 + a11 + a22
+    c2 = a00 * a11 - a01 * a01 + a00 * a22 - a02 * a02 + a11 * a22 - a12 * a12
+    det = a00 * (a11 * a22 - a12 * a12) - a01 * (a01 * a22 - a12 * a02) + a02 * (a01 * a12 - a11 * a02)
+    lam = det / c2 if c2 > _TINY else 0.0
+    for _ in range(_NEWTON_STEPS - 1):
+        dp = -c2 + lam * (2.0 * tr - 3.0 * lam)
+        if not dp < 0.0:
+            break
+        step = (det - lam * (c2 - lam * (tr - lam))) / dp
+        lam -= step
+        if not abs(step) > _NEWTON_TOL * tr:
+            break
+    m00, m11, m22 = a00 - lam, a11 - lam, a22 - lam
+    j00, j11, j22 = m11 * m22 - a12 * a12, m00 * m22 - a02 * a02, m00 * m11 - a01 * a01
+    sig, pi = m00 + m11 + m22, j00 + j11 + j22
+    if j22 > j00 and j22 > j11:
+        d, n0, n1, n2 = j22, a01 * a12 - a02 * m11, a01 * a02 - m00 * a12, j22
+    elif j11 > j00:
+        d, n0, n1, n2 = j11, a02 * a12 - a01 * m22, j11, a01 * a02 - m00 * a12
+    else:
+        d, n0, n1, n2 = j00, j00, a02 * a12 - a01 * m22, a01 * a12 - a02 * m11
+    if not d > _TINY:
+        return 1.0, 0.0, 0.0, lam, sig, pi
+    inv = 1.0 / math.sqrt(d)
+    return n0 * inv, n1 * inv, n2 * inv, lam, sig, pi
+
+
+_UPPER = {1: ((0, 0),), 2: ((0, 0), (0, 1), (1, 1)), 3: ((0, 0), (0, 1), (0, 2), (1, 1), (1, 2), (2, 2))}
+_UIDX = {k: [[next(n for n, ij in enumerate(_UPPER[k]) if ij == (min(i, j), max(i, j))) for j in range(k)]
+             for i in range(k)] for k in _UPPER}
+_SYM6 = _UIDX[3]
+
+
+def _inv_sym_rows(hu: np.ndarray, k: int) -> list:
+    """Inverse of symmetric k x k matrices (k = 1, 2, 3) given as rows of their upper triangle
+    (k(k+1)/2, M), by cofactors, returned the same way (a singular one gives huge finite entries
+    instead of a division by zero)."""
+    if k == 1:
+        return [1.0 / np.where(np.abs(hu[0]) > _TINY, hu[0], _TINY)]
+    if k == 2:
+        a, b, c = hu
+        det = a * c - b * b
+        idet = 1.0 / np.where(np.abs(det) > _TINY, det, _TINY)
+        return [c * idet, -b * idet, a * idet]
+    k00, k01, k02, k11, k12, k22 = hu
+    i00, i01, i02 = k11 * k22 - k12 * k12, k02 * k12 - k01 * k22, k01 * k12 - k02 * k11
+    i11, i12, i22 = k00 * k22 - k02 * k02, k01 * k02 - k00 * k12, k00 * k11 - k01 * k01
+    det = k00 * i00 + k01 * i01 + k02 * i02
+    idet = 1.0 / np.where(np.abs(det) > _TINY, det, _TINY)
+    return [i00 * idet, i01 * idet, i02 * idet, i11 * idet, i12 * idet, i22 * idet]
+
+
+def _inv_small_floats(h: list, k: int) -> list:
+    """Float twin of ``_inv_sym_rows`` for one k x k matrix (lists) (its upper triangle is read)."""
+    if k == 1:
+        d = h[0][0]
+        return [[1.0 / (d if abs(d) > _TINY else _TINY)]]
+    if k == 2:
+        a, b, c = h[0][0], h[0][1], h[1][1]
+        det = a * c - b * b
+        if not abs(det) > _TINY:
+            det = _TINY
+        return [[c / det, -b / det], [-b / det, a / det]]
+    k00, k01, k02, k11, k12, k22 = h[0][0], h[0][1], h[0][2], h[1][1], h[1][2], h[2][2]
+    i00, i01, i02 = k11 * k22 - k12 * k12, k02 * k12 - k01 * k22, k01 * k12 - k02 * k11
+    i11, i12, i22 = k00 * k22 - k02 * k02, k01 * k02 - k00 * k12, k00 * k11 - k01 * k01
+    det = k00 * i00 + k01 * i01 + k02 * i02
+    if not abs(det) > _TINY:
+        det = _TINY
+    d = 1.0 / det
+    return [[i00 * d, i01 * d, i02 * d], [i01 * d, i11 * d, i12 * d], [i02 * d, i12 * d, i22 * d]]
 
 
 class WheelTable(DriveModel):
@@ -94,6 +208,7 @@ class WheelTable(DriveModel):
         self.standard = np.abs(self.roller) < 1e-12
         self._check_kind()
         self._constraint_rank = self._check_rank()
+        self._precompute()
 
     # -- checks ---------------------------------------------------------------------------------
     def _check_kind(self) -> None:
@@ -187,14 +302,24 @@ class WheelTable(DriveModel):
         return self.k[self.spin] * np.maximum(s, floor) + 1e-30
 
     def increment(self, spin_m, steer_rad=None) -> np.ndarray:
-        return self._solve(spin_m, steer_rad)[0]
+        return self.solve(spin_m, steer_rad)[0]
 
     def jacobian(self, spin_m, steer_rad=None) -> np.ndarray:
         _, null, h_inv, g, w, scale, _, _ = self._solve(spin_m, steer_rad)
         return null @ h_inv @ np.swapaxes(g * (w * scale)[:, :, None], 1, 2)
 
     def steer_jacobian(self, spin_m, steer_rad) -> np.ndarray:
-        """(M, 3, T) d increment / d steering readings, central differences with the weights held."""
+        """(M, 3, T) d increment / d steering readings (analytic, see ``solve``; the weights do not
+        depend on the steering)."""
+        s = np.asarray(spin_m, dtype=np.float64).reshape(-1, int(self.spin.sum()))
+        st = np.asarray(steer_rad, dtype=np.float64).reshape(len(s), -1)
+        if self._mode == "reference":
+            return self._steer_jacobian_fd(s, st)
+        with np.errstate(all="ignore"):
+            return self._fast(s, st, True)[3]
+
+    def _steer_jacobian_fd(self, spin_m, steer_rad) -> np.ndarray:
+        """(M, 3, T) d increment / d steering readings, central differences of the SVD path."""
         s = np.asarray(spin_m, dtype=np.float64).reshape(-1, int(self.spin.sum()))
         st = np.asarray(steer_rad, dtype=np.float64).reshape(len(s), -1)
         var = self.spin_variance(s)
@@ -207,17 +332,378 @@ class WheelTable(DriveModel):
         return out
 
     def increment_covariance(self, spin_m, steer_rad=None) -> np.ndarray:
-        _, null, h_inv, _, _, _, _, _ = self._solve(spin_m, steer_rad)
-        cov = null @ h_inv @ np.swapaxes(null, 1, 2)
-        if self.steered.any() and self.steer_sd_rad > 0:
-            js = self.steer_jacobian(spin_m, steer_rad)
-            cov = cov + self.steer_sd_rad ** 2 * js @ np.swapaxes(js, 1, 2)
-        return cov
+        return self.solve(spin_m, steer_rad)[1]
 
     def residual(self, spin_m, steer_rad=None) -> np.ndarray:
         """(M, E) whitened residuals (b - R tau) sqrt(w) of the encoder wheels' rolling equations."""
-        tau, _, _, _, w, _, rows, b = self._solve(spin_m, steer_rad)
-        return (b - np.einsum("mei,mi->me", rows, tau)) * np.sqrt(w)
+        return self.solve(spin_m, steer_rad)[2]
+
+    # -- the fast path: closed forms, vectorised (solve) and in floats (step_floats) -----------------
+    def _precompute(self) -> None:
+        """Everything constant per table, for ``solve`` and ``step_floats`` (see ``solve``)."""
+        enc = np.flatnonzero(self.spin)
+        self._enc = enc
+        self._off = np.where(self.standard, 0.0, self.roller - 0.5 * math.pi)   # rolling-row angle - psi
+        self._scale = np.where(self.standard, 1.0, np.sin(self.roller))[enc]
+        self._k_enc = self.k[enc]
+        self._steered_idx = np.flatnonzero(self.steered)
+        self._std_steered = np.flatnonzero(self.standard & self.steered)
+        fixed_std = self.standard & ~self.steered
+        cons = _rot_rows(self.mount + 0.5 * math.pi, self.x, self.y)
+        self._a0 = cons[fixed_std].T @ cons[fixed_std]
+        self._rows0 = _rot_rows(self.mount + self._off, self.x, self.y)[enc]
+        self._enc_steered = self.steered[enc]
+        enc_of = {int(i): e for e, i in enumerate(enc)}
+        self._null = None
+        if not len(self._std_steered):
+            self._mode = "fixed"            # sliding rows constant: the null space once, as the SVD path does
+            if self._constraint_rank:
+                self._null = np.ascontiguousarray(np.linalg.svd(cons[self.standard])[2][self._constraint_rank:].T)
+            else:
+                self._null = np.eye(3)
+            g = self._rows0 @ self._null
+            self._g0 = g
+            self._gg0 = (g[:, :, None] * g[:, None, :]).reshape(len(enc), -1)
+        elif self._constraint_rank == 2:
+            self._mode = "one"              # one degree of freedom: the smallest eigenvector of C^T C
+        else:
+            self._mode = "reference"        # steered standard wheels with two degrees of freedom: the SVD path
+        col = {int(i): t for t, i in enumerate(self._steered_idx)}
+        self._enc_steer_t = np.array([col.get(int(i), -1) for i in enc], dtype=np.int64)
+        self._enc_base = (self.mount + self._off - np.where(self.steered, self.offset, 0.0))[enc]
+        self._inv_s2 = 1.0 / (self._scale * self._scale)
+        self._ss_base = (self.mount - self.offset)[self._std_steered]
+        self._ss_t = np.array([col[int(i)] for i in self._std_steered], dtype=np.int64)
+        self._st_base = (self.mount - self.offset)[self._steered_idx]
+        self._enc_std = self.standard[enc]
+        self._enc_co, self._enc_so = np.cos(self._off[enc]), np.sin(self._off[enc])
+        if self._mode == "fixed":
+            k = self._null.shape[1]
+            self._gg0u = np.stack([self._g0[:, i] * self._g0[:, j] for i, j in _UPPER[k]])
+            self._null_rows = self._null
+            self._cov_coef = np.array([[self._null[a, i] * self._null[c, j] + (self._null[a, j] * self._null[c, i]
+                                                                               if i != j else 0.0)
+                                        for i, j in _UPPER[k]] for a, c in _UPPER[3]])
+        # float tables for step_floats
+        self._f_e = len(enc)
+        self._f_k = tuple(float(v) for v in self._k_enc)
+        self._f_scale = tuple(float(v) for v in self._scale)
+        self._f_inv_s2 = tuple(float(1.0 / (v * v)) for v in self._scale)
+        self._f_rows0 = tuple(tuple(float(c) for c in r) for r in self._rows0)
+        self._f_a0 = tuple(float(self._a0[i, j]) for i, j in ((0, 0), (0, 1), (0, 2), (1, 1), (1, 2), (2, 2)))
+        self._f_steer = tuple((enc_of.get(int(i), -1), bool(self.standard[i]),
+                               float(self.mount[i] - self.offset[i]), float(self.x[i]), float(self.y[i]),
+                               math.cos(self._off[i]), math.sin(self._off[i])) for i in self._steered_idx)
+        self._f_sd2 = self.steer_sd_rad ** 2 if (len(self._steered_idx) and self.steer_sd_rad > 0) else 0.0
+        if self._mode == "fixed":
+            self._f_null = tuple(tuple(float(c) for c in r) for r in self._null)
+            self._f_g0 = tuple(tuple(float(c) for c in r) for r in self._g0)
+
+    def solve(self, spin_m, steer_rad=None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Body increments tau (M, 3), their covariance (M, 3, 3) from the wheel noise and the steering
+        noise (``steer_sd_rad``), and the whitened residuals (M, E), for (M, E) spin travel (m) and
+        (M, T) steering readings (rad). The same numbers as the SVD path (``_solve``), in closed form.
+
+        With the sliding rows constant (no steered standard wheel) the null space N is found once and
+        the solve is a k x k symmetric inverse (k = 3 - constraint rank). With steered standard wheels
+        and one degree of freedom, the null vector n is the eigenvector of the smallest eigenvalue
+        lam of A = C^T C (the subspace the rank-truncated SVD keeps): lam by Newton's method on
+        det(A - lam I) from 0 (monotone there, A being positive semi-definite), n as the longest
+        cross product of two rows of A - lam I. Then tau = n z, z = sum w g b / H, H = sum w g^2,
+        g = R n, and the wheel part of the covariance is n n^T / H. The steering Jacobian is
+        analytic: a reading moves its wheel's rolling row (d r / d psi is the row at psi + pi/2)
+        and its sliding row, which moves n by dn = -(A - lam I)^+ dA n (first-order eigenvector
+        perturbation); tau does not depend on the length of n. Other tables (steered standard wheels
+        with two degrees of freedom) take the SVD path with central differences.
+        """
+        s = np.asarray(spin_m, dtype=np.float64).reshape(-1, self._f_e)
+        st = None if not len(self._steered_idx) else np.asarray(steer_rad, dtype=np.float64).reshape(len(s), -1)
+        with np.errstate(all="ignore"):
+            if self._mode == "reference":
+                tau, null, h_inv, _, w, _, rows, b = self._solve(s, st)
+                cov = null @ h_inv @ np.swapaxes(null, 1, 2)
+                if self._f_sd2:
+                    js = self._steer_jacobian_fd(s, st)
+                    cov = cov + self._f_sd2 * js @ np.swapaxes(js, 1, 2)
+                return tau, cov, (b - np.einsum("mei,mi->me", rows, tau)) * np.sqrt(w)
+            return self._fast(s, st, bool(self._f_sd2))[:3]
+
+    def _fast(self, s: np.ndarray, st: np.ndarray | None, want_js: bool):
+        """tau (M, 3), wheel-noise covariance (M, 3, 3), whitened residual (M, E) and the (M, 3, T)
+        steering Jacobian (None unless ``want_js``). Arrays are held wheel-major, (E, M), so every
+        operation runs on contiguous rows."""
+        m = len(s)
+        sw = np.ascontiguousarray(s.T)                                   # (E, M)
+        a = np.abs(sw)
+        floor = np.maximum(_ROBUST_FRACTION * a.mean(axis=0), 1e-12)
+        w = self._inv_s2[:, None] / (self._k_enc[:, None] * np.maximum(a, floor) + 1e-30)
+        b = sw * self._scale[:, None]
+        st_w = None if st is None else np.ascontiguousarray(st.T)         # (T, M)
+        enc_t = self._enc_steer_t                                         # steering column of each encoder wheel, -1
+        xe, ye = self.x[self._enc][:, None], self.y[self._enc][:, None]
+        if st_w is not None:
+            psi = self._st_base[:, None] + st_w                           # (T, M) steered wheels' psi
+            ct, stn = np.cos(psi), np.sin(psi)
+        if self._enc_steered.any():
+            ca = np.empty((len(self._enc), m))
+            sa = np.empty((len(self._enc), m))
+            ca[:] = self._rows0[:, 0:1]
+            sa[:] = self._rows0[:, 1:2]
+            for e in np.flatnonzero(enc_t >= 0):                         # rolling direction psi + off
+                t = enc_t[e]
+                if self._enc_std[e]:
+                    ca[e], sa[e] = ct[t], stn[t]
+                else:
+                    co, so = self._enc_co[e], self._enc_so[e]
+                    ca[e], sa[e] = ct[t] * co - stn[t] * so, stn[t] * co + ct[t] * so
+            r = (ca, sa, sa * xe - ca * ye)
+        else:
+            ca = sa = None
+            r = tuple(np.broadcast_to(self._rows0[:, i:i + 1], (len(self._enc), m)) for i in range(3))
+        js = None
+        if self._mode == "fixed":
+            null = self._null
+            k = null.shape[1]
+            if ca is None:
+                hu = self._gg0u @ w                                       # upper triangle of H, (k(k+1)/2, M)
+                v = self._g0.T @ (w * b)
+            else:
+                g = [r[0] * null[0, i] + r[1] * null[1, i] + r[2] * null[2, i] for i in range(k)]
+                wg = [w * gi for gi in g]
+                hu = np.stack([np.sum(wg[i] * g[j], axis=0) for i, j in _UPPER[k]])
+                v = np.stack([np.sum(wgi * b, axis=0) for wgi in wg])
+            hi = _inv_sym_rows(hu, k)                                     # upper triangle of H^-1
+            z = [sum(hi[_UIDX[k][i][j]] * v[j] for j in range(k)) for i in range(k)]
+            tau = self._null_rows @ np.stack(z)                           # (3, M)
+            cov6 = self._cov_coef @ np.stack(hi)                          # (6, M): N H^-1 N^T
+            eps = b - (r[0] * tau[0] + r[1] * tau[1] + r[2] * tau[2])
+            if want_js:
+                js = np.zeros((3, len(self._steered_idx), m))
+                for e in np.flatnonzero(enc_t >= 0):
+                    t = enc_t[e]
+                    d0, d1, d2 = -sa[e], ca[e], ca[e] * xe[e] + sa[e] * ye[e]
+                    dtau = d0 * tau[0] + d1 * tau[1] + d2 * tau[2]
+                    we, ee = w[e], eps[e]
+                    vec = (we * (ee * d0 - dtau * r[0][e]), we * (ee * d1 - dtau * r[1][e]),
+                           we * (ee * d2 - dtau * r[2][e]))
+                    for i in range(3):
+                        js[i, t] = sum(cov6[_SYM6[i][j]] * vec[j] for j in range(3))
+            return self._pack(tau, cov6, eps * np.sqrt(w), js)
+        # one degree of freedom with steered standard wheels
+        cp, sp = ct[self._ss_t], stn[self._ss_t]                          # (S, M) sliding rows' psi
+        xs, ys = self.x[self._std_steered][:, None], self.y[self._std_steered][:, None]
+        c2r = cp * xs + sp * ys
+        a0 = self._f_a0
+        a00 = a0[0] + np.sum(sp * sp, axis=0)
+        a01 = a0[1] - np.sum(sp * cp, axis=0)
+        a02 = a0[2] - np.sum(sp * c2r, axis=0)
+        a11 = a0[3] + np.sum(cp * cp, axis=0)
+        a12 = a0[4] + np.sum(cp * c2r, axis=0)
+        a22 = a0[5] + np.sum(c2r * c2r, axis=0)
+        n0, n1, n2, lam, sig, pi = _smallest_eigvec(a00, a01, a02, a11, a12, a22)
+        g = r[0] * n0 + r[1] * n1 + r[2] * n2                           # (E, M)
+        wg = w * g
+        h = np.sum(wg * g, axis=0)
+        h = np.where(h > _TINY, h, _TINY)
+        ih = 1.0 / h
+        z = np.sum(wg * b, axis=0) * ih
+        tau = np.stack([n0 * z, n1 * z, n2 * z])
+        cov6 = np.stack([n0 * n0 * ih, n0 * n1 * ih, n0 * n2 * ih, n1 * n1 * ih, n1 * n2 * ih, n2 * n2 * ih])
+        resid = (b - g * z) * np.sqrt(w)
+        if want_js:
+            js = np.zeros((3, len(self._steered_idx), m))
+            coef = w * (b - 2.0 * z * g)                                  # w_e (b_e - 2 z g_e)
+            q0, q1, q2 = (np.sum(coef * r[i], axis=0) * ih for i in range(3))
+            for e in np.flatnonzero(enc_t >= 0):                         # a steered encoder wheel's rolling row
+                f = coef[e] * (-sa[e] * n0 + ca[e] * n1 + (ca[e] * xe[e] + sa[e] * ye[e]) * n2) * ih
+                t = enc_t[e]
+                js[0, t] += n0 * f
+                js[1, t] += n1 * f
+                js[2, t] += n2 * f
+            # a steered standard wheel's sliding row c = (-sp, cp, c2r), dc/dpsi = (-cp, -sp, cp y - sp x)
+            dc2 = cp * ys - sp * xs
+            cn = -sp * n0 + cp * n1 + c2r * n2
+            dcn = -cp * n0 - sp * n1 + dc2 * n2
+            y0, y1, y2 = -cp * cn - sp * dcn, -sp * cn + cp * dcn, dc2 * cn + c2r * dcn
+            # dn = -M^+ y: on the plane normal to n, M^-1 = (sigma I - M) / pi (Cayley-Hamilton)
+            m00, m11, m22 = a00 - lam, a11 - lam, a22 - lam
+            ipi = -1.0 / np.where(pi > _TINY, pi, _TINY)
+            ny = n0 * y0 + n1 * y1 + n2 * y2
+            d0 = (sig * (y0 - n0 * ny) - (m00 * y0 + a01 * y1 + a02 * y2)) * ipi
+            d1 = (sig * (y1 - n1 * ny) - (a01 * y0 + m11 * y1 + a12 * y2)) * ipi
+            d2 = (sig * (y2 - n2 * ny) - (a02 * y0 + a12 * y1 + m22 * y2)) * ipi
+            f = q0 * d0 + q1 * d1 + q2 * d2
+            js[0, self._ss_t] += z * d0 + n0 * f
+            js[1, self._ss_t] += z * d1 + n1 * f
+            js[2, self._ss_t] += z * d2 + n2 * f
+        return self._pack(tau, cov6, resid, js)
+
+    def _pack(self, tau, cov6, resid, js):
+        """Wheel-major rows to the public shapes (M, 3), (M, 3, 3), (M, E), (M, 3, T), as views (no
+        copy); the steering noise sd^2 J_s J_s^T is added to the covariance here."""
+        if js is not None and self._f_sd2:
+            j0, j1, j2 = js
+            cov6 = cov6 + self._f_sd2 * np.stack([np.sum(j0 * j0, axis=0), np.sum(j0 * j1, axis=0),
+                                                  np.sum(j0 * j2, axis=0), np.sum(j1 * j1, axis=0),
+                                                  np.sum(j1 * j2, axis=0), np.sum(j2 * j2, axis=0)])
+        c9 = cov6[[0, 1, 2, 1, 3, 4, 2, 4, 5]]
+        return tau.T, np.moveaxis(c9.reshape(3, 3, -1), 2, 0), resid.T, \
+            None if js is None else np.moveaxis(js, 2, 0)
+
+    def step_floats(self, spin: Sequence[float], steer: Sequence[float] | None = None):
+        """One step of ``solve`` in plain floats (the streaming estimator's hot path, no numpy):
+        (dx, dy, dtheta, cov6, resid) with cov6 = (xx, xy, xt, yy, yt, tt) of the body increment's
+        covariance and resid the E whitened residuals. Non-finite readings give NaNs (callers drop
+        them before this point)."""
+        n_e = self._f_e
+        if self._mode == "reference" or not math.isfinite(sum(spin) + (sum(steer) if self._f_steer else 0.0)):
+            if self._mode == "reference" and all(math.isfinite(v) for v in spin) and \
+                    (not self._f_steer or all(math.isfinite(v) for v in steer)):
+                tau, cov, resid = self.solve([spin], None if not self._f_steer else [steer])
+                c = cov[0]
+                return (float(tau[0, 0]), float(tau[0, 1]), float(tau[0, 2]),
+                        (float(c[0, 0]), float(c[0, 1]), float(c[0, 2]), float(c[1, 1]), float(c[1, 2]),
+                         float(c[2, 2])), tuple(float(v) for v in resid[0]))
+            nan = float("nan")
+            return nan, nan, nan, (nan,) * 6, (nan,) * n_e
+        cos, sin = math.cos, math.sin
+        tot = 0.0
+        for v in spin:
+            tot += abs(v)
+        floor = _ROBUST_FRACTION * (tot / n_e)
+        if floor < 1e-12:
+            floor = 1e-12
+        ks, scales, inv_s2 = self._f_k, self._f_scale, self._f_inv_s2
+        w = [0.0] * n_e
+        b = [0.0] * n_e
+        for e in range(n_e):
+            v = spin[e]
+            a = abs(v)
+            w[e] = inv_s2[e] / (ks[e] * (a if a > floor else floor) + 1e-30)
+            b[e] = v * scales[e]
+        rows = list(self._f_rows0)
+        a00, a01, a02, a11, a12, a22 = self._f_a0
+        moved = []        # per steered wheel: (e, dr or None, c, dc or None)
+        for t, (e, std, base, x, y, co, so) in enumerate(self._f_steer):
+            p = base + steer[t]
+            cp, sp = cos(p), sin(p)
+            dr = c = dc = None
+            if std:
+                c = (-sp, cp, cp * x + sp * y)
+                dc = (-cp, -sp, cp * y - sp * x)
+                a00 += sp * sp
+                a01 -= sp * cp
+                a02 -= sp * c[2]
+                a11 += cp * cp
+                a12 += cp * c[2]
+                a22 += c[2] * c[2]
+            if e >= 0:
+                if std:
+                    ca, sa = cp, sp
+                else:
+                    ca, sa = cp * co - sp * so, sp * co + cp * so
+                rows[e] = (ca, sa, sa * x - ca * y)
+                dr = (-sa, ca, ca * x + sa * y)
+            moved.append((e, dr, c, dc))
+        sd2 = self._f_sd2
+        if self._mode == "fixed":
+            return self._fixed_floats(rows, moved, w, b, sd2)
+        n0, n1, n2, lam, sig, pi = _smallest_eigvec_floats(a00, a01, a02, a11, a12, a22)
+        g = [r[0] * n0 + r[1] * n1 + r[2] * n2 for r in rows]
+        h = 0.0
+        pz = 0.0
+        for e in range(n_e):
+            wg = w[e] * g[e]
+            h += wg * g[e]
+            pz += wg * b[e]
+        if not h > _TINY:
+            h = _TINY
+        z = pz / h
+        ih = 1.0 / h
+        cxx, cxy, cxt = n0 * n0 * ih, n0 * n1 * ih, n0 * n2 * ih
+        cyy, cyt, ctt = n1 * n1 * ih, n1 * n2 * ih, n2 * n2 * ih
+        resid = tuple((b[e] - g[e] * z) * math.sqrt(w[e]) for e in range(n_e))
+        if sd2:
+            coef = [w[e] * (b[e] - 2.0 * z * g[e]) for e in range(n_e)]
+            q0 = q1 = q2 = 0.0
+            for e in range(n_e):
+                r = rows[e]
+                ce = coef[e]
+                q0 += ce * r[0]
+                q1 += ce * r[1]
+                q2 += ce * r[2]
+            m00, m11, m22 = a00 - lam, a11 - lam, a22 - lam
+            ipi = -1.0 / (pi if pi > _TINY else _TINY)
+            for e, dr, c, dc in moved:
+                j0 = j1 = j2 = 0.0
+                if dr is not None:
+                    f = coef[e] * (dr[0] * n0 + dr[1] * n1 + dr[2] * n2) * ih
+                    j0, j1, j2 = n0 * f, n1 * f, n2 * f
+                if c is not None:
+                    cn = c[0] * n0 + c[1] * n1 + c[2] * n2
+                    dcn = dc[0] * n0 + dc[1] * n1 + dc[2] * n2
+                    y0, y1, y2 = dc[0] * cn + c[0] * dcn, dc[1] * cn + c[1] * dcn, dc[2] * cn + c[2] * dcn
+                    ny = n0 * y0 + n1 * y1 + n2 * y2
+                    d0 = (sig * (y0 - n0 * ny) - (m00 * y0 + a01 * y1 + a02 * y2)) * ipi
+                    d1 = (sig * (y1 - n1 * ny) - (a01 * y0 + m11 * y1 + a12 * y2)) * ipi
+                    d2 = (sig * (y2 - n2 * ny) - (a02 * y0 + a12 * y1 + m22 * y2)) * ipi
+                    f = (q0 * d0 + q1 * d1 + q2 * d2) * ih
+                    j0 += z * d0 + n0 * f
+                    j1 += z * d1 + n1 * f
+                    j2 += z * d2 + n2 * f
+                cxx += sd2 * j0 * j0
+                cxy += sd2 * j0 * j1
+                cxt += sd2 * j0 * j2
+                cyy += sd2 * j1 * j1
+                cyt += sd2 * j1 * j2
+                ctt += sd2 * j2 * j2
+        return n0 * z, n1 * z, n2 * z, (cxx, cxy, cxt, cyy, cyt, ctt), resid
+
+    def _fixed_floats(self, rows, moved, w, b, sd2):
+        """``step_floats`` with the sliding rows constant: a k x k solve in the fixed null space."""
+        n_e = self._f_e
+        null = self._f_null
+        k = len(null[0])
+        if any(dr is not None for _, dr, _, _ in moved):
+            g = [tuple(r[0] * null[0][i] + r[1] * null[1][i] + r[2] * null[2][i] for i in range(k)) for r in rows]
+        else:
+            g = self._f_g0
+        hm = [[0.0] * k for _ in range(k)]
+        v = [0.0] * k
+        for e in range(n_e):
+            ge, we = g[e], w[e]
+            wb = we * b[e]
+            for i in range(k):
+                wgi = we * ge[i]
+                v[i] += wb * ge[i]
+                row = hm[i]
+                for j in range(i, k):
+                    row[j] += wgi * ge[j]
+        hi = _inv_small_floats(hm, k)
+        z = [sum(hi[i][j] * v[j] for j in range(k)) for i in range(k)]
+        tau = [sum(null[a][i] * z[i] for i in range(k)) for a in range(3)]
+        # covariance N H^-1 N^T
+        nh = [[sum(null[a][i] * hi[i][j] for i in range(k)) for j in range(k)] for a in range(3)]
+        cov = [[sum(nh[a][j] * null[c][j] for j in range(k)) for c in range(3)] for a in range(3)]
+        eps = [b[e] - (rows[e][0] * tau[0] + rows[e][1] * tau[1] + rows[e][2] * tau[2]) for e in range(n_e)]
+        resid = tuple(eps[e] * math.sqrt(w[e]) for e in range(n_e))
+        cxx, cxy, cxt, cyy, cyt, ctt = cov[0][0], cov[0][1], cov[0][2], cov[1][1], cov[1][2], cov[2][2]
+        if sd2:
+            for e, dr, _, _ in moved:
+                if dr is None:
+                    continue
+                r = rows[e]
+                dt = dr[0] * tau[0] + dr[1] * tau[1] + dr[2] * tau[2]
+                we, ee = w[e], eps[e]
+                vec = (we * (ee * dr[0] - dt * r[0]), we * (ee * dr[1] - dt * r[1]), we * (ee * dr[2] - dt * r[2]))
+                j0, j1, j2 = (cov[a][0] * vec[0] + cov[a][1] * vec[1] + cov[a][2] * vec[2] for a in range(3))
+                cxx += sd2 * j0 * j0
+                cxy += sd2 * j0 * j1
+                cxt += sd2 * j0 * j2
+                cyy += sd2 * j1 * j1
+                cyt += sd2 * j1 * j2
+                ctt += sd2 * j2 * j2
+        return tau[0], tau[1], tau[2], (cxx, cxy, cxt, cyy, cyt, ctt), resid
 
     def inverse(self, twist, dt_s):
         tw = np.asarray(twist, dtype=np.float64).reshape(-1, 3)
