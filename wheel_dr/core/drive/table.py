@@ -38,6 +38,7 @@ _ROBUST_FRACTION = 0.25
 _FD_STEP_RAD = 1e-6
 _TINY = 1e-300          # floor of a divisor (a degenerate step stays finite)
 _NEWTON_STEPS = 8
+_BLOCK = 8192           # steps per block of the vectorised solve
 _NEWTON_TOL = 1e-14      # relative to trace(A): the smallest eigenvalue to round-off
 
 
@@ -398,6 +399,9 @@ class WheelTable(DriveModel):
         if self._mode == "fixed":
             self._f_null = tuple(tuple(float(c) for c in r) for r in self._null)
             self._f_g0 = tuple(tuple(float(c) for c in r) for r in self._g0)
+            self._f_g_fixed = not self._enc_steered.any()
+            self._f_null_eye = bool(np.array_equal(self._null, np.eye(3)))
+            self._f_cov_coef = tuple(tuple(float(c) for c in r) for r in self._cov_coef)
 
     def solve(self, spin_m, steer_rad=None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Body increments tau (M, 3), their covariance (M, 3, 3) from the wheel noise and the steering
@@ -426,7 +430,15 @@ class WheelTable(DriveModel):
                     js = self._steer_jacobian_fd(s, st)
                     cov = cov + self._f_sd2 * js @ np.swapaxes(js, 1, 2)
                 return tau, cov, (b - np.einsum("mei,mi->me", rows, tau)) * np.sqrt(w)
-            return self._fast(s, st, bool(self._f_sd2))[:3]
+            want = bool(self._f_sd2)
+            m = len(s)
+            if m <= _BLOCK:
+                return self._fast(s, st, want)[:3]
+            tau, cov, resid = np.empty((m, 3)), np.empty((m, 3, 3)), np.empty((m, self._f_e))
+            for a in range(0, m, _BLOCK):          # blocks small enough for the temporaries to stay in cache
+                e = min(m, a + _BLOCK)
+                tau[a:e], cov[a:e], resid[a:e] = self._fast(s[a:e], None if st is None else st[a:e], want)[:3]
+            return tau, cov, resid
 
     def _fast(self, s: np.ndarray, st: np.ndarray | None, want_js: bool):
         """tau (M, 3), wheel-noise covariance (M, 3, 3), whitened residual (M, E) and the (M, 3, T)
@@ -556,154 +568,191 @@ class WheelTable(DriveModel):
         covariance and resid the E whitened residuals. Non-finite readings give NaNs (callers drop
         them before this point)."""
         n_e = self._f_e
-        if self._mode == "reference" or not math.isfinite(sum(spin) + (sum(steer) if self._f_steer else 0.0)):
-            if self._mode == "reference" and all(math.isfinite(v) for v in spin) and \
-                    (not self._f_steer or all(math.isfinite(v) for v in steer)):
-                tau, cov, resid = self.solve([spin], None if not self._f_steer else [steer])
-                c = cov[0]
-                return (float(tau[0, 0]), float(tau[0, 1]), float(tau[0, 2]),
-                        (float(c[0, 0]), float(c[0, 1]), float(c[0, 2]), float(c[1, 1]), float(c[1, 2]),
-                         float(c[2, 2])), tuple(float(v) for v in resid[0]))
-            nan = float("nan")
-            return nan, nan, nan, (nan,) * 6, (nan,) * n_e
-        cos, sin = math.cos, math.sin
-        tot = 0.0
-        for v in spin:
-            tot += abs(v)
-        floor = _ROBUST_FRACTION * (tot / n_e)
+        steer_table = self._f_steer
+        if self._mode == "reference" or not math.isfinite(sum(spin) + (sum(steer) if steer_table else 0.0)):
+            return self._step_floats_slow(spin, steer)
+        floor = _ROBUST_FRACTION * (sum(map(abs, spin)) / n_e)
         if floor < 1e-12:
             floor = 1e-12
-        ks, scales, inv_s2 = self._f_k, self._f_scale, self._f_inv_s2
-        w = [0.0] * n_e
-        b = [0.0] * n_e
-        for e in range(n_e):
-            v = spin[e]
-            a = abs(v)
-            w[e] = inv_s2[e] / (ks[e] * (a if a > floor else floor) + 1e-30)
-            b[e] = v * scales[e]
+        w = [i2 / (k * (abs(v) if abs(v) > floor else floor) + 1e-30)
+             for v, k, i2 in zip(spin, self._f_k, self._f_inv_s2)]
+        b = [v * sc for v, sc in zip(spin, self._f_scale)]
+        sd2 = self._f_sd2
+        cos, sin = math.cos, math.sin
         rows = list(self._f_rows0)
+        if self._mode == "fixed":
+            moved = []
+            for (e, std, base, x, y, co, so), sv in zip(steer_table, steer or ()):
+                if e >= 0:                                       # a steered roller wheel with an encoder
+                    p = base + sv
+                    cp, sp = cos(p), sin(p)
+                    ca, sa = cp * co - sp * so, sp * co + cp * so
+                    rows[e] = (ca, sa, sa * x - ca * y)
+                    moved.append((e, (-sa, ca, ca * x + sa * y), None, None))
+            return self._fixed_floats(rows, moved, w, b, sd2)
         a00, a01, a02, a11, a12, a22 = self._f_a0
-        moved = []        # per steered wheel: (e, dr or None, c, dc or None)
-        for t, (e, std, base, x, y, co, so) in enumerate(self._f_steer):
-            p = base + steer[t]
-            cp, sp = cos(p), sin(p)
-            dr = c = dc = None
+        trig = []
+        for (e, std, base, x, y, co, so), sv in zip(steer_table, steer):
+            p = base + sv
+            cp = cos(p)
+            sp = sin(p)
             if std:
-                c = (-sp, cp, cp * x + sp * y)
-                dc = (-cp, -sp, cp * y - sp * x)
+                c2 = cp * x + sp * y
                 a00 += sp * sp
                 a01 -= sp * cp
-                a02 -= sp * c[2]
+                a02 -= sp * c2
                 a11 += cp * cp
-                a12 += cp * c[2]
-                a22 += c[2] * c[2]
-            if e >= 0:
-                if std:
-                    ca, sa = cp, sp
-                else:
-                    ca, sa = cp * co - sp * so, sp * co + cp * so
+                a12 += cp * c2
+                a22 += c2 * c2
+                if e >= 0:
+                    rows[e] = (cp, sp, sp * x - cp * y)
+            elif e >= 0:
+                ca, sa = cp * co - sp * so, sp * co + cp * so
                 rows[e] = (ca, sa, sa * x - ca * y)
-                dr = (-sa, ca, ca * x + sa * y)
-            moved.append((e, dr, c, dc))
-        sd2 = self._f_sd2
-        if self._mode == "fixed":
-            return self._fixed_floats(rows, moved, w, b, sd2)
+            trig.append((cp, sp))
         n0, n1, n2, lam, sig, pi = _smallest_eigvec_floats(a00, a01, a02, a11, a12, a22)
-        g = [r[0] * n0 + r[1] * n1 + r[2] * n2 for r in rows]
-        h = 0.0
-        pz = 0.0
-        for e in range(n_e):
-            wg = w[e] * g[e]
-            h += wg * g[e]
-            pz += wg * b[e]
+        g = [r0 * n0 + r1 * n1 + r2 * n2 for r0, r1, r2 in rows]
+        h = pz = 0.0
+        for ge, we, be in zip(g, w, b):
+            wg = we * ge
+            h += wg * ge
+            pz += wg * be
         if not h > _TINY:
             h = _TINY
-        z = pz / h
         ih = 1.0 / h
+        z = pz * ih
+        sqrt = math.sqrt
+        resid = tuple((be - ge * z) * sqrt(we) for ge, we, be in zip(g, w, b))
         cxx, cxy, cxt = n0 * n0 * ih, n0 * n1 * ih, n0 * n2 * ih
         cyy, cyt, ctt = n1 * n1 * ih, n1 * n2 * ih, n2 * n2 * ih
-        resid = tuple((b[e] - g[e] * z) * math.sqrt(w[e]) for e in range(n_e))
         if sd2:
-            coef = [w[e] * (b[e] - 2.0 * z * g[e]) for e in range(n_e)]
+            z2 = 2.0 * z
+            coef = [we * (be - z2 * ge) for ge, we, be in zip(g, w, b)]
             q0 = q1 = q2 = 0.0
-            for e in range(n_e):
-                r = rows[e]
-                ce = coef[e]
-                q0 += ce * r[0]
-                q1 += ce * r[1]
-                q2 += ce * r[2]
+            for (r0, r1, r2), ce in zip(rows, coef):
+                q0 += ce * r0
+                q1 += ce * r1
+                q2 += ce * r2
+            q0, q1, q2 = q0 * ih, q1 * ih, q2 * ih
             m00, m11, m22 = a00 - lam, a11 - lam, a22 - lam
             ipi = -1.0 / (pi if pi > _TINY else _TINY)
-            for e, dr, c, dc in moved:
-                j0 = j1 = j2 = 0.0
-                if dr is not None:
-                    f = coef[e] * (dr[0] * n0 + dr[1] * n1 + dr[2] * n2) * ih
+            for (e, std, base, x, y, co, so), (cp, sp) in zip(steer_table, trig):
+                if e >= 0:                                       # the wheel's rolling row turns
+                    ca, sa = rows[e][0], rows[e][1]
+                    f = coef[e] * (ca * n1 - sa * n0 + (ca * x + sa * y) * n2) * ih
                     j0, j1, j2 = n0 * f, n1 * f, n2 * f
-                if c is not None:
-                    cn = c[0] * n0 + c[1] * n1 + c[2] * n2
-                    dcn = dc[0] * n0 + dc[1] * n1 + dc[2] * n2
-                    y0, y1, y2 = dc[0] * cn + c[0] * dcn, dc[1] * cn + c[1] * dcn, dc[2] * cn + c[2] * dcn
+                else:
+                    j0 = j1 = j2 = 0.0
+                if std:                                          # its sliding row turns and moves n
+                    c2 = cp * x + sp * y
+                    dc2 = cp * y - sp * x
+                    cn = cp * n1 - sp * n0 + c2 * n2
+                    dcn = dc2 * n2 - cp * n0 - sp * n1
+                    y0, y1, y2 = -cp * cn - sp * dcn, cp * dcn - sp * cn, dc2 * cn + c2 * dcn
                     ny = n0 * y0 + n1 * y1 + n2 * y2
                     d0 = (sig * (y0 - n0 * ny) - (m00 * y0 + a01 * y1 + a02 * y2)) * ipi
                     d1 = (sig * (y1 - n1 * ny) - (a01 * y0 + m11 * y1 + a12 * y2)) * ipi
                     d2 = (sig * (y2 - n2 * ny) - (a02 * y0 + a12 * y1 + m22 * y2)) * ipi
-                    f = (q0 * d0 + q1 * d1 + q2 * d2) * ih
+                    f = q0 * d0 + q1 * d1 + q2 * d2
                     j0 += z * d0 + n0 * f
                     j1 += z * d1 + n1 * f
                     j2 += z * d2 + n2 * f
-                cxx += sd2 * j0 * j0
-                cxy += sd2 * j0 * j1
-                cxt += sd2 * j0 * j2
-                cyy += sd2 * j1 * j1
-                cyt += sd2 * j1 * j2
+                s0, s1 = sd2 * j0, sd2 * j1
+                cxx += s0 * j0
+                cxy += s0 * j1
+                cxt += s0 * j2
+                cyy += s1 * j1
+                cyt += s1 * j2
                 ctt += sd2 * j2 * j2
         return n0 * z, n1 * z, n2 * z, (cxx, cxy, cxt, cyy, cyt, ctt), resid
 
+    def _step_floats_slow(self, spin, steer):
+        """``step_floats`` through ``solve`` (tables on the SVD path), or NaNs for non-finite readings."""
+        finite = all(math.isfinite(v) for v in spin) and (not self._f_steer or all(math.isfinite(v) for v in steer))
+        if not finite:
+            nan = float("nan")
+            return nan, nan, nan, (nan,) * 6, (nan,) * self._f_e
+        tau, cov, resid = self.solve([list(spin)], None if not self._f_steer else [list(steer)])
+        c = cov[0]
+        return (float(tau[0, 0]), float(tau[0, 1]), float(tau[0, 2]),
+                (float(c[0, 0]), float(c[0, 1]), float(c[0, 2]), float(c[1, 1]), float(c[1, 2]), float(c[2, 2])),
+                tuple(float(v) for v in resid[0]))
+
     def _fixed_floats(self, rows, moved, w, b, sd2):
-        """``step_floats`` with the sliding rows constant: a k x k solve in the fixed null space."""
-        n_e = self._f_e
+        """``step_floats`` with the sliding rows constant: a k x k solve in the fixed null space N."""
         null = self._f_null
         k = len(null[0])
-        if any(dr is not None for _, dr, _, _ in moved):
-            g = [tuple(r[0] * null[0][i] + r[1] * null[1][i] + r[2] * null[2][i] for i in range(k)) for r in rows]
-        else:
+        if self._f_g_fixed:
             g = self._f_g0
-        hm = [[0.0] * k for _ in range(k)]
-        v = [0.0] * k
-        for e in range(n_e):
-            ge, we = g[e], w[e]
-            wb = we * b[e]
-            for i in range(k):
-                wgi = we * ge[i]
-                v[i] += wb * ge[i]
-                row = hm[i]
-                for j in range(i, k):
-                    row[j] += wgi * ge[j]
-        hi = _inv_small_floats(hm, k)
-        z = [sum(hi[i][j] * v[j] for j in range(k)) for i in range(k)]
-        tau = [sum(null[a][i] * z[i] for i in range(k)) for a in range(3)]
-        # covariance N H^-1 N^T
-        nh = [[sum(null[a][i] * hi[i][j] for i in range(k)) for j in range(k)] for a in range(3)]
-        cov = [[sum(nh[a][j] * null[c][j] for j in range(k)) for c in range(3)] for a in range(3)]
-        eps = [b[e] - (rows[e][0] * tau[0] + rows[e][1] * tau[1] + rows[e][2] * tau[2]) for e in range(n_e)]
-        resid = tuple(eps[e] * math.sqrt(w[e]) for e in range(n_e))
-        cxx, cxy, cxt, cyy, cyt, ctt = cov[0][0], cov[0][1], cov[0][2], cov[1][1], cov[1][2], cov[2][2]
+        else:
+            g = [tuple(r[0] * null[0][i] + r[1] * null[1][i] + r[2] * null[2][i] for i in range(k)) for r in rows]
+        if k == 3:
+            h00 = h01 = h02 = h11 = h12 = h22 = v0 = v1 = v2 = 0.0
+            for (g0, g1, g2), we, be in zip(g, w, b):
+                a0, a1, wb = we * g0, we * g1, we * be
+                h00 += a0 * g0
+                h01 += a0 * g1
+                h02 += a0 * g2
+                h11 += a1 * g1
+                h12 += a1 * g2
+                h22 += we * g2 * g2
+                v0 += wb * g0
+                v1 += wb * g1
+                v2 += wb * g2
+            i00, i01, i02 = h11 * h22 - h12 * h12, h02 * h12 - h01 * h22, h01 * h12 - h02 * h11
+            i11, i12, i22 = h00 * h22 - h02 * h02, h01 * h02 - h00 * h12, h00 * h11 - h01 * h01
+            det = h00 * i00 + h01 * i01 + h02 * i02
+            d = 1.0 / (det if abs(det) > _TINY else _TINY)
+            hi = (i00 * d, i01 * d, i02 * d, i11 * d, i12 * d, i22 * d)
+            z = (hi[0] * v0 + hi[1] * v1 + hi[2] * v2, hi[1] * v0 + hi[3] * v1 + hi[4] * v2,
+                 hi[2] * v0 + hi[4] * v1 + hi[5] * v2)
+        elif k == 2:
+            h00 = h01 = h11 = v0 = v1 = 0.0
+            for (g0, g1), we, be in zip(g, w, b):
+                a0, wb = we * g0, we * be
+                h00 += a0 * g0
+                h01 += a0 * g1
+                h11 += we * g1 * g1
+                v0 += wb * g0
+                v1 += wb * g1
+            det = h00 * h11 - h01 * h01
+            d = 1.0 / (det if abs(det) > _TINY else _TINY)
+            hi = (h11 * d, -h01 * d, h00 * d)
+            z = (hi[0] * v0 + hi[1] * v1, hi[1] * v0 + hi[2] * v1)
+        else:
+            h00 = v0 = 0.0
+            for (g0,), we, be in zip(g, w, b):
+                h00 += we * g0 * g0
+                v0 += we * be * g0
+            hi = (1.0 / (h00 if abs(h00) > _TINY else _TINY),)
+            z = (hi[0] * v0,)
+        if self._f_null_eye:
+            tau, cov = z, hi
+        else:
+            tau = tuple(sum(nr[i] * z[i] for i in range(k)) for nr in null)
+            cov = tuple(sum(cf[i] * hi[i] for i in range(len(hi))) for cf in self._f_cov_coef)
+        t0, t1, t2 = tau
+        eps = [be - (r[0] * t0 + r[1] * t1 + r[2] * t2) for r, be in zip(rows, b)]
+        resid = tuple(ee * math.sqrt(we) for ee, we in zip(eps, w))
+        cxx, cxy, cxt, cyy, cyt, ctt = cov
         if sd2:
             for e, dr, _, _ in moved:
                 if dr is None:
                     continue
                 r = rows[e]
-                dt = dr[0] * tau[0] + dr[1] * tau[1] + dr[2] * tau[2]
+                dt = dr[0] * t0 + dr[1] * t1 + dr[2] * t2
                 we, ee = w[e], eps[e]
-                vec = (we * (ee * dr[0] - dt * r[0]), we * (ee * dr[1] - dt * r[1]), we * (ee * dr[2] - dt * r[2]))
-                j0, j1, j2 = (cov[a][0] * vec[0] + cov[a][1] * vec[1] + cov[a][2] * vec[2] for a in range(3))
+                u0, u1, u2 = we * (ee * dr[0] - dt * r[0]), we * (ee * dr[1] - dt * r[1]), we * (ee * dr[2] - dt * r[2])
+                j0 = cov[0] * u0 + cov[1] * u1 + cov[2] * u2
+                j1 = cov[1] * u0 + cov[3] * u1 + cov[4] * u2
+                j2 = cov[2] * u0 + cov[4] * u1 + cov[5] * u2
                 cxx += sd2 * j0 * j0
                 cxy += sd2 * j0 * j1
                 cxt += sd2 * j0 * j2
                 cyy += sd2 * j1 * j1
                 cyt += sd2 * j1 * j2
                 ctt += sd2 * j2 * j2
-        return tau[0], tau[1], tau[2], (cxx, cxy, cxt, cyy, cyt, ctt), resid
+        return t0, t1, t2, (cxx, cxy, cxt, cyy, cyt, ctt), resid
 
     def inverse(self, twist, dt_s):
         tw = np.asarray(twist, dtype=np.float64).reshape(-1, 3)
