@@ -23,6 +23,7 @@ turning wheel does not get an almost infinite weight from one noisy reading (com
 """
 from __future__ import annotations
 
+import contextlib
 import math
 from typing import Sequence
 
@@ -422,7 +423,9 @@ class WheelTable(DriveModel):
         """
         s = np.asarray(spin_m, dtype=np.float64).reshape(-1, self._f_e)
         st = None if not len(self._steered_idx) else np.asarray(steer_rad, dtype=np.float64).reshape(len(s), -1)
-        with np.errstate(all="ignore"):
+        finite = bool(np.isfinite(s).all()) and (st is None or bool(np.isfinite(st).all()))
+        # finite readings never divide by zero; non-finite ones (callers drop them) give NaNs quietly
+        with contextlib.nullcontext() if finite else np.errstate(all="ignore"):
             if self._mode == "reference":
                 tau, null, h_inv, _, w, _, rows, b = self._solve(s, st)
                 cov = null @ h_inv @ np.swapaxes(null, 1, 2)
