@@ -15,7 +15,15 @@ rolling equations of the wheels with encoders, subject to the sliding equations 
 sliding rows (from their SVD, keeping the table's structural constraint rank, so steering noise
 cannot make the constraints contradict each other), z = (G^T W G)^-1 G^T W b, G = R N. Its
 covariance is N (G^T W G)^-1 N^T from the wheel noise plus J_s diag(steer_sd^2) J_s^T from the
-steering readings (J_s by central differences of the same solution).
+steering readings (J_s = d tau / d steering readings).
+
+Two implementations give the same numbers (tested to 1e-9): ``_solve``, the definition above with
+numpy's batched SVD and inverse (kept as the reference and for tables with steered standard wheels
+and two degrees of freedom), and the fast path, ``solve`` (vectorised, in cache-sized blocks) and
+``step_floats`` (one step in plain floats for the streaming estimator), in closed form: the null
+space once per table when no standard wheel is steered, else (one degree of freedom) the
+eigenvector of C^T C's smallest eigenvalue from Newton's method and an adjugate, k x k inverses by
+cofactors, and an analytic steering Jacobian (see ``solve``).
 
 Weights are the inverse variances of the wheels' travel, k_i |s_i| (the per-wheel model), made
 robust: |s_i| is floored at a quarter of the mean |s| of the step's encoder wheels, so a slowly
@@ -365,16 +373,13 @@ class WheelTable(DriveModel):
                 self._null = np.eye(3)
             g = self._rows0 @ self._null
             self._g0 = g
-            self._gg0 = (g[:, :, None] * g[:, None, :]).reshape(len(enc), -1)
         elif self._constraint_rank == 2:
             self._mode = "one"              # one degree of freedom: the smallest eigenvector of C^T C
         else:
             self._mode = "reference"        # steered standard wheels with two degrees of freedom: the SVD path
         col = {int(i): t for t, i in enumerate(self._steered_idx)}
         self._enc_steer_t = np.array([col.get(int(i), -1) for i in enc], dtype=np.int64)
-        self._enc_base = (self.mount + self._off - np.where(self.steered, self.offset, 0.0))[enc]
         self._inv_s2 = 1.0 / (self._scale * self._scale)
-        self._ss_base = (self.mount - self.offset)[self._std_steered]
         self._ss_t = np.array([col[int(i)] for i in self._std_steered], dtype=np.int64)
         self._st_base = (self.mount - self.offset)[self._steered_idx]
         self._enc_std = self.standard[enc]
@@ -382,7 +387,6 @@ class WheelTable(DriveModel):
         if self._mode == "fixed":
             k = self._null.shape[1]
             self._gg0u = np.stack([self._g0[:, i] * self._g0[:, j] for i, j in _UPPER[k]])
-            self._null_rows = self._null
             self._cov_coef = np.array([[self._null[a, i] * self._null[c, j] + (self._null[a, j] * self._null[c, i]
                                                                                if i != j else 0.0)
                                         for i, j in _UPPER[k]] for a, c in _UPPER[3]])
@@ -489,7 +493,7 @@ class WheelTable(DriveModel):
                 v = np.stack([np.sum(wgi * b, axis=0) for wgi in wg])
             hi = _inv_sym_rows(hu, k)                                     # upper triangle of H^-1
             z = [sum(hi[_UIDX[k][i][j]] * v[j] for j in range(k)) for i in range(k)]
-            tau = self._null_rows @ np.stack(z)                           # (3, M)
+            tau = null @ np.stack(z)                           # (3, M)
             cov6 = self._cov_coef @ np.stack(hi)                          # (6, M): N H^-1 N^T
             eps = b - (r[0] * tau[0] + r[1] * tau[1] + r[2] * tau[2])
             if want_js:
