@@ -31,7 +31,6 @@ turning wheel does not get an almost infinite weight from one noisy reading (com
 """
 from __future__ import annotations
 
-import contextlib
 import math
 from typing import Sequence
 
@@ -275,7 +274,7 @@ class WheelTable(DriveModel):
     def _psi(self, steer: np.ndarray | None, m: int) -> np.ndarray:
         psi = np.broadcast_to(self.mount, (m, len(self.x))).copy()
         if self.steered.any():
-            st = np.asarray(steer, dtype=np.float64).reshape(m, -1)
+            st = np.asarray(steer, dtype=np.float64).reshape(m, int(self.steered.sum()))
             psi[:, self.steered] += st - self.offset[self.steered]
         return psi
 
@@ -322,7 +321,7 @@ class WheelTable(DriveModel):
         """(M, 3, T) d increment / d steering readings (analytic, see ``solve``; the weights do not
         depend on the steering)."""
         s = np.asarray(spin_m, dtype=np.float64).reshape(-1, int(self.spin.sum()))
-        st = np.asarray(steer_rad, dtype=np.float64).reshape(len(s), -1)
+        st = np.asarray(steer_rad, dtype=np.float64).reshape(len(s), len(self._steered_idx))
         if self._mode == "reference":
             return self._steer_jacobian_fd(s, st)
         with np.errstate(all="ignore"):
@@ -331,7 +330,7 @@ class WheelTable(DriveModel):
     def _steer_jacobian_fd(self, spin_m, steer_rad) -> np.ndarray:
         """(M, 3, T) d increment / d steering readings, central differences of the SVD path."""
         s = np.asarray(spin_m, dtype=np.float64).reshape(-1, int(self.spin.sum()))
-        st = np.asarray(steer_rad, dtype=np.float64).reshape(len(s), -1)
+        st = np.asarray(steer_rad, dtype=np.float64).reshape(len(s), len(self._steered_idx))
         var = self.spin_variance(s)
         out = np.zeros((len(s), 3, st.shape[1]))
         for t in range(st.shape[1]):
@@ -426,26 +425,35 @@ class WheelTable(DriveModel):
         with two degrees of freedom) take the SVD path with central differences.
         """
         s = np.asarray(spin_m, dtype=np.float64).reshape(-1, self._f_e)
-        st = None if not len(self._steered_idx) else np.asarray(steer_rad, dtype=np.float64).reshape(len(s), -1)
-        finite = bool(np.isfinite(s).all()) and (st is None or bool(np.isfinite(st).all()))
-        # finite readings never divide by zero; non-finite ones (callers drop them) give NaNs quietly
-        with contextlib.nullcontext() if finite else np.errstate(all="ignore"):
-            if self._mode == "reference":
-                tau, null, h_inv, _, w, _, rows, b = self._solve(s, st)
-                cov = null @ h_inv @ np.swapaxes(null, 1, 2)
-                if self._f_sd2:
-                    js = self._steer_jacobian_fd(s, st)
-                    cov = cov + self._f_sd2 * js @ np.swapaxes(js, 1, 2)
-                return tau, cov, (b - np.einsum("mei,mi->me", rows, tau)) * np.sqrt(w)
-            want = bool(self._f_sd2)
-            m = len(s)
-            if m <= _BLOCK:
-                return self._fast(s, st, want)[:3]
-            tau, cov, resid = np.empty((m, 3)), np.empty((m, 3, 3)), np.empty((m, self._f_e))
-            for a in range(0, m, _BLOCK):          # blocks small enough for the temporaries to stay in cache
-                e = min(m, a + _BLOCK)
-                tau[a:e], cov[a:e], resid[a:e] = self._fast(s[a:e], None if st is None else st[a:e], want)[:3]
+        st = None if not len(self._steered_idx) else np.asarray(steer_rad, dtype=np.float64).reshape(len(s), len(self._steered_idx))
+        if not len(s):
+            return np.zeros((0, 3)), np.zeros((0, 3, 3)), np.zeros((0, self._f_e))
+        bad = ~np.isfinite(s).all(axis=1)
+        if st is not None:
+            bad |= ~np.isfinite(st).all(axis=1)
+        if bad.any():               # callers drop non-finite readings; here such a step gives NaNs
+            s = np.where(bad[:, None], 0.0, s)
+            st = None if st is None else np.where(bad[:, None], 0.0, st)
+            tau, cov, resid = (np.array(a) for a in self.solve(s, st))
+            tau[bad], cov[bad], resid[bad] = np.nan, np.nan, np.nan
             return tau, cov, resid
+        # finite readings never divide by zero (the divisors are floored)
+        if self._mode == "reference":
+            tau, null, h_inv, _, w, _, rows, b = self._solve(s, st)
+            cov = null @ h_inv @ np.swapaxes(null, 1, 2)
+            if self._f_sd2:
+                js = self._steer_jacobian_fd(s, st)
+                cov = cov + self._f_sd2 * js @ np.swapaxes(js, 1, 2)
+            return tau, cov, (b - np.einsum("mei,mi->me", rows, tau)) * np.sqrt(w)
+        want = bool(self._f_sd2)
+        m = len(s)
+        if m <= _BLOCK:
+            return self._fast(s, st, want)[:3]
+        tau, cov, resid = np.empty((m, 3)), np.empty((m, 3, 3)), np.empty((m, self._f_e))
+        for a in range(0, m, _BLOCK):          # blocks small enough for the temporaries to stay in cache
+            e = min(m, a + _BLOCK)
+            tau[a:e], cov[a:e], resid[a:e] = self._fast(s[a:e], None if st is None else st[a:e], want)[:3]
+        return tau, cov, resid
 
     def _fast(self, s: np.ndarray, st: np.ndarray | None, want_js: bool):
         """tau (M, 3), wheel-noise covariance (M, 3, 3), whitened residual (M, E) and the (M, 3, T)
