@@ -416,13 +416,18 @@ class WheelTable(DriveModel):
         the solve is a k x k symmetric inverse (k = 3 - constraint rank). With steered standard wheels
         and one degree of freedom, the null vector n is the eigenvector of the smallest eigenvalue
         lam of A = C^T C (the subspace the rank-truncated SVD keeps): lam by Newton's method on
-        det(A - lam I) from 0 (monotone there, A being positive semi-definite), n as the longest
-        cross product of two rows of A - lam I. Then tau = n z, z = sum w g b / H, H = sum w g^2,
+        det(A - lam I) from 0 (monotone there, A being positive semi-definite), n from the adjugate
+        of A - lam I (= pi n n^T): its column with the largest diagonal entry. Then tau = n z,
+        z = sum w g b / H, H = sum w g^2,
         g = R n, and the wheel part of the covariance is n n^T / H. The steering Jacobian is
         analytic: a reading moves its wheel's rolling row (d r / d psi is the row at psi + pi/2)
         and its sliding row, which moves n by dn = -(A - lam I)^+ dA n (first-order eigenvector
         perturbation); tau does not depend on the length of n. Other tables (steered standard wheels
         with two degrees of freedom) take the SVD path with central differences.
+
+        Long inputs are solved in blocks of ``_BLOCK`` steps (the temporaries stay in cache). A step
+        with all spins 0 gives tau = 0 and a finite covariance; a step with a non-finite reading
+        gives NaNs. Small inputs may come back as views of wheel-major arrays.
         """
         s = np.asarray(spin_m, dtype=np.float64).reshape(-1, self._f_e)
         st = None if not len(self._steered_idx) else np.asarray(steer_rad, dtype=np.float64).reshape(len(s), len(self._steered_idx))
