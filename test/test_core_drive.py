@@ -365,3 +365,19 @@ def test_body_to_odom_noise_is_first_order_propagation(scheme) -> None:
     q_diff = body_to_odom_noise(th, diff.increment(s), diff.increment_covariance(s), scheme)
     ref = increment_noise(th, dl, dr, 0.47, scheme, "per_wheel", 3e-4, 6e-4, (0.0, 0.0, 0.0, 0.0))[0]
     assert _rel(q_diff, ref) < 1e-9
+
+
+@pytest.mark.parametrize("name", sorted(n for n, m in ALL_MODELS.items() if m.steered.any()))
+def test_solve_follows_the_svd_when_steering_readings_disagree_widely(name) -> None:
+    """Steering readings with 1 rad of noise (sliding rows far from consistent, eigenvalues of C^T C
+    close together on some steps): solve's increment still equals the numpy SVD + lstsq reference to
+    1e-9 and step_floats equals solve."""
+    model = ALL_MODELS[name]
+    rng = np.random.default_rng(4)
+    spin, steer = _noisy_steps(model, 300, 17)
+    steer = steer + rng.standard_normal(steer.shape)
+    tau = model.solve(spin, steer)[0]
+    ref = _reference(model, spin, steer)[0]
+    assert np.max(np.linalg.norm(tau - ref, axis=1) / np.linalg.norm(ref, axis=1)) < 1e-9
+    fl = np.array([model.step_floats(a.tolist(), b.tolist())[:3] for a, b in zip(spin, steer)])
+    assert np.max(np.linalg.norm(fl - tau, axis=1) / np.linalg.norm(tau, axis=1)) < 1e-9

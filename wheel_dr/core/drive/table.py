@@ -45,7 +45,7 @@ DRIVE_KINDS = ("differential", "tricycle", "ackermann", "mecanum", "omni", "swer
 _ROBUST_FRACTION = 0.25
 _FD_STEP_RAD = 1e-6
 _TINY = 1e-300          # floor of a divisor (a degenerate step stays finite)
-_NEWTON_STEPS = 8
+_NEWTON_STEPS = 60      # enough for nearly equal eigenvalues (linear convergence, ratio 1/2)
 _BLOCK = 8192           # steps per block of the vectorised solve
 _NEWTON_TOL = 1e-14      # relative to trace(A): the smallest eigenvalue to round-off
 
