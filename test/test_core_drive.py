@@ -275,6 +275,9 @@ def test_solve_equals_numpy_reference_and_step_floats_equals_solve(name) -> None
     assert np.array_equal(model.increment(spin, steer), tau)
     assert np.array_equal(model.increment_covariance(spin, steer), cov)
     assert np.array_equal(model.residual(spin, steer), res)
+    big = np.tile(np.arange(len(spin)), 300)              # several blocks of the vectorised solve
+    for got, want in zip(model.solve(spin[big], None if steer is None else steer[big]), (tau, cov, res)):
+        assert np.allclose(got, want[big], rtol=1e-13, atol=1e-300)
     for i in range(len(spin)):
         dx, dy, dth, c6, r = model.step_floats(spin[i].tolist(), None if steer is None else steer[i].tolist())
         assert all(type(v) is float for v in (dx, dy, dth, *c6, *r))
@@ -359,6 +362,9 @@ def test_body_to_odom_noise_is_first_order_propagation(scheme) -> None:
     for i in range(m):
         qf = body_to_odom_noise_floats(th[i], *tau[i], cov[i][[0, 0, 0, 1, 1, 2], [0, 1, 2, 1, 2, 2]], scheme)
         assert _rel(qf, q[i][[0, 0, 0, 1, 1, 2], [0, 1, 2, 1, 2, 2]]) < 1e-12
+    big = np.tile(np.arange(m), 500)                      # several blocks: each row as computed alone
+    q_big = body_to_odom_noise(th[big], tau[big], cov[big], scheme)
+    assert np.array_equal(q_big, q[big])
     dl, dr = 0.01 + 0.003 * rng.standard_normal(m), 0.012 + 0.003 * rng.standard_normal(m)
     diff = DifferentialDrive(0.47, k_left=3e-4, k_right=6e-4)
     s = np.column_stack([dl, dr])

@@ -31,6 +31,8 @@ from ..se2 import SERIES_BELOW, se2_exp_factors, se2_exp_factors_scalar
 
 __all__ = ["DriveModel", "integrate_body", "odom_increment", "body_to_odom_noise", "body_to_odom_noise_floats"]
 
+_BLOCK = 8192   # steps per block of body_to_odom_noise
+
 
 class DriveModel(ABC):
     """What the core needs of a drive geometry (see the module docstring)."""
@@ -137,20 +139,24 @@ def body_to_odom_noise(theta_before_rad, body: np.ndarray, cov: np.ndarray, sche
     dy = 0 this is the step noise of the differential-drive core (``noise.increment_noise``)."""
     body = np.asarray(body, dtype=np.float64).reshape(-1, 3)
     cov = np.asarray(cov, dtype=np.float64).reshape(-1, 3, 3)
-    dx, dy, dth = body[:, 0], body[:, 1], body[:, 2]
-    a, b, da, db = _odom_jacobian_terms(theta_before_rad, dth, scheme)
-    u0, u1 = da * dx - db * dy, db * dx + da * dy
-    cxx, cxy, cxt = cov[:, 0, 0], cov[:, 0, 1], cov[:, 0, 2]
-    cyy, cyt, ctt = cov[:, 1, 1], cov[:, 1, 2], cov[:, 2, 2]
-    r00, r01, r02 = a * cxx - b * cxy + u0 * cxt, a * cxy - b * cyy + u0 * cyt, a * cxt - b * cyt + u0 * ctt
-    r10, r11, r12 = b * cxx + a * cxy + u1 * cxt, b * cxy + a * cyy + u1 * cyt, b * cxt + a * cyt + u1 * ctt
+    th_all = np.broadcast_to(np.asarray(theta_before_rad, dtype=np.float64), (len(body),))
     q = np.empty((len(body), 3, 3))
-    q[:, 0, 0] = r00 * a - r01 * b + r02 * u0
-    q[:, 0, 1] = q[:, 1, 0] = r00 * b + r01 * a + r02 * u1
-    q[:, 0, 2] = q[:, 2, 0] = r02
-    q[:, 1, 1] = r10 * b + r11 * a + r12 * u1
-    q[:, 1, 2] = q[:, 2, 1] = r12
-    q[:, 2, 2] = ctt
+    for s in range(0, len(body), _BLOCK):       # blocks small enough for the temporaries to stay in cache
+        e = min(len(body), s + _BLOCK)
+        dx, dy, dth = body[s:e, 0], body[s:e, 1], body[s:e, 2]
+        a, b, da, db = _odom_jacobian_terms(th_all[s:e], dth, scheme)
+        u0, u1 = da * dx - db * dy, db * dx + da * dy
+        c = cov[s:e]
+        cxx, cxy, cxt, cyy, cyt, ctt = c[:, 0, 0], c[:, 0, 1], c[:, 0, 2], c[:, 1, 1], c[:, 1, 2], c[:, 2, 2]
+        r00, r01, r02 = a * cxx - b * cxy + u0 * cxt, a * cxy - b * cyy + u0 * cyt, a * cxt - b * cyt + u0 * ctt
+        r10, r11, r12 = b * cxx + a * cxy + u1 * cxt, b * cxy + a * cyy + u1 * cyt, b * cxt + a * cyt + u1 * ctt
+        out = q[s:e]
+        out[:, 0, 0] = r00 * a - r01 * b + r02 * u0
+        out[:, 0, 1] = out[:, 1, 0] = r00 * b + r01 * a + r02 * u1
+        out[:, 0, 2] = out[:, 2, 0] = r02
+        out[:, 1, 1] = r10 * b + r11 * a + r12 * u1
+        out[:, 1, 2] = out[:, 2, 1] = r12
+        out[:, 2, 2] = ctt
     return q
 
 
