@@ -133,7 +133,7 @@ def bench_kinds(n: int, stream_n: int, repeat: int, slip: bool) -> None:
             for a, b in zip(sp, st):
                 step(a, b)
 
-        s_wall, s_cpu = _best(stream, 1)
+        s_wall, s_cpu = _best(stream, repeat)
         print(f"{kind:<10} {wall:8.3f} {wall / d_wall:7.2f} {cpu:7.3f} {cpu / d_cpu:7.2f} "
               f"{1e6 * s_wall / m:15.1f} {1e6 * s_cpu / m:7.1f}")
 

@@ -616,6 +616,7 @@ class WheelTable(DriveModel):
             p = base + sv
             cp = cos(p)
             sp = sin(p)
+            c2 = 0.0
             if std:
                 c2 = cp * x + sp * y
                 a00 += sp * sp
@@ -629,7 +630,7 @@ class WheelTable(DriveModel):
             elif e >= 0:
                 ca, sa = cp * co - sp * so, sp * co + cp * so
                 rows[e] = (ca, sa, sa * x - ca * y)
-            trig.append((cp, sp))
+            trig.append((cp, sp, c2))
         n0, n1, n2, lam, sig, pi = _smallest_eigvec_floats(a00, a01, a02, a11, a12, a22)
         g = [r0 * n0 + r1 * n1 + r2 * n2 for r0, r1, r2 in rows]
         h = pz = 0.0
@@ -654,29 +655,36 @@ class WheelTable(DriveModel):
                 q1 += ce * r1
                 q2 += ce * r2
             q0, q1, q2 = q0 * ih, q1 * ih, q2 * ih
-            m00, m11, m22 = a00 - lam, a11 - lam, a22 - lam
-            ipi = -1.0 / (pi if pi > _TINY else _TINY)
-            for (e, std, base, x, y, co, so), (cp, sp) in zip(steer_table, trig):
+            # a sliding row's turn moves n by dn = -P y, P = M^+ = (sigma (I - n n^T) - M) / pi, and tau by
+            # z dn + n (q . dn) = L y with L = -(z P + n (P q)^T), once per step
+            ipi = 1.0 / (pi if pi > _TINY else _TINY)
+            p00 = (sig * (1.0 - n0 * n0) - a00 + lam) * ipi
+            p11 = (sig * (1.0 - n1 * n1) - a11 + lam) * ipi
+            p22 = (sig * (1.0 - n2 * n2) - a22 + lam) * ipi
+            p01 = -(sig * n0 * n1 + a01) * ipi
+            p02 = -(sig * n0 * n2 + a02) * ipi
+            p12 = -(sig * n1 * n2 + a12) * ipi
+            pq0 = p00 * q0 + p01 * q1 + p02 * q2
+            pq1 = p01 * q0 + p11 * q1 + p12 * q2
+            pq2 = p02 * q0 + p12 * q1 + p22 * q2
+            l00, l01, l02 = -(z * p00 + n0 * pq0), -(z * p01 + n0 * pq1), -(z * p02 + n0 * pq2)
+            l10, l11, l12 = -(z * p01 + n1 * pq0), -(z * p11 + n1 * pq1), -(z * p12 + n1 * pq2)
+            l20, l21, l22 = -(z * p02 + n2 * pq0), -(z * p12 + n2 * pq1), -(z * p22 + n2 * pq2)
+            for (e, std, base, x, y, co, so), (cp, sp, c2) in zip(steer_table, trig):
                 if e >= 0:                                       # the wheel's rolling row turns
-                    ca, sa = rows[e][0], rows[e][1]
+                    ca, sa, _ = rows[e]
                     f = coef[e] * (ca * n1 - sa * n0 + (ca * x + sa * y) * n2) * ih
                     j0, j1, j2 = n0 * f, n1 * f, n2 * f
                 else:
                     j0 = j1 = j2 = 0.0
                 if std:                                          # its sliding row turns and moves n
-                    c2 = cp * x + sp * y
                     dc2 = cp * y - sp * x
                     cn = cp * n1 - sp * n0 + c2 * n2
                     dcn = dc2 * n2 - cp * n0 - sp * n1
                     y0, y1, y2 = -cp * cn - sp * dcn, cp * dcn - sp * cn, dc2 * cn + c2 * dcn
-                    ny = n0 * y0 + n1 * y1 + n2 * y2
-                    d0 = (sig * (y0 - n0 * ny) - (m00 * y0 + a01 * y1 + a02 * y2)) * ipi
-                    d1 = (sig * (y1 - n1 * ny) - (a01 * y0 + m11 * y1 + a12 * y2)) * ipi
-                    d2 = (sig * (y2 - n2 * ny) - (a02 * y0 + a12 * y1 + m22 * y2)) * ipi
-                    f = q0 * d0 + q1 * d1 + q2 * d2
-                    j0 += z * d0 + n0 * f
-                    j1 += z * d1 + n1 * f
-                    j2 += z * d2 + n2 * f
+                    j0 += l00 * y0 + l01 * y1 + l02 * y2
+                    j1 += l10 * y0 + l11 * y1 + l12 * y2
+                    j2 += l20 * y0 + l21 * y1 + l22 * y2
                 s0, s1 = sd2 * j0, sd2 * j1
                 cxx += s0 * j0
                 cxy += s0 * j1
