@@ -29,7 +29,8 @@ import numpy as np
 
 from ..se2 import SERIES_BELOW, se2_exp_factors, se2_exp_factors_scalar
 
-__all__ = ["DriveModel", "integrate_body", "odom_increment", "body_to_odom_noise", "body_to_odom_noise_floats"]
+__all__ = ["DriveModel", "integrate_body", "odom_increment", "odom_increment_floats", "body_to_odom_noise",
+           "body_to_odom_noise_floats"]
 
 _BLOCK = 8192   # steps per block of body_to_odom_noise
 
@@ -87,6 +88,20 @@ def odom_increment(theta_before_rad, body: np.ndarray, scheme: str) -> tuple[np.
         raise ValueError(f"integration scheme '{scheme}' is not one of euler, midpoint, exact")
     c, s = np.cos(phi), np.sin(phi)
     return c * bx - s * by, s * bx + c * by
+
+
+def odom_increment_floats(theta_before: float, dx: float, dy: float, dth: float, scheme: str) -> tuple[float, float]:
+    """Float twin of ``odom_increment`` for one step (the streaming estimator)."""
+    if scheme == "exact":
+        a, b = se2_exp_factors_scalar(dth)
+        dx, dy = a * dx - b * dy, b * dx + a * dy
+        phi = theta_before
+    elif scheme == "midpoint":
+        phi = theta_before + 0.5 * dth
+    else:
+        phi = theta_before
+    c, s = math.cos(phi), math.sin(phi)
+    return c * dx - s * dy, s * dx + c * dy
 
 
 def integrate_body(body: np.ndarray, scheme: str, start_pose: Sequence[float] = (0.0, 0.0, 0.0)):
