@@ -8,11 +8,13 @@ The drive is the invented demo cart "Quokka" (radii 0.0829/0.0822 m, track 0.418
 gently for an hour; every integration scheme x noise model is timed. Figures are printed, not
 asserted (speed targets live here, not in the test suite).
 
-A second section times the wheel-table drive models, one invented table per kind (the tables of
-test/test_core_drive.py): the batch path ``WheelTable.solve`` + ``integrate_body`` + the step noise
-(``body_to_odom_noise``) + ``propagate_covariance`` over ``--samples`` steps against the
-differential ``run`` on as many samples (exact scheme, per-wheel noise), their ratio (target: 3x or
-less), and the streaming ``WheelTable.step_floats`` per call (target: under 100 us).
+A second section times the wheel-table kinds on the invented vehicles of ``wheel_dr.demo.vehicles``
+(their simulated drive, laps repeated to ``--samples``, with the gyro): the whole estimator
+``run`` (wheel travel, ``WheelTable.solve``, slip detectors, integration, covariance) against the
+differential ``run`` on as many samples with its gyro, their ratio (target: 3x or less), the
+streaming ``Estimator.step`` per sample and the drive model's own ``WheelTable.step_floats`` per
+call (target: a streaming step under 100 us). Wall and CPU time are both printed (CPU time is less
+sensitive to other work on the machine).
 """
 from __future__ import annotations
 
@@ -24,9 +26,9 @@ from pathlib import Path
 import numpy as np
 
 from wheel_dr.core import Estimator, JointSamples, Settings, run
-from wheel_dr.core.drive import integrate_body
-from wheel_dr.core.drive.base import body_to_odom_noise
-from wheel_dr.core.noise import propagate_covariance
+from wheel_dr.demo.vehicles import params_text, table_scenario
+from wheel_dr.params import parse_params_text
+from wheel_dr.sim.table import simulate_table
 
 __all__ = ["make_drive", "bench_batch", "bench_stream", "bench_kinds", "main"]
 
@@ -80,21 +82,6 @@ def bench_stream(samples: JointSamples, settings: Settings) -> float:
     return elapsed / len(stamps)
 
 
-def kind_tables() -> dict:
-    """The invented tables of the drive-model tests, one per kind, with a twist each can drive."""
-    sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "test"))
-    from test_core_drive import tables  # noqa: E402  (the tests' invented geometry)
-    return tables()
-
-
-def table_path(model, spin: np.ndarray, steer: np.ndarray | None, scheme: str = "exact") -> np.ndarray:
-    """The batch pose-and-covariance path of a table kind: solve, integrate, step noise, propagation."""
-    tau, cov, _ = model.solve(spin, steer)
-    x, y, _, before = integrate_body(tau, scheme)
-    q = body_to_odom_noise(before, tau, cov, scheme)
-    return propagate_covariance(x, y, q)
-
-
 def _best(fn, repeat: int) -> tuple[float, float]:
     """Best wall time and best CPU time (process_time, less sensitive to other work on the machine), s."""
     wall = cpu = float("inf")
@@ -105,37 +92,61 @@ def _best(fn, repeat: int) -> tuple[float, float]:
     return wall, cpu
 
 
+def _vehicle_drive(kind: str, n: int):
+    """Settings (the vehicle's example table), samples and gyro of about ``n`` samples of its drive."""
+    one = simulate_table(table_scenario(kind, laps=1), seed=7)
+    laps = max(1, int(np.ceil(n / len(one))))
+    sim = simulate_table(table_scenario(kind, laps=laps), seed=7) if laps > 1 else one
+    settings = Settings.from_flat(parse_params_text(params_text(kind)))
+    samples = sim.joint_samples()
+    keep = slice(0, min(n, len(samples)))
+    samples = JointSamples(samples.stamp_ns[keep], samples.names, samples.position[keep], samples.velocity[keep])
+    return settings, samples, sim.gyro_z_radps[keep]
+
+
 def bench_kinds(n: int, stream_n: int, repeat: int, slip: bool) -> None:
-    """Print, per table kind, the batch time of ``table_path`` on n steps, its ratio to the
-    differential ``run`` on n samples and the mean time of one ``step_floats`` call (wall and CPU)."""
+    """Print, per table kind, the whole estimator's batch time on its vehicle's drive, the ratio to
+    the differential ``run`` on as many samples (both with a gyro), and the streaming time per sample
+    of ``Estimator.step`` and of the model's ``step_floats`` (wall and CPU)."""
     drive = make_drive(n)
     diff = settings_for("exact", "per_wheel", slip)
-    d_wall, d_cpu = _best(lambda: run(drive, diff), repeat)
-    rng = np.random.default_rng(7)
-    t = np.arange(n) / 100.0
-    print(f"wheel-table kinds: solve + integrate_body + body_to_odom_noise + propagate_covariance on {n} "
-          f"steps (exact scheme, best of {repeat}) against the differential run on {n} samples "
-          f"(exact, per_wheel, slip detectors {'on' if slip else 'off'}): {d_wall:.3f} s wall, {d_cpu:.3f} s CPU; "
-          f"streaming step_floats over {min(stream_n, n)} steps")
-    print(f"{'kind':<10} {'batch s':>8} {'x diff':>7} {'CPU s':>7} {'x diff':>7} {'stream us/step':>15} {'CPU us':>7}")
+    gyro_d = np.full(n, 0.01)
+    d_wall, d_cpu = _best(lambda: run(drive, diff, gyro_z_radps=gyro_d), repeat)
+    print(f"wheel-table kinds: the estimator's run over {n} samples of each invented vehicle's drive (exact "
+          f"scheme, gyro, slip detectors {'on' if slip else 'off'}, best of {repeat}) against the differential "
+          f"run on {n} samples with a gyro: {d_wall:.3f} s wall, {d_cpu:.3f} s CPU; streaming over "
+          f"{stream_n} samples")
+    print(f"{'kind':<10} {'batch s':>8} {'x diff':>7} {'CPU s':>7} {'x diff':>7} {'step us':>8} {'CPU us':>7} "
+          f"{'model us':>9}")
     for kind in KINDS:
-        model, twist = kind_tables()[kind]
-        gain = 1.0 + 0.3 * np.column_stack([np.sin(0.05 * t), np.cos(0.031 * t), np.sin(0.02 * t)])
-        spin, steer = model.inverse(np.asarray(twist) * gain, np.full(n, 0.01))
-        spin = spin + 1e-5 * rng.standard_normal(spin.shape)
-        wall, cpu = _best(lambda: table_path(model, spin, steer), repeat)
-        m = min(stream_n, n)
-        sp = spin[:m].tolist()
-        st = [None] * m if steer is None else steer[:m].tolist()
-        step = model.step_floats
+        settings, samples, gyro = _vehicle_drive(kind, n)
+        if not slip:
+            settings = settings.replace(**{"slip.enabled": False})
+        wall, cpu = _best(lambda: run(samples, settings, gyro_z_radps=gyro), repeat)
+        m = min(stream_n, len(samples))
+        names = list(samples.names)
+        pos, vel = samples.position[:m].tolist(), samples.velocity[:m].tolist()
+        stamps, gy = samples.stamp_ns[:m].tolist(), gyro[:m].tolist()
 
         def stream() -> None:
-            for a, b in zip(sp, st):
-                step(a, b)
+            est = Estimator(settings)
+            step = est.step
+            for k in range(m):
+                step(stamps[k], names, pos[k], vel[k], gy[k])
 
-        s_wall, s_cpu = _best(stream, repeat)
+        s_wall, s_cpu = _best(stream, 1)
+        model = settings.drive_model()
+        traj = run(samples, settings)
+        spin = traj.travel.joint_travel_m[:m].tolist()
+        steer = [None] * m if traj.travel.steer_rad is None else traj.travel.steer_rad[:m].tolist()
+
+        def model_steps() -> None:
+            for a, b in zip(spin, steer):
+                model.step_floats(a, b)
+
+        f_wall, _ = _best(model_steps, 1)
         print(f"{kind:<10} {wall:8.3f} {wall / d_wall:7.2f} {cpu:7.3f} {cpu / d_cpu:7.2f} "
-              f"{1e6 * s_wall / m:15.1f} {1e6 * s_cpu / m:7.1f}")
+              f"{1e6 * s_wall / m:8.1f} {1e6 * s_cpu / m:7.1f} {1e6 * f_wall / len(spin):9.1f}")
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -58,7 +58,7 @@ FLAG_FIELDS: tuple[str, ...] = (
     "score",           # largest detector score (1 = at its threshold); 0 for skipped samples
 )
 FLAGS_LABEL = "wheel_dr_flags:" + ",".join(FLAG_FIELDS)
-DETECTOR_BITS_TEXT = "1 gyro, 2 traction, 4 same side, 8 accel, 16 command"
+DETECTOR_BITS_TEXT = "1 gyro, 2 traction, 4 same side, 8 accel, 16 command, 32 residual (wheel tables)"
 STATUS_NAMES: dict[int, str] = {int(s): s.name.lower() for s in SampleStatus}
 
 
