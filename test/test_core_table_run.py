@@ -111,3 +111,18 @@ def test_differential_kind_ignores_nothing_silently() -> None:
 
     with pytest.raises(SettingsError, match="drive.kind"):
         Settings.from_flat({"drive.wheel_joints": ["a", "b"]})
+
+
+def test_an_unknown_table_joint_is_named_with_the_parameter_to_fix() -> None:
+    """A table joint the joint states do not carry: one sentence naming the joint and drive.wheel_joints
+    (the analyser), and every sample skipped as missing a joint (the node's streaming form)."""
+    from wheel_dr.core.errors import InputError
+
+    model, twist = tables()["mecanum"]
+    s = settings_of(model)
+    msgs = [(m[0], [n.replace("fl", "front_left") for n in m[1]], m[2], m[3]) for m in messages(model, twist, 5)]
+    with pytest.raises(InputError) as info:
+        run(samples_from_messages(msgs), s)
+    assert "'fl'" in str(info.value) and "drive.wheel_joints" in str(info.value)
+    est = Estimator(s)
+    assert all(est.step(*m) == SampleStatus.MISSING_JOINT for m in msgs)
