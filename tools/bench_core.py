@@ -2,11 +2,15 @@
 """Benchmark of the estimator core: batch ``run`` over one hour at 100 Hz, streaming ``step`` per sample.
 
 Usage: .venv/bin/python tools/bench_core.py [--samples 360000] [--stream-samples 36000] [--repeat 3]
-                                            [--slip on|off]
+                                            [--slip on|off] [--online-only]
 
 The drive is the invented demo cart "Quokka" (radii 0.0829/0.0822 m, track 0.4185 m) turning
 gently for an hour; every integration scheme x noise model is timed. Figures are printed, not
 asserted (speed targets live here, not in the test suite).
+
+The last section times online self-calibration (``online_calibration.enabled``): the streaming step
+with a gyro reading, off and on, the added cost per step (target under 20 us) and the slowest step
+(one closing an interval), and the batch run off and on.
 """
 from __future__ import annotations
 
@@ -73,7 +77,10 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--stream-samples", type=int, default=36_000, help="streaming samples per case")
     parser.add_argument("--repeat", type=int, default=3, help="batch repetitions (best is reported)")
     parser.add_argument("--slip", choices=("on", "off"), default="on", help="run the slip detectors (default on)")
+    parser.add_argument("--online-only", action="store_true", help="run only the online calibration section")
     args = parser.parse_args(argv)
+    if args.online_only:
+        return bench_online(args)
     batch_drive = make_drive(args.samples)
     stream_drive = make_drive(args.stream_samples)
     print(f"wheel_dr core benchmark: batch run of {args.samples} samples ({args.samples / 100 / 3600:.2f} h at "
@@ -88,6 +95,51 @@ def main(argv: list[str] | None = None) -> int:
             step_s = bench_stream(stream_drive, s)
             print(f"{scheme:<9} {model:<13} {batch_s:9.3f} {1e6 * batch_s / args.samples:16.3f} "
                   f"{args.samples / batch_s:12.0f} {1e6 * step_s:15.1f}")
+    return bench_online(args)
+
+
+def bench_online(args: argparse.Namespace) -> int:
+    """Online self-calibration: streaming step with a gyro, off and on; batch run off and on."""
+    rate = 100.0
+    drive = make_drive(args.stream_samples, rate)
+    t = np.arange(len(drive)) / rate
+    omega_l, omega_r = drive.velocity[:, 0], drive.velocity[:, 1]
+    gyro = ((0.0822 * omega_r - 0.0829 * omega_l) / 0.4185 + 0.002 + 0.004 * np.sin(7.0 * t)).tolist()
+    names = list(drive.names)
+    pos, vel, stamps = drive.position.tolist(), drive.velocity.tolist(), drive.stamp_ns.tolist()
+    print(f"online calibration: streaming step over {len(stamps)} samples at {rate:g} Hz with a gyro "
+          f"(one interval closes every {int(rate * 0.1)} samples); batch run over {args.samples} samples")
+    rows = []
+    for enabled in (False, True):
+        s = settings_for("exact", "per_wheel", args.slip == "on").replace(**{"online_calibration.enabled": enabled})
+        best, worst = float("inf"), 0.0
+        for _ in range(3):
+            est = Estimator(s)
+            clock = time.perf_counter
+            t0 = clock()
+            slowest = 0.0
+            for k in range(len(stamps)):
+                a = clock()
+                est.step(stamps[k], names, pos[k], vel[k], gyro[k])
+                slowest = max(slowest, clock() - a)
+            best = min(best, (clock() - t0) / len(stamps))
+            worst = max(worst, slowest)
+        rows.append((enabled, best, worst))
+    off, on = rows[0][1], rows[1][1]
+    print(f"  stream step, off: {1e6 * off:6.1f} us/step mean; on: {1e6 * on:6.1f} us/step mean -> added "
+          f"{1e6 * (on - off):5.1f} us/step (target under 20 us); slowest step on {1e6 * rows[1][2]:.0f} us")
+    batch = make_drive(args.samples, rate)
+    tb = np.arange(len(batch)) / rate
+    g_b = (0.0822 * batch.velocity[:, 1] - 0.0829 * batch.velocity[:, 0]) / 0.4185 + 0.002 + 0.004 * np.sin(7.0 * tb)
+    for enabled in (False, True):
+        s = settings_for("exact", "per_wheel", args.slip == "on").replace(**{"online_calibration.enabled": enabled})
+        best = float("inf")
+        for _ in range(args.repeat):
+            t0 = time.perf_counter()
+            traj = run(batch, s, gyro_z_radps=g_b)
+            best = min(best, time.perf_counter() - t0)
+        extra = f" ({len(traj.online)} intervals)" if enabled else ""
+        print(f"  batch run, online {'on ' if enabled else 'off'}: {best:7.3f} s{extra}")
     return 0
 
 

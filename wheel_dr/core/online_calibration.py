@@ -141,13 +141,11 @@ class _Filter:
         lam = math.exp(-dist * k.inv_horizon)
         lam2 = lam * lam
         a, bb, v = self.a, self.bb, self.v
-        for i in range(6):
-            a[i] *= lam
-            bb[i] *= lam2
-        v[0] *= lam
-        v[1] *= lam
-        v[2] *= lam
+        a0, a1, a2, a3, a4, a5 = a[0] * lam, a[1] * lam, a[2] * lam, a[3] * lam, a[4] * lam, a[5] * lam
+        b0, b1, b2, b3, b4, b5 = bb[0] * lam2, bb[1] * lam2, bb[2] * lam2, bb[3] * lam2, bb[4] * lam2, bb[5] * lam2
+        v0, v1, v2 = v[0] * lam, v[1] * lam, v[2] * lam
         if skip or t <= 0.0:
+            self.a, self.bb, self.v = [a0, a1, a2, a3, a4, a5], [b0, b1, b2, b3, b4, b5], [v0, v1, v2]
             if t > 0.0:
                 self.skipped += 1
             self._solve()
@@ -160,6 +158,7 @@ class _Filter:
         s = var + k.tol2 * (t * t) + (x0 * (c[0] * x0 - c[1] * pl + c[2] * t) - pl * (c[1] * x0 - c[3] * pl + c[4] * t)
                    + t * (c[2] * x0 - c[4] * pl + c[5] * t))
         if r * r > k.gate * s:
+            self.a, self.bb, self.v = [a0, a1, a2, a3, a4, a5], [b0, b1, b2, b3, b4, b5], [v0, v1, v2]
             self.skipped += 1
             self._solve()
             return
@@ -168,13 +167,11 @@ class _Filter:
         el = EIV * k.kl * al / (k.rl * k.rl)
         # x = (phi_r, -phi_l, T); theta = (p_r, p_l, bias) enters as p_r phi_r - p_l phi_l + bias T,
         # so the regressor of p_l is -phi_l: information entries with the sign folded in
-        u = (w * (x0 * x0 - er), w * (-x0 * pl), w * (x0 * t), w * (pl * pl - el), w * (-pl * t), w * (t * t))
-        for i in range(6):
-            a[i] += u[i]
-            bb[i] += u[i]
-        v[0] += w * x0 * g
-        v[1] += w * (-pl) * g
-        v[2] += w * t * g
+        u0, u1, u2 = w * (x0 * x0 - er), w * (-x0 * pl), w * (x0 * t)
+        u3, u4, u5 = w * (pl * pl - el), w * (-pl * t), w * (t * t)
+        self.a = [a0 + u0, a1 + u1, a2 + u2, a3 + u3, a4 + u4, a5 + u5]
+        self.bb = [b0 + u0, b1 + u1, b2 + u2, b3 + u3, b4 + u4, b5 + u5]
+        self.v = [v0 + w * x0 * g, v1 + w * (-pl) * g, v2 + w * t * g]
         self.used += 1
         self._solve()
 
@@ -410,13 +407,17 @@ def online_calibration(travel: Travel, gyro_z_radps: np.ndarray | None, slip_fla
     sums = [(t - p).tolist() for t, p in zip(totals, prev)]
     f = _Filter(k)
     n = len(ticks)
-    out = np.empty((n, 6))
-    bits = np.zeros((n, 5), dtype=bool)
+    rows: list[tuple] = []
+    keep = rows.append
+    interval = f.interval
     for j in range(n):
-        f.interval(sums[0][j], sums[1][j], sums[2][j], sums[3][j], sums[4][j], sums[5][j], sums[6][j],
-                   sums[7][j], sums[8][j])
-        out[j] = (f.ratio, f.ratio_se, f.track, f.track_se, f.bias, f.bias_se)
-        bits[j] = (f.alert, f.on_ratio, f.on_track, f.excited_ratio, f.excited_track)
+        interval(sums[0][j], sums[1][j], sums[2][j], sums[3][j], sums[4][j], sums[5][j], sums[6][j],
+                 sums[7][j], sums[8][j])
+        keep((f.ratio, f.ratio_se, f.track, f.track_se, f.bias, f.bias_se, f.alert, f.on_ratio, f.on_track,
+              f.excited_ratio, f.excited_track))
+    table = np.array(rows, dtype=np.float64).reshape(n, 11)
+    out = table[:, :6]
+    bits = table[:, 6:] != 0.0
     return OnlineCalibrationResult(ticks, stamp[ticks], out[:, 0], out[:, 1], out[:, 2], out[:, 3], out[:, 4],
                                    out[:, 5], bits[:, 0], bits[:, 1], bits[:, 2], bits[:, 3], bits[:, 4],
                                    k.ratio0, k.track0, k.rl, k.rr, f.used, f.skipped)
