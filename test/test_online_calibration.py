@@ -110,7 +110,7 @@ def test_gyro_bias_alone_gives_no_alert():
 
 def test_a_drive_that_never_turns_reports_too_little_excitation_not_an_alert():
     segs = [straight(8.0, 0.6), pause(1.0), straight(-8.0, 0.6), pause(1.0)] * 12
-    sc = _scenario(segments=segs, radius_changes=(RadiusChange(30.0, "both", -0.02),))  # scale: invisible
+    sc = _scenario(segments=segs, radius_changes=(RadiusChange(30.0, "both", -0.02),))  # needs turning to see
     res = _batch(simulate(sc, 4), _settings(sc))
     assert not res.alert.any()
     assert not res.excited_track[-1]             # track over radius needs turning

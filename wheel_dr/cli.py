@@ -293,6 +293,9 @@ def _cmd_demo(args: argparse.Namespace) -> int:
         _say("calibrating the demo cart from a simulated ten-minute drive (wheel-dr calibrate)")
         _, section = calibrate_cmd.demo_calibration()
         sections.append(section)
+    from .online_demo import online_demo_section
+    _say("watching the geometry online while the demo cart's left tyre softens (online_calibration.enabled)")
+    sections.append(online_demo_section(cfg, DEMO_SEED))
     ns = argparse.Namespace(bags=[str(bag)], params=[str(cfg / c) for c in DEMO_CONFIGS], truth="/ground_truth",
                             joint_topic=None, imu_topic=None, no_imu=False, jobs=args.jobs, quiet=args.quiet,
                             out=str(out))

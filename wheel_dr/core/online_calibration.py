@@ -11,11 +11,16 @@ itself (the scale) is not: every radius and the track scaled alike turn the same
 bias is estimated with them (standing still and straight runs inform it), so a biased gyro does
 not move the geometry.
 
-Samples are summed over intervals of ``online_calibration.interval_s`` (by stamp) before they enter:
-over an interval the wheel noise is small against the travel (the bias of least squares with noisy
-regressors, corrected here to first order by subtracting the regressors' noise variance, Fuller
-1987, sec. 2.2, from the information). An interval is skipped when it, the one before or the one
-after holds a sample with a slip flag (the flag lags the slip's onset by the detector's window and
+Samples are summed over intervals of ``online_calibration.interval_s`` (by stamp; one estimate per
+interval), and consecutive intervals are merged into chunks until the wheels have travelled
+``online_calibration.chunk_m`` (mean |travel| of the sides) or ``CHUNK_MAX_S`` have passed. Over a
+chunk the wheels' random error is small against their travel, so least squares with noisy
+regressors is less biased (its relative attenuation is about var(phi) / phi^2 = k / d for the
+per-wheel model over a chunk of d metres, Fuller 1987, sec. 1.1), and the rest is corrected to first
+order by subtracting the wheel angles' noise variance from the information (Fuller 1987, sec. 2.2),
+as far as the corrected information plus half the prior stays positive definite (a smaller share of
+it otherwise, which only happens when the noise settings overstate the wheels' noise).
+A chunk is skipped when it, the one before or the one after holds a sample with a slip flag (the flag lags the slip's onset by the detector's window and
 debounce), and when its residual against the current estimate fails a chi-square gate
 (``online_calibration.gate``, with ``slip.gyro_rate_tolerance_radps`` times the interval's
 length added to its standard deviation for timing between gyro and wheels); samples without a gyro reading are left out. The weight of an
@@ -31,7 +36,7 @@ drive that never turns keeps the estimate at the configured value with the prior
 
 Alert, per quantity (ratio, track over radius): sets when the estimate departs from the configured
 value by more than ``alert_pct`` and by more than 4 standard errors, while the standard error is
-small enough to see a change of ``alert_pct`` (4 se below it; else "too little excitation" is
+small enough to see a change of ``alert_pct`` (2 se below it; else "too little excitation" is
 reported and nothing alerts); it holds until the departure falls below ``clear_fraction`` of
 ``alert_pct`` (hysteresis). Suggested values keep the configured mean radius.
 
@@ -55,9 +60,9 @@ __all__ = ["OnlineCalibrationResult", "OnlineCalibrator", "online_calibration", 
            "EXCITATION_SE", "ALERT_SE", "STATUS_OK", "STATUS_ALERT", "STATUS_LOW_EXCITATION", "GEOMETRY_FIELDS",
            "GEOMETRY_LABEL"]
 
-EIV = 1.0
+CHUNK_MAX_S = 5.0       # intervals are merged for at most this long (standing still, creeping)
 ALERT_SE = 4.0          # an alert needs a departure of more than this many standard errors
-EXCITATION_SE = 4.0     # a quantity is excited when this many standard errors are below alert_pct
+EXCITATION_SE = 2.0     # a quantity is excited when this many standard errors are below alert_pct
 STATUS_OK, STATUS_ALERT, STATUS_LOW_EXCITATION = "ok", "alert", "too little excitation"
 
 # Layout of the node's ~/geometry message (std_msgs/Float64MultiArray ``data``), see GEOMETRY_LABEL.
@@ -88,6 +93,7 @@ class _Constants:
         self.alert = o.alert_pct * 0.01
         self.clear = o.clear_fraction * self.alert
         self.gate = o.gate
+        self.chunk_m = o.chunk_m
         self.rl, self.rr, self.b = w.left_radius, w.right_radius, w.track_width
         self.kl, self.kr = n.k_left, n.k_right
         self.b2 = w.track_width * w.track_width
@@ -109,7 +115,10 @@ class _Filter:
         self.a = [0.0] * 6        # forgotten information, entries 00 01 02 11 12 22
         self.bb = [0.0] * 6       # information forgotten at twice the rate (sandwich)
         self.v = [0.0, 0.0, 0.0]  # forgotten information vector
+        self.e = [0.0, 0.0, 0.0, 0.0]  # wheel-angle noise in the information: right, left; and forgotten twice
+        self.correction = 1.0     # share of the noise correction the last solve used
         self.pending: tuple | None = None
+        self.chunk = [0.0] * 9    # intervals merged until chunk_m of travel or CHUNK_MAX_S
         self.flag_before = False
         self.used = 0
         self.skipped = 0
@@ -127,6 +136,14 @@ class _Filter:
                  flags: float) -> None:
         """One interval's sums: wheel angles (rad), time, gyro integral (rad), sum dt^2, |travel| per side (m),
         distance (m) and the count of slip-flagged samples. The previous interval is used now (or skipped)."""
+        c = self.chunk
+        c = [c[0] + pr, c[1] + pl, c[2] + t, c[3] + g, c[4] + t2, c[5] + ar, c[6] + al, c[7] + dist, c[8] + flags]
+        if c[7] < self.k.chunk_m and c[2] < CHUNK_MAX_S:
+            self.chunk = c
+            self._outputs()
+            return
+        self.chunk = [0.0] * 9
+        pr, pl, t, g, t2, ar, al, dist, flags = c
         flagged = flags > 0.0
         prev, self.pending = self.pending, (pr, pl, t, g, t2, ar, al, dist, flagged)
         if prev is not None:
@@ -144,6 +161,8 @@ class _Filter:
         a0, a1, a2, a3, a4, a5 = a[0] * lam, a[1] * lam, a[2] * lam, a[3] * lam, a[4] * lam, a[5] * lam
         b0, b1, b2, b3, b4, b5 = bb[0] * lam2, bb[1] * lam2, bb[2] * lam2, bb[3] * lam2, bb[4] * lam2, bb[5] * lam2
         v0, v1, v2 = v[0] * lam, v[1] * lam, v[2] * lam
+        e = self.e
+        self.e = [e[0] * lam, e[1] * lam, e[2] * lam2, e[3] * lam2]
         if skip or t <= 0.0:
             self.a, self.bb, self.v = [a0, a1, a2, a3, a4, a5], [b0, b1, b2, b3, b4, b5], [v0, v1, v2]
             if t > 0.0:
@@ -163,22 +182,37 @@ class _Filter:
             self._solve()
             return
         w = 1.0 / var
-        er = EIV * k.kr * ar / (k.rr * k.rr)      # variance of the interval's wheel angles (noise.k_*)
-        el = EIV * k.kl * al / (k.rl * k.rl)
         # x = (phi_r, -phi_l, T); theta = (p_r, p_l, bias) enters as p_r phi_r - p_l phi_l + bias T,
         # so the regressor of p_l is -phi_l: information entries with the sign folded in
-        u0, u1, u2 = w * (x0 * x0 - er), w * (-x0 * pl), w * (x0 * t)
-        u3, u4, u5 = w * (pl * pl - el), w * (-pl * t), w * (t * t)
+        u0, u1, u2 = w * (x0 * x0), w * (-x0 * pl), w * (x0 * t)
+        u3, u4, u5 = w * (pl * pl), w * (-pl * t), w * (t * t)
         self.a = [a0 + u0, a1 + u1, a2 + u2, a3 + u3, a4 + u4, a5 + u5]
         self.bb = [b0 + u0, b1 + u1, b2 + u2, b3 + u3, b4 + u4, b5 + u5]
         self.v = [v0 + w * x0 * g, v1 + w * (-pl) * g, v2 + w * t * g]
+        er, el = w * k.kr * ar / (k.rr * k.rr), w * k.kl * al / (k.rl * k.rl)   # var(phi) of the chunk (noise.k_*)
+        e = self.e
+        self.e = [e[0] + er, e[1] + el, e[2] + er, e[3] + el]
         self.used += 1
         self._solve()
 
     def _solve(self) -> None:
         k = self.k
-        a, bb, v, li, p0 = self.a, self.bb, self.v, k.prior_info, k.prior
+        a, bb, v, li, p0, e = self.a, self.bb, self.v, k.prior_info, k.prior, self.e
         m00, m01, m02, m11, m12, m22 = a[0] + li[0], a[1], a[2], a[3] + li[1], a[4], a[5] + li[2]
+        # noisy wheel angles inflate the information by their variance (errors in variables): subtract it,
+        # as far as the corrected information plus half the prior stays positive definite (on a drive that
+        # has not turned, the corrected information is about zero in the direction of the track)
+        h0, h1, h2 = 0.5 * li[0], 0.5 * li[1], 0.5 * li[2]
+        c = 1.0
+        while c > 0.0:
+            q00, q11, q22 = a[0] - c * e[0] + h0, a[3] - c * e[1] + h1, a[5] + h2
+            if q00 > 0.0 and q00 * q11 - m01 * m01 > 0.0 and (q00 * (q11 * q22 - m12 * m12) - m01 * (m01 * q22 - m12 * m02)
+                                                             + m02 * (m01 * m12 - q11 * m02)) > 0.0:
+                break
+            c = 0.0 if c < 0.2 else 0.5 * c
+        self.correction = c
+        m00, m11 = m00 - c * e[0], m11 - c * e[1]
+        n_e0, n_e1 = c * e[2], c * e[3]
         c00 = m11 * m22 - m12 * m12
         c01 = m02 * m12 - m01 * m22
         c02 = m01 * m12 - m02 * m11
@@ -193,7 +227,8 @@ class _Filter:
         r0, r1, r2 = v[0] + li[0] * p0[0], v[1] + li[1] * p0[1], v[2] + li[2] * p0[2]
         self.theta = (i00 * r0 + i01 * r1 + i02 * r2, i01 * r0 + i11 * r1 + i12 * r2,
                       i02 * r0 + i12 * r1 + i22 * r2)
-        n00, n01, n02, n11, n12, n22 = bb[0] + li[0], bb[1], bb[2], bb[3] + li[1], bb[4], bb[5] + li[2]
+        n00, n01, n02 = bb[0] + li[0] - n_e0, bb[1], bb[2]
+        n11, n12, n22 = bb[3] + li[1] - n_e1, bb[4], bb[5] + li[2]
         # t = Minv N (rows), then C = t Minv (symmetric: six entries)
         t00 = i00 * n00 + i01 * n01 + i02 * n02
         t01 = i00 * n01 + i01 * n11 + i02 * n12

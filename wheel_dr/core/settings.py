@@ -301,7 +301,10 @@ class OnlineCalibrationSettings:
                                "online_calibration.alert_pct.", "", 0.0, 1.0, lo_open=True, hi_open=True)
     interval_s: float = _p(0.1, "Samples are summed over intervals of this length (by stamp) before they enter the "
                            "estimate; one estimate per interval (at least 10 per second).", "s", 0.001, 0.1)
-    gate: float = _p(10.83, "Chi-square gate (1 degree of freedom) on an interval's gyro-versus-wheels residual; "
+    chunk_m: float = _p(0.05, "Intervals are merged until the wheels have travelled this far (mean of the sides' "
+                        "|travel|, or for 5 s) before they enter the estimate: the wheels' random error is then small "
+                        "against their travel.", "m", 0.0, 100.0)
+    gate: float = _p(10.83, "Chi-square gate (1 degree of freedom) on a merged interval's gyro-versus-wheels residual; "
                      "10.83 is the 99.9 % quantile (larger residuals are outliers and are skipped).", "", 0.01, 1e6)
     prior_pct: float = _p(10.0, "Standard deviation of the prior on the configured geometry (keeps the estimate "
                           "defined before the drive has turned enough).", "%", 0.1, 100.0)
