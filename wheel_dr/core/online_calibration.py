@@ -20,12 +20,13 @@ per-wheel model over a chunk of d metres, Fuller 1987, sec. 1.1), and the rest i
 order by subtracting the wheel angles' noise variance from the information (Fuller 1987, sec. 2.2),
 as far as the corrected information plus half the prior stays positive definite (a smaller share of
 it otherwise, which only happens when the noise settings overstate the wheels' noise).
-A chunk is skipped when it, the one before or the one after holds a sample with a slip flag (the flag lags the slip's onset by the detector's window and
-debounce), and when its residual against the current estimate fails a chi-square gate
-(``online_calibration.gate``, with ``slip.gyro_rate_tolerance_radps`` times the interval's
-length added to its standard deviation for timing between gyro and wheels); samples without a gyro reading are left out. The weight of an
-interval is the inverse of its residual variance: gyro white noise (``slip.gyro_noise_radps`` per
-reading, times dt) plus the wheels' (the per-wheel model's ``noise.k_left``/``k_right``).
+A chunk is skipped when it, the one before or the one after holds a sample with a slip flag (the
+flag lags the slip's onset by the detector's window and debounce), and when its residual against
+the current estimate fails a chi-square gate (``online_calibration.gate``, with
+``slip.gyro_rate_tolerance_radps`` times the chunk's length added to its standard deviation for
+timing between gyro and wheels); samples without a gyro reading are left out. The weight of a chunk
+is the inverse of its residual variance: gyro white noise (``slip.gyro_noise_radps`` per reading,
+times dt) plus the wheels' (the per-wheel model's ``noise.k_left``/``k_right``).
 
 Standard errors are those of the exponentially weighted estimate (the sandwich
 M^-1 (B + L0) M^-1, with M the forgotten information plus the prior's L0 and B the information
@@ -135,7 +136,8 @@ class _Filter:
     def interval(self, pr: float, pl: float, t: float, g: float, t2: float, ar: float, al: float, dist: float,
                  flags: float) -> None:
         """One interval's sums: wheel angles (rad), time, gyro integral (rad), sum dt^2, |travel| per side (m),
-        distance (m) and the count of slip-flagged samples. The previous interval is used now (or skipped)."""
+        distance (m) and the count of slip-flagged samples; merged into a chunk, the chunk before the one
+        just completed is used now (or skipped)."""
         c = self.chunk
         c = [c[0] + pr, c[1] + pl, c[2] + t, c[3] + g, c[4] + t2, c[5] + ar, c[6] + al, c[7] + dist, c[8] + flags]
         if c[7] < self.k.chunk_m and c[2] < CHUNK_MAX_S:
