@@ -3,7 +3,8 @@
 layout, and ~/save_geometry writes a parameters file that a second node then starts with.
 
 The drive is simulated (wheel_dr.sim) with the invented demo cart "Quokka": its left tyre is already
-3 % smaller than configured (a soft tyre), the gyro biased and noisy. Expected values come from the
+3 % smaller than configured (a soft tyre), the gyro biased and noisy; a PoseStamped "localisation"
+(the simulator's truth) on online_calibration.reference_topic makes the scale observable. Expected values come from the
 core's batch run over the same samples (heading model of Siegwart et al. 2011, sec. 3.2.1).
 """
 from __future__ import annotations
@@ -50,6 +51,7 @@ PARAMS = f"""# test parameters: Quokka demo cart, online self-calibration on
       enabled: true
       horizon_m: 10.0
       alert_pct: 1.0
+      reference_topic: /localisation/pose
 """
 
 
@@ -70,6 +72,7 @@ def _stop(proc: subprocess.Popen) -> None:
 
 def test_alert_reaches_diagnostics_and_save_geometry_writes_a_file_the_node_starts_with(
         tmp_path: Path, ros_env: dict[str, str]) -> None:
+    from geometry_msgs.msg import PoseStamped
     from std_msgs.msg import Float64MultiArray
     from std_srvs.srv import Trigger
 
@@ -81,6 +84,7 @@ def test_alert_reaches_diagnostics_and_save_geometry_writes_a_file_the_node_star
     params.write_text(PARAMS)
     proc = _start(params, tmp_path / "node.log", ros_env)
     probe = Probe(ns=NS, js_topic=JS_TOPIC)
+    pub_ref = probe.node.create_publisher(PoseStamped, "/localisation/pose", 10)
     geometry: list[Any] = []
     probe.node.create_subscription(Float64MultiArray, f"{NS}/wheel_dr_node/geometry",
                                    lambda m: geometry.append(m), 1000)
@@ -91,6 +95,7 @@ def test_alert_reaches_diagnostics_and_save_geometry_writes_a_file_the_node_star
         assert proc.poll() is None, (tmp_path / "node.log").read_text()
         _wait(lambda: probe.node.count_publishers(f"{NS}/odom_flags") > 0, 10, "the node's flags publisher")
         probe.handshake([LEFT, RIGHT])
+        _wait(lambda: pub_ref.get_subscription_count() > 0, 10, "the node to subscribe to the reference topic")
         # the drive, 500 samples a second: each IMU reading just before its joint state
         names = [LEFT, RIGHT]
         start = time.monotonic()
@@ -104,6 +109,13 @@ def test_alert_reaches_diagnostics_and_save_geometry_writes_a_file_the_node_star
             probe.pub_imu.publish(imu)
             time.sleep(0.0005)
             probe.pub_js.publish(probe.js(stamp, names, sim.position_rad[k].tolist()))
+            if k % 5 == 4:      # the localisation at 10 Hz (here: the simulator's truth), a little after
+                ref = PoseStamped()
+                ref.header.frame_id = "map"
+                ref.header.stamp.sec, ref.header.stamp.nanosec = divmod(int(sim.stamp_ns[k - 1]), 1_000_000_000)
+                ref.pose.position.x, ref.pose.position.y = float(sim.true_x_m[k - 1]), float(sim.true_y_m[k - 1])
+                ref.pose.orientation.w = 1.0
+                pub_ref.publish(ref)
             delay = start + (k + 1) / 500.0 - time.monotonic()
             if delay > 0:
                 time.sleep(delay)
@@ -126,14 +138,20 @@ def test_alert_reaches_diagnostics_and_save_geometry_writes_a_file_the_node_star
         assert abs(ratio / truth - 1) < 0.01                       # within the alert size of the truth
         assert abs(ratio - batch.radius_ratio[-1]) < 5 * float(values["online.radius_ratio_se"])
 
+        # the reference makes the scale observable: true over configured mean radius
+        true_scale = 0.5 * (0.97 + 1.0)
+        assert values["online.reference_type"] == "geometry_msgs/PoseStamped"
+        assert int(values["online.scale_windows"]) >= 20
+        assert abs(float(values["online.scale"]) / true_scale - 1) < 0.005
+
         # ~/geometry: the documented layout
         assert geometry, "no ~/geometry message"
         last = geometry[-1]
         assert last.layout.dim[0].label == GEOMETRY_LABEL and last.layout.dim[0].size == len(GEOMETRY_FIELDS)
         g = dict(zip(GEOMETRY_FIELDS, last.data))
         assert g["alert"] == 1.0 and g["configured_radius_ratio"] == 1.0
-        assert math.isclose(0.5 * (g["suggested_left_radius_m"] + g["suggested_right_radius_m"]), RADIUS_M,
-                            rel_tol=1e-9)
+        assert math.isclose(0.5 * (g["suggested_left_radius_m"] + g["suggested_right_radius_m"]),
+                            RADIUS_M * g["scale"], rel_tol=1e-9)     # the mean radius scaled by the reference
 
         # ~/save_geometry writes <stem>_geometry.yaml beside the running file
         response = probe.call(Trigger, f"{NS}/wheel_dr_node/save_geometry", Trigger.Request())
@@ -143,6 +161,8 @@ def test_alert_reaches_diagnostics_and_save_geometry_writes_a_file_the_node_star
         new = load_settings(saved)
         assert new.wheels.right_radius / new.wheels.left_radius == pytest.approx(g["radius_ratio"], rel=2e-5)
         assert new.online_calibration.enabled and new.noise.k_left == 2e-5     # the rest as in the running file
+        assert abs(new.wheels.left_radius / (RADIUS_M * 0.97) - 1) < 0.01       # the true radii, scale included
+        assert abs(new.wheels.right_radius / RADIUS_M - 1) < 0.01
         assert saved.read_text().startswith("# description: Geometry suggested")
     finally:
         _stop(proc)

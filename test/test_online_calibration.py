@@ -186,3 +186,32 @@ def test_streaming_never_raises_on_a_bad_gyro_value():
     for i, g in enumerate((0.1, "x", float("inf"), None, 1e9, 0.0)):
         oc.step(1_000_000_000 + i * 50_000_000, False, 0.05, 0.01, 0.012, g, False)
     assert math.isfinite(oc.ratio)
+
+
+def test_a_distance_source_makes_the_scale_observable():
+    """Both tyres 2 % smaller than configured: the gyro cannot see it (ratio unchanged, and the track over
+    radius moves only with turning); a pose source (the simulator's truth with 1 cm noise, 10 Hz) gives the
+    scale, so all of left radius, right radius and track are suggested (scale = true / configured mean radius)."""
+    sc = _scenario(duration_s=240.0, true_left_radius_m=R0 * 0.98, true_right_radius_m=R0 * 0.98)
+    sim = simulate(sc, 7)
+    settings = _settings(sc, **{"online_calibration.reference_topic": "/localisation/pose"})
+    est = Estimator(settings)
+    rng = np.random.default_rng(7)
+    names = list(sim.joint_names)
+    for k in range(len(sim.stamp_ns)):
+        est.step(int(sim.stamp_ns[k]), names, sim.position_rad[k].tolist(), sim.velocity_radps[k].tolist(),
+                 float(sim.gyro_z_radps[k]))
+        if k % 10 == 0:
+            x, y = sim.true_x_m[k] + 0.01 * rng.standard_normal(), sim.true_y_m[k] + 0.01 * rng.standard_normal()
+            est.online.scale.add(x, y, 1e-4, est.x_m, est.y_m)
+    scale = est.online.scale
+    assert scale.ready and scale.windows > 50
+    assert abs(scale.scale - 0.98) < max(4 * scale.se, 1e-3)
+    left, right, track = est.online.suggested()
+    assert abs(left / (R0 * 0.98) - 1) < 0.005 and abs(right / (R0 * 0.98) - 1) < 0.005
+    assert abs(track / B0 - 1) < 0.01
+    assert scale.on and est.online.alert_any          # a 2 % scale change alerts once it is seen
+    # a relocalisation jump is a rejected window, not a change of scale
+    before = scale.scale
+    scale.add(est.x_m + 50.0, est.y_m, 1e-4, est.x_m + 1.5, est.y_m)
+    assert scale.rejected >= 1 and scale.scale == before

@@ -57,11 +57,16 @@ from .settings import Settings
 from .slip import MAX_GYRO_RADPS
 from .wheels import Travel
 
-__all__ = ["OnlineCalibrationResult", "OnlineCalibrator", "online_calibration", "suggested_geometry",
+__all__ = ["OnlineCalibrationResult", "OnlineCalibrator", "ScaleEstimator", "SCALE_WINDOW_M", "SCALE_MIN_WINDOWS",
+           "REFERENCE_SD_M", "online_calibration", "suggested_geometry",
            "EXCITATION_SE", "ALERT_SE", "STATUS_OK", "STATUS_ALERT", "STATUS_LOW_EXCITATION", "GEOMETRY_FIELDS",
            "GEOMETRY_LABEL"]
 
 CHUNK_MAX_S = 5.0       # intervals are merged for at most this long (standing still, creeping)
+SCALE_WINDOW_M = 1.0    # reference windows: the odometry has moved at least this far between their poses
+SCALE_MIN_WINDOWS = 5   # windows before the scale enters the suggested geometry
+SCALE_LIMITS = (0.8, 1.25)   # a window whose distance ratio is outside these is a relocalisation jump: skipped
+REFERENCE_SD_M = 0.02   # position standard deviation of a reference pose without covariance (PoseStamped)
 ALERT_SE = 4.0          # an alert needs a departure of more than this many standard errors
 EXCITATION_SE = 2.0     # a quantity is excited when this many standard errors are below alert_pct
 STATUS_OK, STATUS_ALERT, STATUS_LOW_EXCITATION = "ok", "alert", "too little excitation"
@@ -71,7 +76,8 @@ GEOMETRY_FIELDS: tuple[str, ...] = (
     "stamp_s", "radius_ratio", "radius_ratio_se", "track_over_radius", "track_over_radius_se",
     "gyro_bias_radps", "gyro_bias_se_radps", "alert", "alert_ratio", "alert_track", "excited_ratio",
     "excited_track", "configured_radius_ratio", "configured_track_over_radius", "suggested_left_radius_m",
-    "suggested_right_radius_m", "suggested_track_width_m", "intervals_used", "intervals_skipped")
+    "suggested_right_radius_m", "suggested_track_width_m", "intervals_used", "intervals_skipped", "scale",
+    "scale_se", "scale_windows", "alert_scale")
 GEOMETRY_LABEL = "wheel_dr_geometry:" + ",".join(GEOMETRY_FIELDS)
 
 
@@ -282,6 +288,73 @@ def _status(on: bool, excited: bool) -> str:
     return STATUS_ALERT if on else (STATUS_OK if excited else STATUS_LOW_EXCITATION)
 
 
+class ScaleEstimator:
+    """The scale (true over configured mean radius) from a distance source: a pose of the robot's own
+    localisation. Over windows in which the odometry has moved ``SCALE_WINDOW_M`` or more, the
+    reference's displacement d_ref against the odometry's d_odom (both planar magnitudes, so the frames
+    need not agree): d_ref = s d_odom + noise, weighted least squares with the same forgetting by
+    distance and sandwich standard error as the gyro estimate. Noise: the two reference positions'
+    variance plus the per-wheel model's distance variance (k_left + k_right) / 4 per metre."""
+
+    def __init__(self, settings: Settings) -> None:
+        o, n = settings.online_calibration, settings.noise
+        self.inv_horizon = 1.0 / o.horizon_m
+        self.k_dist = 0.25 * (n.k_left + n.k_right)
+        self.alert = o.alert_pct * 0.01
+        self.clear = o.clear_fraction * self.alert
+        self.reset()
+
+    def reset(self) -> None:
+        """Forget the windows (the odometry pose was reset or the geometry changed)."""
+        self._start: tuple[float, float, float, float, float] | None = None
+        self._a = self._b = self._c = 0.0
+        self.scale, self.se, self.windows, self.rejected = 1.0, math.inf, 0, 0
+        self.on = False
+
+    def restart_window(self) -> None:
+        """The odometry pose jumped (reset, re-anchor): the open window is dropped, the estimate kept."""
+        self._start = None
+
+    def add(self, ref_x: float, ref_y: float, ref_var: float, odom_x: float, odom_y: float) -> bool:
+        """One reference position (m) with its variance (m^2, per axis) and the odometry position at its
+        stamp; True when it closed a window that entered the estimate."""
+        if not all(math.isfinite(v) for v in (ref_x, ref_y, ref_var, odom_x, odom_y)):
+            return False
+        var_ref = ref_var if ref_var > 0.0 else REFERENCE_SD_M * REFERENCE_SD_M
+        st = self._start
+        if st is None:
+            self._start = (ref_x, ref_y, odom_x, odom_y, var_ref)
+            return False
+        d_odom = math.hypot(odom_x - st[2], odom_y - st[3])
+        if d_odom < SCALE_WINDOW_M:
+            return False
+        d_ref = math.hypot(ref_x - st[0], ref_y - st[1])
+        self._start = (ref_x, ref_y, odom_x, odom_y, var_ref)
+        ratio = d_ref / d_odom
+        if not SCALE_LIMITS[0] < ratio < SCALE_LIMITS[1]:
+            self.rejected += 1
+            return False
+        w = 1.0 / (var_ref + st[4] + self.k_dist * d_odom)
+        lam = math.exp(-d_odom * self.inv_horizon)
+        self._a = lam * self._a + w * d_odom * d_odom
+        self._b = lam * lam * self._b + w * d_odom * d_odom
+        self._c = lam * self._c + w * d_odom * d_ref
+        self.scale = self._c / self._a
+        self.se = math.sqrt(self._b) / self._a
+        self.windows += 1
+        dev = abs(self.scale - 1.0)
+        if self.on:
+            self.on = not dev < self.clear
+        elif self.windows >= SCALE_MIN_WINDOWS and EXCITATION_SE * self.se < self.alert and dev > self.alert \
+                and dev > ALERT_SE * self.se:
+            self.on = True
+        return True
+
+    @property
+    def ready(self) -> bool:
+        return self.windows >= SCALE_MIN_WINDOWS
+
+
 class OnlineCalibrator:
     """Streaming form (one accepted sample per ``step``; no numpy per step). Attributes after each
     interval: ``ratio``, ``ratio_se``, ``track`` (track over mean radius), ``track_se``, ``bias``,
@@ -290,6 +363,8 @@ class OnlineCalibrator:
     def __init__(self, settings: Settings) -> None:
         self._k = _Constants(settings)
         self.filter = _Filter(self._k)
+        # the scale from a distance source (the node's online_calibration.reference_topic), else None
+        self.scale = ScaleEstimator(settings) if settings.online_calibration.reference_topic else None
         self._tot = [0.0] * 9
         self._last = [0.0] * 9
         self._next_ns: int | None = None
@@ -298,8 +373,14 @@ class OnlineCalibrator:
 
     def update_settings(self, settings: Settings) -> None:
         """New settings: the configured geometry (reference and wheel angles) changes, the data stay."""
+        old = self._k
         self._k = _Constants(settings)
         self.filter.set_constants(self._k)
+        if self.scale is not None and (old.rl, old.rr) != (self._k.rl, self._k.rr):
+            if old.rl + old.rr != self._k.rl + self._k.rr:
+                self.scale.reset()      # the configured mean radius moved: the scale starts again
+            else:
+                self.scale.restart_window()
 
     def step(self, stamp_ns: int, restart: bool, dt_s: float, ds_left_m: float, ds_right_m: float,
              gyro_z_radps: float | None, flagged: bool) -> bool:
@@ -357,19 +438,28 @@ class OnlineCalibrator:
         f = self.filter
         return _status(f.on_track, f.excited_track)
 
+    @property
+    def alert_any(self) -> bool:
+        """The gyro's alert or, with a distance source, the scale's."""
+        return self.filter.alert or (self.scale is not None and self.scale.on)
+
     def suggested(self) -> tuple[float, float, float]:
-        """Suggested (left radius, right radius, track) in metres (configured mean radius kept)."""
+        """Suggested (left radius, right radius, track) in metres: the configured mean radius kept, or
+        scaled by the distance source's scale once it has ``SCALE_MIN_WINDOWS`` windows."""
         k = self._k
-        return suggested_geometry(self.filter.ratio, self.filter.track, k.rl, k.rr)
+        f = 1.0 if self.scale is None or not self.scale.ready else self.scale.scale
+        return suggested_geometry(self.filter.ratio, self.filter.track, k.rl * f, k.rr * f)
 
     def values(self) -> list[float]:
         """The GEOMETRY_FIELDS values of the last interval (the node's ~/geometry message)."""
         f, k = self.filter, self._k
         left, right, track = self.suggested()
         stamp = 0.0 if self.stamp_ns is None else self.stamp_ns * 1e-9
-        return [stamp, f.ratio, f.ratio_se, f.track, f.track_se, f.bias, f.bias_se, float(f.alert),
+        return [stamp, f.ratio, f.ratio_se, f.track, f.track_se, f.bias, f.bias_se, float(self.alert_any),
                 float(f.on_ratio), float(f.on_track), float(f.excited_ratio), float(f.excited_track),
-                k.ratio0, k.track0, left, right, track, float(f.used), float(f.skipped)]
+                k.ratio0, k.track0, left, right, track, float(f.used), float(f.skipped)] + (
+                    [math.nan, math.nan, 0.0, 0.0] if self.scale is None else
+                    [self.scale.scale, self.scale.se, float(self.scale.windows), float(self.scale.on)])
 
 
 _FILTER_OUTPUTS = frozenset({"ratio", "ratio_se", "track", "track_se", "bias", "bias_se", "alert", "on_ratio",

@@ -195,6 +195,13 @@ class OdometryNode:
         self.params_files: list[str] = []   # the --params-file paths the node was started with (set by main)
         self._Float64MultiArray = Float64MultiArray
         self._geometry_applied = 0
+        # online_calibration.reference_topic: a localisation pose gives the scale (subscribed once it appears)
+        self.sub_reference = None
+        self._reference_type = "none"
+        self.reference_received = 0
+        self.reference_refused = 0
+        self._odom_history: list[tuple[int, float, float]] = []   # (stamp_ns, x, y) of recent accepted samples
+        self._reference_timer = node.create_timer(1.0, self._find_reference)
         self.sub_reanchor = node.create_subscription(PoseWithCovarianceStamped, "~/reanchor",
                                                      self._on_reanchor, 10)
         self._diag_timer = node.create_timer(settings.output.diagnostics_period_s, self._on_diagnostics)
@@ -334,6 +341,11 @@ class OdometryNode:
             status = est.step(stamp_ns, names, positions, velocities, gyro, accel, up, cmd)
             online = est.online
             geometry = online.values() if online is not None and online.stamp_ns == stamp_ns else None
+            if status < 10 and online is not None and online.scale is not None:
+                hist = self._odom_history
+                hist.append((stamp_ns, est.x_m, est.y_m))
+                if len(hist) > ODOM_HISTORY:
+                    del hist[:len(hist) - ODOM_HISTORY // 2]
             due = status < 10
             period_ns = self._out_period_ns
             if due and period_ns:
@@ -435,6 +447,7 @@ class OdometryNode:
         try:
             with self.lock:
                 self.estimator.reset()
+                self._pose_jumped()
             response.success = True
             response.message = "pose and covariance set to zero"
             self.log.info("reset: pose and covariance set to zero.")
@@ -479,6 +492,11 @@ class OdometryNode:
             left, right, track = online.suggested()
             status = f"radius ratio {online.status_ratio}, track over radius {online.status_track}"
             ratio, ratio_se, tor, tor_se = online.ratio, online.ratio_se, online.track, online.track_se
+            sc = online.scale
+            scale_line = ("The gyro cannot observe the mean radius (the scale): it is kept as configured; check the "
+                          "distance against a known one." if sc is None or not sc.ready else
+                          f"Scale (true over configured mean radius) {sc.scale:.5f} +- {sc.se:.5f} from "
+                          f"{sc.windows} windows of {self.settings.online_calibration.reference_topic}.")
         running = self.params_files[-1] if self.params_files else None
         if running is not None:
             src = Path(running)
@@ -496,8 +514,7 @@ class OdometryNode:
             f"Online self-calibration on {when}, starting from {label} (every other value is as there).",
             f"Radius ratio {ratio:.6f} +- {ratio_se:.6f}, track over mean radius {tor:.5f} +- {tor_se:.5f} "
             f"({status}).",
-            "The gyro cannot observe the mean radius (the scale): it is kept as configured; check the distance "
-            "against a known one.",
+            scale_line,
             SAFETY_TEXT])
         atomic_write_text(target, update_params_text(text, values, header))
         return True, (f"wrote {target} (left radius {values['wheels.left_radius']} m, right radius "
@@ -509,7 +526,7 @@ class OdometryNode:
 
         with self.lock:
             online = self.estimator.online
-            if online is None or not online.alert or not self.settings.online_calibration.apply:
+            if online is None or not online.alert_any or not self.settings.online_calibration.apply:
                 return
             left, right, track = online.suggested()
         result = self.node.set_parameters([Parameter("wheels.left_radius", value=float(left)),
@@ -520,11 +537,62 @@ class OdometryNode:
             self.log.warning(f"online calibration applied: left radius {left:.6f} m, right radius {right:.6f} m, "
                              f"track {track:.6f} m (online_calibration.apply is true).")
 
+    def _pose_jumped(self) -> None:
+        """The odometry pose was set (reset, re-anchor): the scale's open window is dropped (lock held)."""
+        self._odom_history = []
+        online = self.estimator.online
+        if online is not None and online.scale is not None:
+            online.scale.restart_window()
+
+    def _find_reference(self) -> None:
+        """Subscribe online_calibration.reference_topic with the type its publishers use, once."""
+        try:
+            topic = self.settings.online_calibration.reference_topic
+            if self.sub_reference is not None or not topic or not self.settings.online_calibration.enabled:
+                return
+            from geometry_msgs.msg import PoseStamped, PoseWithCovarianceStamped
+            from nav_msgs.msg import Odometry
+
+            name = self.node.resolve_topic_name(topic)
+            types = dict(self.node.get_topic_names_and_types()).get(name, [])
+            for type_name, cls in (("geometry_msgs/msg/PoseWithCovarianceStamped", PoseWithCovarianceStamped),
+                                   ("nav_msgs/msg/Odometry", Odometry),
+                                   ("geometry_msgs/msg/PoseStamped", PoseStamped)):
+                if type_name in types:
+                    self.sub_reference = self.node.create_subscription(cls, topic, self.on_reference, 10)
+                    self._reference_type = type_name.replace("/msg/", "/")
+                    self.log.info(f"online calibration: scale from {name} ({self._reference_type}).")
+                    return
+        except Exception as exc:
+            self._handler_error("reference", exc)
+
+    def on_reference(self, msg: Any) -> None:
+        """A pose of the robot's own localisation: its displacement against the odometry's gives the scale."""
+        try:
+            self.reference_received += 1
+            pose = msg.pose.pose if hasattr(msg.pose, "pose") else msg.pose
+            cov = getattr(msg.pose, "covariance", None)
+            var = 0.5 * (float(cov[0]) + float(cov[7])) if cov is not None else 0.0
+            stamp = msg.header.stamp.sec * 1_000_000_000 + msg.header.stamp.nanosec
+            x, y = float(pose.position.x), float(pose.position.y)
+            with self.lock:
+                online = self.estimator.online
+                if online is None or online.scale is None:
+                    return
+                at = _interpolate(self._odom_history, stamp)
+                if at is None or not (math.isfinite(x) and math.isfinite(y)):
+                    self.reference_refused += 1
+                    return
+                online.scale.add(x, y, var, at[0], at[1])
+        except Exception as exc:  # never die on a bad message
+            self._handler_error("reference", exc)
+
     def _on_reanchor(self, msg: Any) -> None:
         try:
             pose, cov = pose_from_msg(msg, self.settings.frames.odom)
             with self.lock:
                 self.estimator.reset(pose, cov)
+                self._pose_jumped()
             self.log.info(f"re-anchored at x={pose[0]:.3f} m, y={pose[1]:.3f} m, yaw={pose[2]:.4f} rad.")
         except InputError as exc:
             self.reanchor_refused += 1
@@ -637,13 +705,23 @@ class OdometryNode:
                            "online.intervals_used": int(g["intervals_used"]),
                            "online.intervals_skipped": int(g["intervals_skipped"]),
                            "online.geometry_applied": self._geometry_applied,
-                           "online.scale": "not observable from the gyro (mean radius kept)"})
+                           "online.reference_topic": self.settings.online_calibration.reference_topic or "none",
+                           "online.reference_type": self._reference_type,
+                           "online.reference_received": self.reference_received,
+                           "online.reference_refused": self.reference_refused})
+            if math.isnan(g["scale"]):
+                values["online.scale"] = "not observable from the gyro (mean radius kept)"
+            else:
+                values.update({"online.scale": g["scale"], "online.scale_se": g["scale_se"],
+                               "online.scale_windows": int(g["scale_windows"])})
             if g["alert"]:
                 what = []
                 if g["alert_ratio"]:
                     what.append(f"radius ratio {g['radius_ratio']:.5f} ({100 * dev_ratio:+.2f} %)")
                 if g["alert_track"]:
                     what.append(f"track over radius {g['track_over_radius']:.4f} ({100 * dev_track:+.2f} %)")
+                if g["alert_scale"]:
+                    what.append(f"scale {g['scale']:.5f} ({100 * (g['scale'] - 1):+.2f} %, from {self._reference_type})")
                 problems.append("geometry alert: " + " and ".join(what) + " departs from the configured geometry; "
                                 f"suggested left radius {g['suggested_left_radius_m']:.6f} m, right radius "
                                 f"{g['suggested_right_radius_m']:.6f} m, track {g['suggested_track_width_m']:.6f} m "
@@ -682,6 +760,29 @@ class OdometryNode:
             self.handler_errors += 1
             self._throttled("diag_error", "error", f"diagnostics could not be published "
                                                    f"({exc.__class__.__name__}: {exc}).")
+
+
+ODOM_HISTORY = 4000   # odometry positions kept for the reference poses' stamps (40 s at 100 Hz)
+REFERENCE_MATCH_NS = 100_000_000   # a reference stamp this far outside the kept odometry is not matched
+
+
+def _interpolate(history: list[tuple[int, float, float]], stamp_ns: int) -> tuple[float, float] | None:
+    """The odometry position at ``stamp_ns``, linear between the kept samples (None when out of reach)."""
+    import bisect
+
+    if not history:
+        return None
+    i = bisect.bisect_left(history, (stamp_ns, -math.inf, -math.inf))
+    if i == 0:
+        s, x, y = history[0]
+        return (x, y) if s - stamp_ns <= REFERENCE_MATCH_NS else None
+    if i == len(history):
+        s, x, y = history[-1]
+        return (x, y) if stamp_ns - s <= REFERENCE_MATCH_NS else None
+    s0, x0, y0 = history[i - 1]
+    s1, x1, y1 = history[i]
+    f = (stamp_ns - s0) / (s1 - s0) if s1 > s0 else 0.0
+    return x0 + f * (x1 - x0), y0 + f * (y1 - y0)
 
 
 def _output_period_ns(settings: Settings) -> int:
