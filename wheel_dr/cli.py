@@ -190,8 +190,12 @@ def _cmd_replay(args: argparse.Namespace) -> int:
          f"slip flagged on {100.0 * np.mean(traj.slip.slip):.1f} % of samples")
     _say(f"wrote {out / 'trajectory.csv'} and {out / 'trajectory.tum'}")
     if res.settings.online_calibration.enabled:
+        from .core.online_calibration import unsupported_reason
         online = traj.online
-        if online is None:
+        why = unsupported_reason(res.settings)
+        if why is not None:
+            _say(f"online calibration: {why}; no geometry_online.csv written")
+        elif online is None:
             _say("online calibration: enabled, but the bag has no IMU readings (the gyro observes the geometry); "
                  "no geometry_online.csv written")
         else:

@@ -16,7 +16,7 @@ from typing import Sequence
 import numpy as np
 
 from .motion import body_increment, integrate, pose_increment_scalar, wrap_angle, wrap_angle_scalar
-from .online_calibration import OnlineCalibrationResult, OnlineCalibrator, online_calibration
+from .online_calibration import OnlineCalibrationResult, OnlineCalibrator, online_calibration, supported
 from .noise import (UNOBSERVED_VARIANCE, increment_noise, increment_noise_floats, propagate_covariance,
                     propagate_step_floats)
 from .settings import Settings
@@ -122,7 +122,7 @@ def run_travel(travel: Travel, settings: Settings, start_pose: Sequence[float] =
     w = np.where(moving, dth / safe_dt, 0.0)
     twist_cov = np.where(moving[:, None, None], c_in / (safe_dt * safe_dt)[:, None, None], _UNOBSERVED_TWIST)
     online = None
-    if settings.online_calibration.enabled and gyro_z_radps is not None:
+    if gyro_z_radps is not None and supported(settings):
         online = online_calibration(travel, gyro_z_radps, slip.slip, settings)
     return Trajectory(travel.index, travel.stamp_ns, x, y, wrap_angle(theta), theta, cov, v, w, twist_cov,
                       travel.status, travel, slip, count_statuses(travel.status), step_noise=q, online=online)
@@ -143,7 +143,7 @@ class Estimator:
         self.counters: dict[str, int] = {s.name.lower(): 0 for s in SampleStatus}
         self.last_slip = SlipStep()  # slip outcome of the last accepted sample (none yet: all clear)
         # online self-calibration (None unless online_calibration.enabled); ``online.step`` per accepted sample
-        self.online = OnlineCalibrator(settings) if settings.online_calibration.enabled else None
+        self.online = OnlineCalibrator(settings) if supported(settings) else None
         self.reset(start_pose, start_cov)
 
     # -- state ---------------------------------------------------------------------------------
@@ -177,7 +177,7 @@ class Estimator:
         self.settings = settings
         self._tracker = TravelTracker(settings)
         self._slip = SlipMonitor(settings)
-        if not settings.online_calibration.enabled:
+        if not supported(settings):
             self.online = None
         elif self.online is None or settings.online_calibration != old:
             self.online = OnlineCalibrator(settings)

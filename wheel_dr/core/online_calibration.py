@@ -57,7 +57,7 @@ from .settings import Settings
 from .slip import MAX_GYRO_RADPS
 from .wheels import Travel
 
-__all__ = ["OnlineCalibrationResult", "OnlineCalibrator", "ScaleEstimator", "SCALE_WINDOW_M", "SCALE_MIN_WINDOWS",
+__all__ = ["OnlineCalibrationResult", "OnlineCalibrator", "ScaleEstimator", "supported", "unsupported_reason", "SCALE_WINDOW_M", "SCALE_MIN_WINDOWS",
            "REFERENCE_SD_M", "online_calibration", "suggested_geometry",
            "EXCITATION_SE", "ALERT_SE", "STATUS_OK", "STATUS_ALERT", "STATUS_LOW_EXCITATION", "GEOMETRY_FIELDS",
            "GEOMETRY_LABEL"]
@@ -79,6 +79,22 @@ GEOMETRY_FIELDS: tuple[str, ...] = (
     "suggested_right_radius_m", "suggested_track_width_m", "intervals_used", "intervals_skipped", "scale",
     "scale_se", "scale_windows", "alert_scale")
 GEOMETRY_LABEL = "wheel_dr_geometry:" + ",".join(GEOMETRY_FIELDS)
+
+
+def unsupported_reason(settings: Settings) -> str | None:
+    """Why online calibration cannot run with these settings (None: it can). It covers the differential
+    and skid-steer model; a wheel table (``drive.kind`` other than 'differential') is not covered yet."""
+    drive = getattr(settings, "drive", None)
+    kind = getattr(drive, "kind", "differential") if drive is not None else "differential"
+    if kind != "differential":
+        return (f"online calibration covers differential drive only; drive.kind is '{kind}', so it is not run "
+                "(set online_calibration.enabled to false to silence this)")
+    return None
+
+
+def supported(settings: Settings) -> bool:
+    """True when ``online_calibration.enabled`` and the drive kind is covered (``unsupported_reason``)."""
+    return settings.online_calibration.enabled and unsupported_reason(settings) is None
 
 
 def suggested_geometry(radius_ratio: float, track_over_radius: float, left_radius_m: float,

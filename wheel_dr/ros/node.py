@@ -686,6 +686,9 @@ class OdometryNode:
             **{f"param.{k}": v for k, v in settings.to_flat().items()},
         }
         problems = []
+        if geometry is None and settings.online_calibration.enabled:
+            from ..core.online_calibration import unsupported_reason
+            values["online.status"] = unsupported_reason(settings) or "waiting"
         if geometry is not None:
             from ..core.online_calibration import GEOMETRY_FIELDS
             gv, st_ratio, st_track, dev_ratio, dev_track = geometry
