@@ -16,11 +16,10 @@ import time
 from pathlib import Path
 from typing import Any
 
-import numpy as np
 import pytest
 
 from test_node import NODE_EXE, Probe, _wait
-from wheel_dr.core import Settings, run
+from wheel_dr.core import run
 from wheel_dr.core.online_calibration import GEOMETRY_FIELDS, GEOMETRY_LABEL
 from wheel_dr.demo.scenarios import varied_route
 from wheel_dr.params import load_settings
@@ -70,16 +69,50 @@ def _stop(proc: subprocess.Popen) -> None:
         proc.wait()
 
 
+def _drive(probe: Probe, sim, pub_ref=None) -> None:
+    """The simulated drive, 500 samples a second: each IMU reading just before its joint state; with
+    ``pub_ref`` a PoseStamped "localisation" at 10 Hz (the simulator's truth), a little after."""
+    from geometry_msgs.msg import PoseStamped
+
+    names = [LEFT, RIGHT]
+    start = time.monotonic()
+    for k in range(len(sim.stamp_ns)):
+        stamp = int(sim.stamp_ns[k])
+        imu = probe.Imu()
+        imu.header.stamp.sec, imu.header.stamp.nanosec = divmod(stamp, 1_000_000_000)
+        imu.angular_velocity.z = float(sim.gyro_z_radps[k])
+        imu.linear_acceleration_covariance[0] = -1.0       # no accelerometer
+        imu.orientation_covariance[0] = -1.0
+        probe.pub_imu.publish(imu)
+        time.sleep(0.0005)
+        probe.pub_js.publish(probe.js(stamp, names, sim.position_rad[k].tolist()))
+        if pub_ref is not None and k % 5 == 4:
+            ref = PoseStamped()
+            ref.header.frame_id = "map"
+            ref.header.stamp.sec, ref.header.stamp.nanosec = divmod(int(sim.stamp_ns[k - 1]), 1_000_000_000)
+            ref.pose.position.x, ref.pose.position.y = float(sim.true_x_m[k - 1]), float(sim.true_y_m[k - 1])
+            ref.pose.orientation.w = 1.0
+            pub_ref.publish(ref)
+        delay = start + (k + 1) / 500.0 - time.monotonic()
+        if delay > 0:
+            time.sleep(delay)
+    probe.wait_flag(int(sim.stamp_ns[-1]))
+
+
+def _soft_tyre_drive(seconds: float = 60.0):
+    sc = Scenario(name="soft_tyre", segments=varied_route(3, seconds), rate_hz=50.0,
+                  true_left_radius_m=RADIUS_M * 0.97, true_right_radius_m=RADIUS_M, true_track_m=TRACK_M,
+                  k_left_m=2e-5, k_right_m=2e-5, gyro_bias_radps=0.002, gyro_noise_sd_radps=0.005)
+    return simulate(sc, 0)
+
+
 def test_alert_reaches_diagnostics_and_save_geometry_writes_a_file_the_node_starts_with(
         tmp_path: Path, ros_env: dict[str, str]) -> None:
     from geometry_msgs.msg import PoseStamped
     from std_msgs.msg import Float64MultiArray
     from std_srvs.srv import Trigger
 
-    sc = Scenario(name="soft_tyre", segments=varied_route(3, 60.0), rate_hz=50.0, true_left_radius_m=RADIUS_M * 0.97,
-                  true_right_radius_m=RADIUS_M, true_track_m=TRACK_M, k_left_m=2e-5, k_right_m=2e-5,
-                  gyro_bias_radps=0.002, gyro_noise_sd_radps=0.005)
-    sim = simulate(sc, 0)
+    sim = _soft_tyre_drive()
     params = tmp_path / "quokka.yaml"
     params.write_text(PARAMS)
     proc = _start(params, tmp_path / "node.log", ros_env)
@@ -96,30 +129,7 @@ def test_alert_reaches_diagnostics_and_save_geometry_writes_a_file_the_node_star
         _wait(lambda: probe.node.count_publishers(f"{NS}/odom_flags") > 0, 10, "the node's flags publisher")
         probe.handshake([LEFT, RIGHT])
         _wait(lambda: pub_ref.get_subscription_count() > 0, 10, "the node to subscribe to the reference topic")
-        # the drive, 500 samples a second: each IMU reading just before its joint state
-        names = [LEFT, RIGHT]
-        start = time.monotonic()
-        for k in range(len(sim.stamp_ns)):
-            stamp = int(sim.stamp_ns[k])
-            imu = probe.Imu()
-            imu.header.stamp.sec, imu.header.stamp.nanosec = divmod(stamp, 1_000_000_000)
-            imu.angular_velocity.z = float(sim.gyro_z_radps[k])
-            imu.linear_acceleration_covariance[0] = -1.0       # no accelerometer
-            imu.orientation_covariance[0] = -1.0
-            probe.pub_imu.publish(imu)
-            time.sleep(0.0005)
-            probe.pub_js.publish(probe.js(stamp, names, sim.position_rad[k].tolist()))
-            if k % 5 == 4:      # the localisation at 10 Hz (here: the simulator's truth), a little after
-                ref = PoseStamped()
-                ref.header.frame_id = "map"
-                ref.header.stamp.sec, ref.header.stamp.nanosec = divmod(int(sim.stamp_ns[k - 1]), 1_000_000_000)
-                ref.pose.position.x, ref.pose.position.y = float(sim.true_x_m[k - 1]), float(sim.true_y_m[k - 1])
-                ref.pose.orientation.w = 1.0
-                pub_ref.publish(ref)
-            delay = start + (k + 1) / 500.0 - time.monotonic()
-            if delay > 0:
-                time.sleep(delay)
-        probe.wait_flag(int(sim.stamp_ns[-1]))
+        _drive(probe, sim, pub_ref)
 
         # the core's batch run over the same drive alerts too (what the node should see)
         settings = load_settings(params)
@@ -185,4 +195,36 @@ def test_alert_reaches_diagnostics_and_save_geometry_writes_a_file_the_node_star
     finally:
         if second is not None:
             _stop(second)
+        probe.close()
+
+
+def test_apply_takes_the_suggested_geometry_as_the_running_one(tmp_path: Path, ros_env: dict[str, str]) -> None:
+    """online_calibration.apply: true: once the alert has been reported (WARN), the node sets the suggested
+    radii and track as its running parameters (the mean radius kept: no distance source here)."""
+    sim = _soft_tyre_drive(50.0)
+    params = tmp_path / "apply.yaml"
+    params.write_text(PARAMS.replace("      reference_topic: /localisation/pose\n", "      apply: true\n"))
+    proc = _start(params, tmp_path / "node.log", ros_env)
+    probe = Probe(ns=NS, js_topic=JS_TOPIC)
+    try:
+        _wait(lambda: probe.pub_js.get_subscription_count() > 0 and probe.pub_imu.get_subscription_count() > 0
+              or proc.poll() is not None, 30, "the node to subscribe")
+        assert proc.poll() is None, (tmp_path / "node.log").read_text()
+        _wait(lambda: probe.node.count_publishers(f"{NS}/odom_flags") > 0, 10, "the node's flags publisher")
+        probe.handshake([LEFT, RIGHT])
+        _drive(probe, sim)
+
+        def applied():
+            with probe.lock:
+                return next((d for d in reversed(probe.diag) if int(d[3].get("online.geometry_applied", 0)) >= 1),
+                            None)
+        _, _, _, values = _wait(applied, 10, "diagnostics after the geometry was applied")
+        with probe.lock:
+            assert any(d[1] == 1 and "geometry alert" in d[2] for d in probe.diag)    # reported first
+        left, right = float(values["param.wheels.left_radius"]), float(values["param.wheels.right_radius"])
+        assert right / left == pytest.approx(1.0 / 0.97, rel=0.01)                # the soft tyre, seen
+        assert 0.5 * (left + right) == pytest.approx(RADIUS_M, rel=1e-6)            # the scale kept
+        assert float(values["param.wheels.track_width"]) != TRACK_M
+    finally:
+        _stop(proc)
         probe.close()

@@ -19,7 +19,7 @@ from wheel_dr.core.online_calibration import OnlineCalibrator, online_calibratio
 from wheel_dr.core.slip import detect_slip
 from wheel_dr.core.wheels import wheel_travel
 from wheel_dr.demo.scenarios import varied_route
-from wheel_dr.sim import RadiusChange, Scenario, SlipEvent, simulate, straight, turn_in_place, pause
+from wheel_dr.sim import RadiusChange, Scenario, SlipEvent, pause, simulate, straight
 
 R0, B0 = 0.0825, 0.412          # demo cart nominal radius and track (invented, wheel_dr.demo.quokka)
 K_M = 2e-5                      # wheel travel variance per metre, simulated and configured alike

@@ -746,11 +746,6 @@ class OdometryNode:
         from diagnostic_msgs.msg import DiagnosticStatus
 
         try:
-            self._apply_geometry()
-        except Exception as exc:
-            self._throttled("apply_geometry", "error", f"the suggested geometry could not be applied "
-                                                       f"({exc.__class__.__name__}: {exc}).")
-        try:
             level, message, values = self.diagnostics_status()
             status = DiagnosticStatus(level=bytes([level]), name=f"{self.node.get_fully_qualified_name()}: odometry",
                                       message=message, hardware_id=self.settings.frames.base,
@@ -763,6 +758,11 @@ class OdometryNode:
             self.handler_errors += 1
             self._throttled("diag_error", "error", f"diagnostics could not be published "
                                                    f"({exc.__class__.__name__}: {exc}).")
+        try:   # after the status that reported the alert, so it is seen before the geometry changes
+            self._apply_geometry()
+        except Exception as exc:
+            self._throttled("apply_geometry", "error", f"the suggested geometry could not be applied "
+                                                       f"({exc.__class__.__name__}: {exc}).")
 
 
 ODOM_HISTORY = 4000   # odometry positions kept for the reference poses' stamps (40 s at 100 Hz)
