@@ -553,7 +553,13 @@ class OdometryNode:
             from geometry_msgs.msg import PoseStamped, PoseWithCovarianceStamped
             from nav_msgs.msg import Odometry
 
-            name = self.node.resolve_topic_name(topic)
+            try:
+                name = self.node.resolve_topic_name(topic)
+            except Exception:   # not a valid topic name: say so (throttled), do not count it as a handler error
+                self._throttled("reference_name", "warning",
+                                f"online_calibration.reference_topic '{topic}' is not a valid topic name; give a "
+                                "name such as /localisation/pose, or '' for none.")
+                return
             types = dict(self.node.get_topic_names_and_types()).get(name, [])
             for type_name, cls in (("geometry_msgs/msg/PoseWithCovarianceStamped", PoseWithCovarianceStamped),
                                    ("nav_msgs/msg/Odometry", Odometry),
@@ -562,6 +568,7 @@ class OdometryNode:
                     self.sub_reference = self.node.create_subscription(cls, topic, self.on_reference, 10)
                     self._reference_type = type_name.replace("/msg/", "/")
                     self.log.info(f"online calibration: scale from {name} ({self._reference_type}).")
+                    self._reference_timer.cancel()
                     return
         except Exception as exc:
             self._handler_error("reference", exc)
