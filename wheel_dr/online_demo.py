@@ -29,7 +29,7 @@ def online_demo_section(config_dir: Path, seed: int = 2027) -> tuple[str, str, l
     right = sc.true_right_radius_m
     truth_ratio = right / left
     truth_track = sc.true_track_m / (0.5 * (left + right))
-    notes = [f"The Quokka drives its night round {len(sim.t_s) and round(sim.t_s[-1] / 60.0, 1)} min with "
+    notes = [f"The Quokka drives its night round four times ({sim.t_s[-1] / 60.0:.1f} min) with "
              f"the corrected geometry; from the end of the first lap its left tyre softens by "
              f"{-100 * SOFTENING_FRACTION:.1f} % over two minutes (invented demo). The node, with "
              "online_calibration.enabled, sees the change through the gyro and alerts; the mean radius (scale) "

@@ -89,8 +89,8 @@ def online_section(res: OnlineCalibrationResult, notes: Sequence[str] = (), trut
     spans = alert_intervals(res)
     alert_text = ("; ".join(f"{a / 60:.1f} to {b / 60:.1f} min" for a, b in spans) if spans else "never")
     parts = [f"<p>{html.escape(n)}</p>" for n in notes]
-    parts.append(f"<p>{html.escape(suggested)} Alert held: {html.escape(alert_text)}. Intervals used "
-                 f"{res.intervals_used}, skipped {res.intervals_skipped} (slip flags or the residual gate).</p>")
+    parts.append(f"<p>{html.escape(suggested)} Alert held: {html.escape(alert_text)}. Merged intervals "
+                 f"used {res.intervals_used}, skipped {res.intervals_skipped} (slip flags or the residual gate).</p>")
     parts.append(table)
     caption = (f"Online estimates against time with bands of {BAND_SE:g} standard errors; dashed: the configured "
                "geometry; shaded: the alert held.")
