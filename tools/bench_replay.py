@@ -1,6 +1,6 @@
 """Benchmark: replay and an 8-settings compare of a 1-hour, 100 Hz bag against a naive per-message loop.
 
-Run: ``.venv/bin/python tools/bench_replay.py [--minutes 60] [--keep DIR]``. Prints the figures.
+Run: ``.venv/bin/python tools/bench_replay.py [--minutes 60] [--keep DIR] [--online]``. Prints the figures.
 
 * bag: a simulated varied drive (wheel_dr.sim), 100 Hz joint states and IMU, truth at 10 Hz, mcap;
 * naive: deserialise every joint-state message with rosbags, integrate (exact arc step) and propagate
@@ -10,6 +10,9 @@ Run: ``.venv/bin/python tools/bench_replay.py [--minutes 60] [--keep DIR]``. Pri
 
 Aims: replay at least 5x faster than the naive loop (aim 20x); compare with 8 settings
 under 2x one replay.
+
+``--online`` times only ``wheel-dr replay`` of the bag with ``online_calibration.enabled`` false and true
+(best of 3 each; with it on, DIR/geometry_online.csv is written too). Aim: on within 1.5x of off.
 """
 from __future__ import annotations
 
@@ -113,6 +116,7 @@ def main_bench() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--minutes", type=float, default=60.0, help="length of the simulated drive (default 60)")
     ap.add_argument("--keep", help="keep the bag and outputs in this directory")
+    ap.add_argument("--online", action="store_true", help="time only replay with online calibration off and on")
     args = ap.parse_args()
     work = Path(args.keep) if args.keep else Path(tempfile.mkdtemp(prefix="wheel_dr_bench_"))
     work.mkdir(parents=True, exist_ok=True)
@@ -134,6 +138,8 @@ def main_bench() -> int:
                                        "wheels.right_joints": ["quokka_right_wheel_joint"],
                                        "wheels.left_radius": 0.0829, "wheels.right_radius": 0.0822,
                                        "wheels.track_width": 0.4185, "noise.k_left": 2e-5, "noise.k_right": 2e-5})
+        if args.online:
+            return bench_online(bag, files[1], work)
         t_naive, (nx, ny, npcov) = timed(lambda: naive_replay(bag, settings))
         # breakdown of the fast path
         t_decode, data = timed(lambda: read_run(bag))
@@ -179,6 +185,35 @@ def main_bench() -> int:
     finally:
         if not args.keep:
             shutil.rmtree(work, ignore_errors=True)
+    return 0
+
+
+def bench_online(bag: Path, params: Path, work: Path) -> int:
+    """Replay with online calibration off and on (best of 3 each), in this process."""
+    on = work / "online_on.yaml"
+    atomic_write_text(on, params.read_text() + "    online_calibration:\n      enabled: true\n")
+    best = {}
+    sink = io.StringIO()
+    for label, f in (("off", params), ("on", on)):
+        times = []
+        for _ in range(3):
+            with contextlib.redirect_stdout(sink):
+                t, code = timed(lambda: main(["replay", str(bag), "--params", str(f), "--out", str(work / f"r_{label}")]))
+            assert code == 0
+            times.append(t)
+        best[label] = min(times)
+    assert (work / "r_on" / "geometry_online.csv").is_file()
+    core_data = read_run(bag)
+    s_on = Settings.from_flat({"wheels.left_joints": ["quokka_left_wheel_joint"],
+                               "wheels.right_joints": ["quokka_right_wheel_joint"],
+                               "online_calibration.enabled": True})
+    t_core_off, _ = timed(lambda: run(core_data.samples, s_on.replace(**{"online_calibration.enabled": False}),
+                                      gyro_z_radps=core_data.gyro_z_radps))
+    t_core_on, traj = timed(lambda: run(core_data.samples, s_on, gyro_z_radps=core_data.gyro_z_radps))
+    print(f"wheel-dr replay, online calibration off: {best['off']:7.2f} s (best of 3)")
+    print(f"wheel-dr replay, online calibration on:  {best['on']:7.2f} s (best of 3; {len(traj.online)} intervals) "
+          f"-> {best['on'] / best['off']:.2f}x off (target within 1.5x)")
+    print(f"  core run alone: off {t_core_off:.2f} s, on {t_core_on:.2f} s")
     return 0
 
 

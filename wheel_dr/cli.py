@@ -23,12 +23,15 @@ from .safety import SAFETY_TEXT
 # Heavy modules (numpy, rosbags, the analysis) are imported by the command that needs them, so
 # `wheel-dr --help` starts in a fraction of a second and an interrupt while importing is handled.
 
-__all__ = ["main", "build_parser", "SAFETY_NOTE", "write_trajectory_csv", "write_tum", "TRAJECTORY_COLUMNS"]
+__all__ = ["main", "build_parser", "SAFETY_NOTE", "write_trajectory_csv", "write_tum", "TRAJECTORY_COLUMNS",
+           "write_geometry_csv", "GEOMETRY_COLUMNS"]
 
 SAFETY_NOTE = SAFETY_TEXT
 
 TRAJECTORY_COLUMNS = ("t", "x", "y", "yaw", "cov_xx", "cov_xy", "cov_xyaw", "cov_yy", "cov_yyaw", "cov_yawyaw", "slip",
                       "v", "w", "slip_left", "slip_right", "vy")
+
+GEOMETRY_COLUMNS = ("t", "radius_ratio", "radius_ratio_se", "track_over_radius", "track_over_radius_se", "alert")
 
 SCENARIOS = ("demo", "square-cw", "square-ccw", "varied")
 
@@ -88,6 +91,18 @@ def write_tum(path: Path, traj) -> None:
               float_field(np.sin(half)), float_field(np.cos(half))]
     body = join_fields(fields, " ") if n else b""
     _atomic_bytes(path, b"# timestamp tx ty tz qx qy qz qw (wheel_dr odometry, odom frame)\n" + body)
+
+
+def write_geometry_csv(path: Path, online) -> None:
+    """DIR/geometry_online.csv: header row, then one row per online-calibration interval (GEOMETRY_COLUMNS):
+    t in seconds (stamp of the sample closing the interval), radius ratio right/left and track over
+    mean radius with their standard errors, alert 0/1 (wheel_dr.core.online_calibration)."""
+    from .bags.textout import flag_field, float_field, join_fields, stamp_field
+    fields = [stamp_field(online.stamp_ns), float_field(online.radius_ratio), float_field(online.radius_ratio_se),
+              float_field(online.track_over_radius), float_field(online.track_over_radius_se),
+              flag_field(online.alert)]
+    body = join_fields(fields) if len(online) else b""
+    _atomic_bytes(path, (",".join(GEOMETRY_COLUMNS) + "\n").encode() + body)
 
 
 def _out_dir(path: str | None, default: str) -> Path:
@@ -213,6 +228,26 @@ def _cmd_replay(args: argparse.Namespace) -> int:
          f"{np.sqrt(traj.cov[-1, 2, 2]):.4f} rad); wheel distance {dist:.1f} m; "
          f"slip flagged on {100.0 * np.mean(traj.slip.slip):.1f} % of samples")
     _say(f"wrote {out / 'trajectory.csv'} and {out / 'trajectory.tum'}")
+    if res.settings.online_calibration.enabled:
+        from .core.online_calibration import unsupported_reason
+        online = traj.online
+        why = unsupported_reason(res.settings)
+        if why is not None:
+            _say(f"online calibration: {why}; no geometry_online.csv written")
+        elif online is None:
+            _say("online calibration: enabled, but the bag has no IMU readings (the gyro observes the geometry); "
+                 "no geometry_online.csv written")
+        else:
+            write_geometry_csv(out / "geometry_online.csv", online)
+            left, right, track = online.suggested()
+            alerts = int(np.count_nonzero(online.alert))
+            last = (f"radius ratio {online.radius_ratio[-1]:.5f} +- {online.radius_ratio_se[-1]:.5f}, track over "
+                    f"radius {online.track_over_radius[-1]:.4f} +- {online.track_over_radius_se[-1]:.4f}"
+                    if len(online) else "no interval closed")
+            _say(f"online calibration: {last}; alert on {alerts} of {len(online)} intervals; suggested left radius "
+                 f"{left:.6f} m, right radius {right:.6f} m, track {track:.6f} m (mean radius kept: the gyro cannot "
+                 "see the scale)")
+            _say(f"wrote {out / 'geometry_online.csv'}")
     if args.bag_out:
         from .bags.copy import copy_with_odometry
         target = copy_with_odometry(data.path, args.bag_out, traj, res.settings, topic=args.odom_topic,
@@ -347,6 +382,9 @@ def _cmd_demo(args: argparse.Namespace) -> int:
         sections.append(section)
     second_bag, second_section = _demo_second_vehicle(out, cfg)
     sections.append(second_section)
+    from .online_demo import online_demo_section
+    _say("watching the geometry online while the demo cart's left tyre softens (online_calibration.enabled)")
+    sections.append(online_demo_section(cfg, DEMO_SEED))
     ns = argparse.Namespace(bags=[str(bag)], params=[str(cfg / c) for c in DEMO_CONFIGS], truth="/ground_truth",
                             joint_topic=None, imu_topic=None, no_imu=False, jobs=args.jobs, quiet=args.quiet,
                             out=str(out))

@@ -16,6 +16,7 @@ from typing import Sequence
 import numpy as np
 
 from .motion import body_increment, integrate, pose_increment_scalar, wrap_angle, wrap_angle_scalar
+from .online_calibration import OnlineCalibrationResult, OnlineCalibrator, online_calibration, supported
 from .noise import (UNOBSERVED_VARIANCE, increment_noise, increment_noise_floats, propagate_covariance,
                     propagate_step_floats)
 from .estimator_table import TableStepper, run_table
@@ -63,6 +64,8 @@ class Trajectory:
     # (M, 3, 3) step noise Q_k (odom frame) the covariance was propagated with; metrics use it to
     # restart the covariance at segment starts (NEES). None when not recorded.
     step_noise: np.ndarray | None = None
+    # online self-calibration (online_calibration.enabled with a gyro), one entry per interval; else None
+    online: OnlineCalibrationResult | None = None
     vy_mps: np.ndarray | None = None   # (M,) lateral speed, base frame (zeros for differential drive)
 
     def __post_init__(self) -> None:
@@ -128,8 +131,11 @@ def run_travel(travel: Travel, settings: Settings, start_pose: Sequence[float] =
     v = np.where(moving, ds / safe_dt, 0.0)
     w = np.where(moving, dth / safe_dt, 0.0)
     twist_cov = np.where(moving[:, None, None], c_in / (safe_dt * safe_dt)[:, None, None], _UNOBSERVED_TWIST)
+    online = None
+    if gyro_z_radps is not None and supported(settings):
+        online = online_calibration(travel, gyro_z_radps, slip.slip, settings)
     return Trajectory(travel.index, travel.stamp_ns, x, y, wrap_angle(theta), theta, cov, v, w, twist_cov,
-                      travel.status, travel, slip, count_statuses(travel.status), step_noise=q)
+                      travel.status, travel, slip, count_statuses(travel.status), step_noise=q, online=online)
 
 
 class Estimator:
@@ -147,6 +153,8 @@ class Estimator:
         self._table = TableStepper(settings) if settings.drive.kind != "differential" else None
         self.counters: dict[str, int] = {s.name.lower(): 0 for s in SampleStatus}
         self.last_slip = SlipStep()  # slip outcome of the last accepted sample (none yet: all clear)
+        # online self-calibration (None unless online_calibration.enabled); ``online.step`` per accepted sample
+        self.online = OnlineCalibrator(settings) if supported(settings) else None
         self.reset(start_pose, start_cov)
 
     # -- state ---------------------------------------------------------------------------------
@@ -185,10 +193,17 @@ class Estimator:
 
     def update_settings(self, settings: Settings) -> None:
         """Use new settings from the next sample on; pose and covariance are kept, the chain restarts."""
+        old = self.settings.online_calibration
         self.settings = settings
         self._tracker = TravelTracker(settings)
         self._slip = SlipMonitor(settings)
         self._table = TableStepper(settings) if settings.drive.kind != "differential" else None
+        if not supported(settings):
+            self.online = None
+        elif self.online is None or settings.online_calibration != old:
+            self.online = OnlineCalibrator(settings)
+        else:
+            self.online.update_settings(settings)   # a geometry change: the online estimate goes on
 
     @property
     def yaw_rad(self) -> float:
@@ -250,5 +265,7 @@ class Estimator:
             self.v_mps, self.w_radps = ds / dt, dth / dt
             dt2 = dt * dt
             self._twist = (c_in[0] / dt2, c_in[1] / dt2, c_in[2] / dt2)
+        if self.online is not None:
+            self.online.step(stamp_ns, restart, dt, dl, dr, gyro_z_radps, slip.slip)
         self.counters[status.name.lower()] += 1   # counted once the sample is fully applied
         return status

@@ -23,6 +23,7 @@ __all__ = [
     "SlipSettings",
     "OutputSettings",
     "ImuSettings",
+    "OnlineCalibrationSettings",
     "Settings",
     "INTEGRATION_SCHEMES",
     "NOISE_MODELS",
@@ -338,6 +339,36 @@ class ImuSettings:
                               0.0, 30.0)
 
 
+@dataclass(frozen=True)
+class OnlineCalibrationSettings:
+    """Online self-calibration from the gyro (see wheel_dr.core.online_calibration)."""
+
+    enabled: bool = _p(False, "Estimate the geometry the gyro observes (radius ratio, track over mean radius) while "
+                       "driving, and alert when it departs from the configured one; needs an IMU.")
+    horizon_m: float = _p(30.0, "Forgetting horizon: data driven this far ago (mean wheel travel) weighs 1/e as much "
+                          "as new data; shorter follows changes faster, longer gives smaller standard errors.", "m",
+                          1.0, 1e6)
+    alert_pct: float = _p(0.5, "An estimate that departs from the configured value by more than this (and by more "
+                          "than 4 standard errors) raises the geometry alert.", "%", 0.01, 50.0)
+    clear_fraction: float = _p(0.5, "Hysteresis: the alert holds until the departure falls below this fraction of "
+                               "online_calibration.alert_pct.", "", 0.0, 1.0, lo_open=True, hi_open=True)
+    interval_s: float = _p(0.1, "Samples are summed over intervals of this length (by stamp) before they enter the "
+                           "estimate; one estimate per interval (at least 10 per second).", "s", 0.001, 0.1)
+    chunk_m: float = _p(0.05, "Intervals are merged until the wheels have travelled this far (mean of the sides' "
+                        "|travel|, or for 5 s) before they enter the estimate: the wheels' random error is then small "
+                        "against their travel.", "m", 0.0, 100.0)
+    gate: float = _p(10.83, "Chi-square gate (1 degree of freedom) on a merged interval's gyro-versus-wheels residual; "
+                     "10.83 is the 99.9 % quantile (larger residuals are outliers and are skipped).", "", 0.01, 1e6)
+    prior_pct: float = _p(10.0, "Standard deviation of the prior on the configured geometry (keeps the estimate "
+                          "defined before the drive has turned enough).", "%", 0.1, 100.0)
+    prior_bias_radps: float = _p(0.05, "Standard deviation of the prior on the gyro z bias (mean "
+                                 "slip.gyro_bias_radps).", "rad/s", 1e-6, 10.0)
+    apply: bool = _p(False, "Node: when the alert sets, change the running geometry to the suggested values "
+                     "(radius ratio and track; the mean radius is kept). Off: only report.")
+    reference_topic: str = _p("", "Node: a pose topic of the robot's own localisation (PoseWithCovarianceStamped, "
+                              "Odometry or PoseStamped) that makes the scale observable; '' for none.")
+
+
 SECTIONS: dict[str, type] = {
     "wheels": WheelSettings,
     "drive": DriveSettings,
@@ -348,6 +379,7 @@ SECTIONS: dict[str, type] = {
     "slip": SlipSettings,
     "output": OutputSettings,
     "imu": ImuSettings,
+    "online_calibration": OnlineCalibrationSettings,
 }
 
 _INTEGRATION_SPEC = dict(
@@ -369,6 +401,7 @@ class Settings:
     slip: SlipSettings = field(default_factory=SlipSettings)
     output: OutputSettings = field(default_factory=OutputSettings)
     imu: ImuSettings = field(default_factory=ImuSettings)
+    online_calibration: OnlineCalibrationSettings = field(default_factory=OnlineCalibrationSettings)
 
     # -- schema -----------------------------------------------------------------------------
     @staticmethod

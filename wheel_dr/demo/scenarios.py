@@ -11,10 +11,10 @@ import math
 import numpy as np
 
 from ..sim.drive import segment_duration, segment_times
-from ..sim.scenario import (FloorPatch, Scenario, Segment, SlipEvent, arc, pause, straight, turn_in_place,
-                       waypoint_route)
+from ..sim.scenario import (FloorPatch, RadiusChange, Scenario, Segment, SlipEvent, arc, pause, straight,
+                            turn_in_place, waypoint_route)
 
-__all__ = ["demo_scenario", "square_scenario", "varied_drive_scenario", "varied_route", "DEMO_SEED",
+__all__ = ["demo_scenario", "softening_round_scenario", "SOFTENING_FRACTION", "square_scenario", "varied_drive_scenario", "varied_route", "DEMO_SEED",
            "COLD_ROOM_PATCH", "DEMO_IMU_POSITION_M"]
 
 DEMO_SEED = 2027
@@ -156,3 +156,17 @@ def varied_route(seed: int, duration_s: float = 600.0) -> tuple[Segment, ...]:
             segs.append(pause(d))
             t += d
     return tuple(segs)
+
+
+SOFTENING_FRACTION = -0.015   # the Quokka's left tyre loses 1.5 % of its radius (demo number)
+
+
+def softening_round_scenario(laps: int = 4, rate_hz: float = 100.0) -> Scenario:
+    """The night round driven ``laps`` times while the Quokka's left tyre slowly softens: its radius falls
+    by ``SOFTENING_FRACTION`` over two minutes from the end of the first lap (online self-calibration demo;
+    everything else as in ``demo_scenario``)."""
+    base = demo_scenario(rate_hz=rate_hz, laps=laps)
+    lap_s = float(segment_times(demo_scenario(rate_hz=rate_hz))[-1])
+    return base.with_values(name="ferncliff_softening_round",
+                            radius_changes=(RadiusChange(lap_s, "left", SOFTENING_FRACTION, ramp_s=120.0),),
+                            description="Quokka cart, night rounds while its left tyre softens (invented demo).")

@@ -16,6 +16,10 @@ Interfaces (relative names follow the node's namespace and remaps):
   ``wheel_dr.ros.convert.FLAG_FIELDS``) and ``/diagnostics`` (diagnostic_msgs/DiagnosticArray
   every ``output.diagnostics_period_s``);
 * service ``~/reset`` (std_srvs/Trigger): pose and covariance to zero;
+  with ``online_calibration.enabled``: topic ``~/geometry`` (std_msgs/Float64MultiArray, one per
+  estimate interval, fields in ``wheel_dr.core.online_calibration.GEOMETRY_FIELDS``) and service
+  ``~/save_geometry`` (std_srvs/Trigger): the running parameters file with the suggested geometry,
+  written beside it (``wheel-dr calibrate``'s writer); the geometry alert is a WARN in /diagnostics;
   topic ``~/reanchor`` (geometry_msgs/PoseWithCovarianceStamped in the odom frame): pose and
   (x, y, yaw) covariance set to the given ones.
 
@@ -186,6 +190,18 @@ class OdometryNode:
                              "odometry, flags and diagnostics are still published. On a robot, source the ROS 2 "
                              "installation; with the venv, run `make tf-msgs` and `. tools/ros_env.sh`.")
         self.srv_reset = node.create_service(Trigger, "~/reset", self._on_reset)
+        self.pub_geometry = node.create_publisher(Float64MultiArray, "~/geometry", 10)
+        self.srv_save_geometry = node.create_service(Trigger, "~/save_geometry", self._on_save_geometry)
+        self.params_files: list[str] = []   # the --params-file paths the node was started with (set by main)
+        self._Float64MultiArray = Float64MultiArray
+        self._geometry_applied = 0
+        # online_calibration.reference_topic: a localisation pose gives the scale (subscribed once it appears)
+        self.sub_reference = None
+        self._reference_type = "none"
+        self.reference_received = 0
+        self.reference_refused = 0
+        self._odom_history: list[tuple[int, float, float]] = []   # (stamp_ns, x, y) of recent accepted samples
+        self._reference_timer = node.create_timer(1.0, self._find_reference)
         self.sub_reanchor = node.create_subscription(PoseWithCovarianceStamped, "~/reanchor",
                                                      self._on_reanchor, 10)
         self._diag_timer = node.create_timer(settings.output.diagnostics_period_s, self._on_diagnostics)
@@ -323,6 +339,13 @@ class OdometryNode:
             if cmd is not None and now - self._cmd_mono > self.settings.slip.command_timeout_s:
                 cmd = None  # stale command
             status = est.step(stamp_ns, names, positions, velocities, gyro, accel, up, cmd)
+            online = est.online
+            geometry = online.values() if online is not None and online.stamp_ns == stamp_ns else None
+            if status < 10 and online is not None and online.scale is not None:
+                hist = self._odom_history
+                hist.append((stamp_ns, est.x_m, est.y_m))
+                if len(hist) > ODOM_HISTORY:
+                    del hist[:len(hist) - ODOM_HISTORY // 2]
             due = status < 10
             period_ns = self._out_period_ns
             if due and period_ns:
@@ -349,6 +372,8 @@ class OdometryNode:
                 self._period_skipped[kind] = self._period_skipped.get(kind, 0) + 1
         if flags_due:
             self.pub_flags.publish(writer.flags(flag_values(sec, nanosec, int(status), slip, writer.n_wheels)))
+        if geometry is not None:
+            self._publish_geometry(geometry)
         if noteworthy:
             self._note_status(status)
 
@@ -422,6 +447,7 @@ class OdometryNode:
         try:
             with self.lock:
                 self.estimator.reset()
+                self._pose_jumped()
             response.success = True
             response.message = "pose and covariance set to zero"
             self.log.info("reset: pose and covariance set to zero.")
@@ -430,11 +456,150 @@ class OdometryNode:
             response.message = f"reset failed ({exc.__class__.__name__}: {exc})"
         return response
 
+    def _publish_geometry(self, values: list[float]) -> None:
+        """One ~/geometry message (layout label GEOMETRY_LABEL)."""
+        from std_msgs.msg import MultiArrayDimension
+
+        from ..core.online_calibration import GEOMETRY_FIELDS, GEOMETRY_LABEL
+        msg = self._Float64MultiArray()
+        msg.layout.dim = [MultiArrayDimension(label=GEOMETRY_LABEL, size=len(GEOMETRY_FIELDS),
+                                              stride=len(GEOMETRY_FIELDS))]
+        msg.data = values
+        self.pub_geometry.publish(msg)
+
+    def _on_save_geometry(self, request: Any, response: Any) -> Any:
+        try:
+            response.success, response.message = self.save_geometry()
+        except Exception as exc:
+            response.success = False
+            response.message = f"saving the geometry failed ({exc.__class__.__name__}: {exc})"
+        (self.log.info if response.success else self.log.warning)(f"save_geometry: {response.message}")
+        return response
+
+    def save_geometry(self) -> tuple[bool, str]:
+        """Write the running parameters file with the suggested geometry beside it (or, started without
+        one, ``wheel_dr_geometry.yaml`` in the working directory); (success, one sentence)."""
+        import datetime as _dt
+        from pathlib import Path
+
+        from ..calibrate_cmd import _rounded, default_params_text
+        from ..params import atomic_write_text, update_params_text
+        with self.lock:
+            online = self.estimator.online
+            if online is None:
+                return False, ("online_calibration.enabled is false, so there is no estimate to save; set it to "
+                               "true (with an IMU on the imu topic) and drive.")
+            left, right, track = online.suggested()
+            status = f"radius ratio {online.status_ratio}, track over radius {online.status_track}"
+            ratio, ratio_se, tor, tor_se = online.ratio, online.ratio_se, online.track, online.track_se
+            sc = online.scale
+            scale_line = ("The gyro cannot observe the mean radius (the scale): it is kept as configured; check the "
+                          "distance against a known one." if sc is None or not sc.ready else
+                          f"Scale (true over configured mean radius) {sc.scale:.5f} +- {sc.se:.5f} from "
+                          f"{sc.windows} windows of {self.settings.online_calibration.reference_topic}.")
+        running = self.params_files[-1] if self.params_files else None
+        if running is not None:
+            src = Path(running)
+            text = src.read_text(encoding="utf-8")
+            target = src.with_name(f"{src.stem}_geometry.yaml")
+            label = str(src)
+        else:
+            text = default_params_text()
+            target = Path.cwd() / "wheel_dr_geometry.yaml"
+            label = "config/wheel_dr.yaml defaults"
+        when = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+        values = _rounded({"wheels.left_radius": left, "wheels.right_radius": right, "wheels.track_width": track})
+        header = "\n".join([
+            f"description: Geometry suggested by the wheel_dr node's online self-calibration on {when} from {label}.",
+            f"Online self-calibration on {when}, starting from {label} (every other value is as there).",
+            f"Radius ratio {ratio:.6f} +- {ratio_se:.6f}, track over mean radius {tor:.5f} +- {tor_se:.5f} "
+            f"({status}).",
+            scale_line,
+            SAFETY_TEXT])
+        atomic_write_text(target, update_params_text(text, values, header))
+        return True, (f"wrote {target} (left radius {values['wheels.left_radius']} m, right radius "
+                      f"{values['wheels.right_radius']} m, track {values['wheels.track_width']} m; {status})")
+
+    def _apply_geometry(self) -> None:
+        """online_calibration.apply: while the alert holds, take the suggested geometry as the running one."""
+        from rclpy.parameter import Parameter
+
+        with self.lock:
+            online = self.estimator.online
+            if online is None or not online.alert_any or not self.settings.online_calibration.apply:
+                return
+            left, right, track = online.suggested()
+        result = self.node.set_parameters([Parameter("wheels.left_radius", value=float(left)),
+                                           Parameter("wheels.right_radius", value=float(right)),
+                                           Parameter("wheels.track_width", value=float(track))])
+        if all(r.successful for r in result):
+            self._geometry_applied += 1
+            self.log.warning(f"online calibration applied: left radius {left:.6f} m, right radius {right:.6f} m, "
+                             f"track {track:.6f} m (online_calibration.apply is true).")
+
+    def _pose_jumped(self) -> None:
+        """The odometry pose was set (reset, re-anchor): the scale's open window is dropped (lock held)."""
+        self._odom_history = []
+        online = self.estimator.online
+        if online is not None and online.scale is not None:
+            online.scale.restart_window()
+
+    def _find_reference(self) -> None:
+        """Subscribe online_calibration.reference_topic with the type its publishers use, once."""
+        try:
+            topic = self.settings.online_calibration.reference_topic
+            if self.sub_reference is not None or not topic or not self.settings.online_calibration.enabled:
+                return
+            from geometry_msgs.msg import PoseStamped, PoseWithCovarianceStamped
+            from nav_msgs.msg import Odometry
+
+            try:
+                name = self.node.resolve_topic_name(topic)
+            except Exception:   # not a valid topic name: say so (throttled), do not count it as a handler error
+                self._throttled("reference_name", "warning",
+                                f"online_calibration.reference_topic '{topic}' is not a valid topic name; give a "
+                                "name such as /localisation/pose, or '' for none.")
+                return
+            types = dict(self.node.get_topic_names_and_types()).get(name, [])
+            for type_name, cls in (("geometry_msgs/msg/PoseWithCovarianceStamped", PoseWithCovarianceStamped),
+                                   ("nav_msgs/msg/Odometry", Odometry),
+                                   ("geometry_msgs/msg/PoseStamped", PoseStamped)):
+                if type_name in types:
+                    self.sub_reference = self.node.create_subscription(cls, topic, self.on_reference, 10)
+                    self._reference_type = type_name.replace("/msg/", "/")
+                    self.log.info(f"online calibration: scale from {name} ({self._reference_type}).")
+                    self._reference_timer.cancel()
+                    return
+        except Exception as exc:
+            self._handler_error("reference", exc)
+
+    def on_reference(self, msg: Any) -> None:
+        """A pose of the robot's own localisation: its displacement against the odometry's gives the scale."""
+        try:
+            self.reference_received += 1
+            pose = msg.pose.pose if hasattr(msg.pose, "pose") else msg.pose
+            cov = getattr(msg.pose, "covariance", None)
+            var = 0.5 * (float(cov[0]) + float(cov[7])) if cov is not None else 0.0
+            stamp = msg.header.stamp.sec * 1_000_000_000 + msg.header.stamp.nanosec
+            x, y = float(pose.position.x), float(pose.position.y)
+            with self.lock:
+                online = self.estimator.online
+                if online is None or online.scale is None:
+                    return
+                at = _interpolate(self._odom_history, stamp)
+                if at is None or not (math.isfinite(x) and math.isfinite(y)):
+                    self.reference_refused += 1
+                    return
+                online.scale.add(x, y, var, at[0], at[1])
+        except Exception as exc:  # never die on a bad message
+            self._handler_error("reference", exc)
+
     def _on_reanchor(self, msg: Any) -> None:
         try:
             pose, cov = pose_from_msg(msg, self.settings.frames.odom)
             with self.lock:
                 self.estimator.reset(pose, cov)
+                self._pose_jumped()
             self.log.info(f"re-anchored at x={pose[0]:.3f} m, y={pose[1]:.3f} m, yaw={pose[2]:.4f} rad.")
         except InputError as exc:
             self.reanchor_refused += 1
@@ -486,6 +651,11 @@ class OdometryNode:
             last_slip = self._last_slip
             period_errors, self._period_errors = self._period_errors, 0
             slipping = bool(self.estimator.last_slip is not None and self.estimator.last_slip.slip)
+            online = self.estimator.online
+            geometry = None
+            if online is not None:
+                geometry = (online.values(), online.status_ratio, online.status_track, online.dev_ratio,
+                            online.dev_track)
         latency = self._latency.summarize(latency_ns)
         elapsed = max(now - self._period_start, 1e-9)
         self._period_start = now
@@ -525,6 +695,49 @@ class OdometryNode:
             **{f"param.{k}": v for k, v in settings.to_flat().items()},
         }
         problems = []
+        if geometry is None and settings.online_calibration.enabled:
+            from ..core.online_calibration import unsupported_reason
+            values["online.status"] = unsupported_reason(settings) or "waiting"
+        if geometry is not None:
+            from ..core.online_calibration import GEOMETRY_FIELDS
+            gv, st_ratio, st_track, dev_ratio, dev_track = geometry
+            g = dict(zip(GEOMETRY_FIELDS, gv))
+            values.update({"online.radius_ratio": g["radius_ratio"], "online.radius_ratio_se": g["radius_ratio_se"],
+                           "online.radius_ratio_status": st_ratio, "online.radius_ratio_departure_pct": 100 * dev_ratio,
+                           "online.track_over_radius": g["track_over_radius"],
+                           "online.track_over_radius_se": g["track_over_radius_se"],
+                           "online.track_over_radius_status": st_track,
+                           "online.track_over_radius_departure_pct": 100 * dev_track,
+                           "online.gyro_bias_radps": g["gyro_bias_radps"],
+                           "online.gyro_bias_se_radps": g["gyro_bias_se_radps"],
+                           "online.alert": bool(g["alert"]),
+                           "online.suggested_left_radius_m": g["suggested_left_radius_m"],
+                           "online.suggested_right_radius_m": g["suggested_right_radius_m"],
+                           "online.suggested_track_width_m": g["suggested_track_width_m"],
+                           "online.intervals_used": int(g["intervals_used"]),
+                           "online.intervals_skipped": int(g["intervals_skipped"]),
+                           "online.geometry_applied": self._geometry_applied,
+                           "online.reference_topic": self.settings.online_calibration.reference_topic or "none",
+                           "online.reference_type": self._reference_type,
+                           "online.reference_received": self.reference_received,
+                           "online.reference_refused": self.reference_refused})
+            if math.isnan(g["scale"]):
+                values["online.scale"] = "not observable from the gyro (mean radius kept)"
+            else:
+                values.update({"online.scale": g["scale"], "online.scale_se": g["scale_se"],
+                               "online.scale_windows": int(g["scale_windows"])})
+            if g["alert"]:
+                what = []
+                if g["alert_ratio"]:
+                    what.append(f"radius ratio {g['radius_ratio']:.5f} ({100 * dev_ratio:+.2f} %)")
+                if g["alert_track"]:
+                    what.append(f"track over radius {g['track_over_radius']:.4f} ({100 * dev_track:+.2f} %)")
+                if g["alert_scale"]:
+                    what.append(f"scale {g['scale']:.5f} ({100 * (g['scale'] - 1):+.2f} %, from {self._reference_type})")
+                problems.append("geometry alert: " + " and ".join(what) + " departs from the configured geometry; "
+                                f"suggested left radius {g['suggested_left_radius_m']:.6f} m, right radius "
+                                f"{g['suggested_right_radius_m']:.6f} m, track {g['suggested_track_width_m']:.6f} m "
+                                "(~/save_geometry writes them)")
         if period_slip or slipping:
             problems.append(f"wheel slip flagged ({period_slip} samples this period)")
         if period_received == 0:
@@ -554,6 +767,34 @@ class OdometryNode:
             self.handler_errors += 1
             self._throttled("diag_error", "error", f"diagnostics could not be published "
                                                    f"({exc.__class__.__name__}: {exc}).")
+        try:   # after the status that reported the alert, so it is seen before the geometry changes
+            self._apply_geometry()
+        except Exception as exc:
+            self._throttled("apply_geometry", "error", f"the suggested geometry could not be applied "
+                                                       f"({exc.__class__.__name__}: {exc}).")
+
+
+ODOM_HISTORY = 4000   # odometry positions kept for the reference poses' stamps (40 s at 100 Hz)
+REFERENCE_MATCH_NS = 100_000_000   # a reference stamp this far outside the kept odometry is not matched
+
+
+def _interpolate(history: list[tuple[int, float, float]], stamp_ns: int) -> tuple[float, float] | None:
+    """The odometry position at ``stamp_ns``, linear between the kept samples (None when out of reach)."""
+    import bisect
+
+    if not history:
+        return None
+    i = bisect.bisect_left(history, (stamp_ns, -math.inf, -math.inf))
+    if i == 0:
+        s, x, y = history[0]
+        return (x, y) if s - stamp_ns <= REFERENCE_MATCH_NS else None
+    if i == len(history):
+        s, x, y = history[-1]
+        return (x, y) if stamp_ns - s <= REFERENCE_MATCH_NS else None
+    s0, x0, y0 = history[i - 1]
+    s1, x1, y1 = history[i]
+    f = (stamp_ns - s0) / (s1 - s0) if s1 > s0 else 0.0
+    return x0 + f * (x1 - x0), y0 + f * (y1 - y0)
 
 
 def _output_period_ns(settings: Settings) -> int:
@@ -634,7 +875,8 @@ _USAGE = """usage: wheel_dr_node [--ros-args --params-file FILE [-r joint_states
                      [-p use_sim_time:=true] [-p wheels.track_width:=0.41 ...]]
 
 Wheel odometry node of wheel_dr: subscribes joint_states (and imu), publishes odom, /tf,
-odom_flags and /diagnostics; service ~/reset, topic ~/reanchor. See docs/node.md.
+odom_flags and /diagnostics; service ~/reset, topic ~/reanchor; with online_calibration.enabled
+also ~/geometry and ~/save_geometry. See docs/node.md.
 
 """ + textwrap.fill(SAFETY_TEXT, 100)
 
@@ -731,6 +973,7 @@ def _main(argv: list[str], stop: threading.Event, holder: dict[str, OdometryNode
         except SettingsError as exc:
             return _fail(str(exc))
         holder["node"] = odo
+        odo.params_files = _ros_args_params_files(argv)
         executor = SingleThreadedExecutor()
         executor.add_node(odo.node)
 

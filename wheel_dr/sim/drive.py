@@ -17,6 +17,8 @@ Model (kinematic, REP 103 frames, SI units):
   (1 - s) for 'drag', s the slip ratio (optionally ramped up from 0 after each onset); applied to a
   step when the event is active at the step's end stamp, s > 0 there and that wheel's ground speed
   exceeds ``MOVING_MPS`` (only then is it labelled).
+* Radius changes (``Scenario.radius_changes``): the true radius of a side changes during the drive; the
+  wheel angle of each step is then that step's measured travel over the radius at its end.
 * Gyro z = true yaw rate at the stamp + bias + white noise (sd per sample).
 * Accelerometer (specific force of the IMU point, base axes): each reading is the mean over the step
   ending at it (a decimation filter): a_x = dv/dt - w^2 l_x - w' l_y, a_y = v w + w' l_x - w^2 l_y
@@ -376,7 +378,17 @@ def simulate(scenario: Scenario, seed: int = 0) -> SimResult:
         if k_m > 0:
             d_meas[:, c] += np.sqrt(k_m * np.abs(d_meas[:, c])) * z
     radius = np.array([sc.true_left_radius_m, sc.true_right_radius_m])[side_of]
-    position = np.cumsum(d_meas, axis=0) / radius
+    if sc.radius_changes:      # radius per sample and joint: the wheel angle of each step is its travel / radius
+        scale = np.ones((n, n_j))
+        for rc in sc.radius_changes:
+            frac = np.clip((t_real - rc.start_s) / rc.ramp_s, 0.0, 1.0) if rc.ramp_s > 0 else \
+                (t_real >= rc.start_s).astype(np.float64)
+            for c in range(n_j):
+                if rc.side == "both" or ("left", "right")[side_of[c]] == rc.side:
+                    scale[:, c] *= 1.0 + rc.fraction * frac
+        position = np.cumsum(d_meas / (radius * scale), axis=0)
+    else:
+        position = np.cumsum(d_meas, axis=0) / radius
     velocity = np.zeros((n, n_j))
     if n > 1:
         dt = np.diff(stamp_ns) * 1e-9

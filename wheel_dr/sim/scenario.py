@@ -25,6 +25,7 @@ __all__ = [
     "FloorPatch",
     "HeldEvent",
     "Incline",
+    "RadiusChange",
     "Scenario",
     "QUOKKA_JOINTS",
     "QUOKKA_SKID_JOINTS",
@@ -197,6 +198,24 @@ class Incline:
             raise ValueError("an incline needs duration_s > 0, ramp_s >= 0 and |angle_rad| < pi/2.")
 
 
+@dataclass(frozen=True)
+class RadiusChange:
+    """A wheel's true rolling radius changes by ``fraction`` (-0.015: 1.5 % smaller, a softening tyre)
+    from ``start_s`` (since the first sample), linearly over ``ramp_s`` (0: at once). The encoders
+    turn by ground travel over the radius at each step; the nominal geometry is unchanged."""
+
+    start_s: float
+    side: str = "left"
+    fraction: float = -0.015
+    ramp_s: float = 0.0
+
+    def __post_init__(self) -> None:
+        if self.side not in ("left", "right", "both"):
+            raise ValueError(f"radius change side '{self.side}' is not one of left, right, both.")
+        if not (-0.5 < self.fraction < 0.5) or self.ramp_s < 0:
+            raise ValueError("a radius change needs -0.5 < fraction < 0.5 and ramp_s >= 0.")
+
+
 def _check_slip(side: str, kind: str, ratio: float) -> None:
     if side not in SLIP_SIDES:
         raise ValueError(f"slip side '{side}' is not one of {', '.join(SLIP_SIDES)}.")
@@ -219,7 +238,8 @@ class Scenario:
     the specific force of that point (each reading the mean over the step ending at it) plus
     ``accel_bias_mps2`` on x and white noise ``accel_noise_sd_mps2`` per axis; ``inclines`` pitch
     the base, ``held_events`` hold it while its wheels turn. The command (cmd_vel) is the route's
-    planned speed (the held events' speed while held). ``accel_mps2`` / ``accel_radps2`` limit the speed ramps
+    planned speed (the held events' speed while held). ``radius_changes`` change a side's true radius
+    during the drive (the ``true_*_radius_m`` are the radii at the start). ``accel_mps2`` / ``accel_radps2`` limit the speed ramps
     (0 = speed changes instantly, segments at constant speed).
     Skid steer: ``joints_per_side`` 2 gives a front and a rear wheel on each side, ``wheelbase_m`` apart,
     all of a side driven alike (the ideal skid-steer kinematics with the true track as effective
@@ -256,6 +276,7 @@ class Scenario:
     wheelbase_m: float = 0.3
     description: str = ""
     extra: dict = field(default_factory=dict, compare=False)
+    radius_changes: tuple[RadiusChange, ...] = ()
 
     def __post_init__(self) -> None:
         if not self.segments:
