@@ -17,6 +17,7 @@ import numpy as np
 
 from .motion import body_increment, integrate, pose_increment_scalar, wrap_angle, wrap_angle_scalar
 from .online_calibration import OnlineCalibrationResult, OnlineCalibrator, online_calibration, supported
+from .online_table import TableOnlineCalibrator, TableOnlineSeries
 from .noise import (UNOBSERVED_VARIANCE, increment_noise, increment_noise_floats, propagate_covariance,
                     propagate_step_floats)
 from .estimator_table import TableStepper, run_table
@@ -67,6 +68,8 @@ class Trajectory:
     # online self-calibration (online_calibration.enabled with a gyro), one entry per interval; else None
     online: OnlineCalibrationResult | None = None
     vy_mps: np.ndarray | None = None   # (M,) lateral speed, base frame (zeros for differential drive)
+    # wheel tables with online_calibration.enabled and a gyro: the table estimate's course; else None
+    online_table: TableOnlineSeries | None = None
 
     def __post_init__(self) -> None:
         if self.vy_mps is None:
@@ -154,7 +157,7 @@ class Estimator:
         self.counters: dict[str, int] = {s.name.lower(): 0 for s in SampleStatus}
         self.last_slip = SlipStep()  # slip outcome of the last accepted sample (none yet: all clear)
         # online self-calibration (None unless online_calibration.enabled); ``online.step`` per accepted sample
-        self.online = OnlineCalibrator(settings) if supported(settings) else None
+        self.online = OnlineCalibrator(settings) if supported(settings) and self._table is None else None
         self.reset(start_pose, start_cov)
 
     # -- state ---------------------------------------------------------------------------------
@@ -187,6 +190,11 @@ class Estimator:
         return np.array([[t00, t01], [t01, t11]])
 
     @property
+    def online_table(self) -> TableOnlineCalibrator | None:
+        """Wheel tables with online_calibration.enabled: the streaming table estimate (else None)."""
+        return None if self._table is None else self._table.online
+
+    @property
     def vy_mps(self) -> float:
         """Lateral speed (m/s, base frame); 0 for differential drive."""
         return 0.0 if self._table is None else self._table.vy_mps
@@ -198,7 +206,7 @@ class Estimator:
         self._tracker = TravelTracker(settings)
         self._slip = SlipMonitor(settings)
         self._table = TableStepper(settings) if settings.drive.kind != "differential" else None
-        if not supported(settings):
+        if not supported(settings) or self._table is not None:   # tables: TableStepper.online
             self.online = None
         elif self.online is None or settings.online_calibration != old:
             self.online = OnlineCalibrator(settings)

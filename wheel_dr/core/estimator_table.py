@@ -20,6 +20,8 @@ import numpy as np
 from .drive.base import body_to_odom_noise, body_to_odom_noise_floats, integrate_body, odom_increment_floats
 from .motion import wrap_angle
 from .noise import UNOBSERVED_VARIANCE, propagate_covariance, propagate_step_floats
+from .online_calibration import supported
+from .online_table import TableOnlineCalibrator, run_series
 from .settings import Settings
 from .slip_table import TableSlipMonitor, detect_slip_table
 from .wheels import SampleStatus, Travel, TravelTracker, count_statuses
@@ -57,9 +59,12 @@ def run_table(travel: Travel, settings: Settings, start_pose: Sequence[float] = 
     safe_dt = np.where(moving, travel.dt_s, 1.0)
     vel = np.where(moving[:, None], tau / safe_dt[:, None], 0.0)
     twist_cov = np.where(moving[:, None, None], cov_b / (safe_dt * safe_dt)[:, None, None], UNOBSERVED_TWIST3)
+    online = None
+    if gyro_z_radps is not None and supported(settings):
+        online = run_series(model, travel, gyro_z_radps, slip.slip, settings)
     return Trajectory(travel.index, travel.stamp_ns, x, y, wrap_angle(theta), theta, cov, vel[:, 0], vel[:, 2],
                       twist_cov, travel.status, travel, slip, count_statuses(travel.status), step_noise=q,
-                      vy_mps=vel[:, 1])
+                      vy_mps=vel[:, 1], online_table=online)
 
 
 class TableStepper:
@@ -72,6 +77,8 @@ class TableStepper:
         self.slip = TableSlipMonitor(self.model, settings)
         self.twist6 = _UNOBSERVED_TWIST3_FLOATS
         self.vy_mps = 0.0
+        # online self-calibration of the table (online_calibration.enabled), stepped at the end of ``step``
+        self.online = TableOnlineCalibrator(settings) if supported(settings) else None
 
     def reset_twist(self) -> None:
         self.twist6 = _UNOBSERVED_TWIST3_FLOATS
@@ -107,4 +114,6 @@ class TableStepper:
             est.v_mps, est.w_radps, self.vy_mps = bx / dt, bt / dt, by / dt
             dt2 = dt * dt
             self.twist6 = tuple(v / dt2 for v in c6)
+        if self.online is not None:
+            self.online.step(tracker.last_stamp_ns, restart, dt, spin, steer, gyro_z_radps, slip.slip)
         return slip

@@ -82,18 +82,16 @@ GEOMETRY_LABEL = "wheel_dr_geometry:" + ",".join(GEOMETRY_FIELDS)
 
 
 def unsupported_reason(settings: Settings) -> str | None:
-    """Why online calibration cannot run with these settings (None: it can). It covers the differential
-    and skid-steer model; a wheel table (``drive.kind`` other than 'differential') is not covered yet."""
-    drive = getattr(settings, "drive", None)
-    kind = getattr(drive, "kind", "differential") if drive is not None else "differential"
-    if kind != "differential":
-        return (f"online calibration covers differential drive only; drive.kind is '{kind}', so it is not run "
-                "(set online_calibration.enabled to false to silence this)")
+    """Why online calibration cannot run with these settings (None: it can). Differential and
+    skid-steer drive run here (``OnlineCalibrator``); a wheel table (``drive.kind`` other than
+    'differential') runs in ``online_table`` (``TableOnlineCalibrator``). Without a gyro nothing runs:
+    the callers say so (a run or node without IMU readings)."""
     return None
 
 
 def supported(settings: Settings) -> bool:
-    """True when ``online_calibration.enabled`` and the drive kind is covered (``unsupported_reason``)."""
+    """True when ``online_calibration.enabled`` and the drive kind is covered (``unsupported_reason``);
+    for a wheel table the estimator is ``online_table.TableOnlineCalibrator``, not ``OnlineCalibrator``."""
     return settings.online_calibration.enabled and unsupported_reason(settings) is None
 
 

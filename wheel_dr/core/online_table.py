@@ -21,8 +21,9 @@ direction whose standard error is below ``OBSERVABLE_SE`` is a combination the g
 rest are not (for every kind, scaling all radii and positions together turns the same heading: the
 scale needs a distance source). Each observable combination is reported with its estimate and
 standard error, and alerts like the differential drive's (beyond ``alert_pct`` and 4 standard
-errors). No forgetting: the estimate is over the whole run. The streaming form follows the
-drive-table wiring of the estimator. Advisory, not a safety function (``wheel_dr.safety``).
+errors). No forgetting: the estimate is over the whole run. ``TableOnlineCalibrator`` is the streaming form (the node,
+one interval's numpy work when it closes), ``online_table_series`` the course over a run (replay's
+geometry_online_table.csv). Advisory, not a safety function (``wheel_dr.safety``).
 """
 from __future__ import annotations
 
@@ -33,7 +34,8 @@ import numpy as np
 from .drive.table import WheelTable
 from .slip import MAX_GYRO_RADPS
 
-__all__ = ["TableCombination", "TableOnlineResult", "table_parameters", "heading_jacobian", "online_table",
+__all__ = ["TableCombination", "TableOnlineResult", "TableOnlineSeries", "TableOnlineCalibrator", "table_parameters",
+           "heading_jacobian", "online_table", "online_table_series",
            "OBSERVABLE_SE"]
 
 OBSERVABLE_SE = 0.01        # a combination with a standard error below 1 % (relative units) is observed
@@ -109,27 +111,39 @@ def _copy(table: WheelTable, x=None, y=None, offset=None) -> WheelTable:
                       k_wheels=table.k, steer_sd_rad=table.steer_sd_rad)
 
 
-def heading_jacobian(table: WheelTable, spin_m: np.ndarray, steer_rad: np.ndarray | None) -> tuple[np.ndarray, np.ndarray]:
-    """(dtheta0 (M,), J (M, P)): the table's heading increments and their derivatives in the parameters."""
-    spin = np.asarray(spin_m, dtype=np.float64).reshape(-1, int(table.spin.sum()))
-    dth0 = table.increment(spin, steer_rad)[:, 2]
-    jac = table.jacobian(spin, steer_rad)[:, 2, :]                  # d dtheta / d spin travel (M, E)
+def _perturbed(table: WheelTable) -> list[tuple[WheelTable, WheelTable, float] | None]:
+    """Per parameter: None for a radius, else the (up, down) copies of the table and the step in relative units."""
     size = _size(table)
-    cols = []
-    enc = list(np.flatnonzero(table.spin))
+    out: list[tuple[WheelTable, WheelTable, float] | None] = []
     for kind, i in _params(table):
         if kind == "radius":
-            e = enc.index(i)
-            cols.append(jac[:, e] * spin[:, e])
+            out.append(None)
             continue
         arr = {"x": table.x, "y": table.y, "offset": table.offset}[kind]
         up, dn = arr.copy(), arr.copy()
         up[i] += _FD_M
         dn[i] -= _FD_M
-        a = _copy(table, **{kind: up}).increment(spin, steer_rad)[:, 2]
-        b = _copy(table, **{kind: dn}).increment(spin, steer_rad)[:, 2]
         step = 2.0 * _FD_M / (size if kind in ("x", "y") else 1.0)
-        cols.append((a - b) / step)
+        out.append((_copy(table, **{kind: up}), _copy(table, **{kind: dn}), step))
+    return out
+
+
+def heading_jacobian(table: WheelTable, spin_m: np.ndarray, steer_rad: np.ndarray | None,
+                     perturbed: list | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """(dtheta0 (M,), J (M, P)): the table's heading increments and their derivatives in the parameters
+    (``perturbed``: the table's copies from ``_perturbed``, built once by a streaming caller)."""
+    spin = np.asarray(spin_m, dtype=np.float64).reshape(-1, int(table.spin.sum()))
+    dth0 = table.increment(spin, steer_rad)[:, 2]
+    jac = table.jacobian(spin, steer_rad)[:, 2, :]                  # d dtheta / d spin travel (M, E)
+    cols = []
+    enc = list(np.flatnonzero(table.spin))
+    for (kind, i), pert in zip(_params(table), perturbed if perturbed is not None else _perturbed(table)):
+        if pert is None:
+            e = enc.index(i)
+            cols.append(jac[:, e] * spin[:, e])
+            continue
+        up, dn, step = pert
+        cols.append((up.increment(spin, steer_rad)[:, 2] - dn.increment(spin, steer_rad)[:, 2]) / step)
     return dth0, np.column_stack(cols)
 
 
@@ -138,37 +152,56 @@ def _text(names: tuple[str, ...], v: np.ndarray) -> str:
     return " ".join(parts).lstrip("+") if parts else "-"
 
 
-def online_table(table: WheelTable, stamp_ns: np.ndarray, dt_s: np.ndarray, spin_m: np.ndarray,
-                 steer_rad: np.ndarray | None, gyro_z_radps: np.ndarray, slip_flags: np.ndarray | None,
-                 gyro_noise_radps: float, interval_s: float = 0.1, alert_pct: float = 0.5,
-                 prior_bias_radps: float = 0.05) -> TableOnlineResult:
-    """Batch form over a run of accepted samples (see the module docstring)."""
-    names = table_parameters(table)
+def _sums(stamp_ns, dt_s, spin_m, steer_rad, gyro_z_radps, slip_flags, restart, interval_ns: int):
+    """Per interval of the samples given (consecutive stamps in one ``interval_ns`` bin), over its
+    samples with a gyro reading and a step (no restart): the spin travel sums (K, E), the steering
+    sums (K, T) or None, the count, the time, the gyro heading (sum w_z dt), the sum of dt^2; and per
+    interval a slip flag and the stamp of its last sample."""
     dt = np.asarray(dt_s, dtype=np.float64)
     g = np.asarray(gyro_z_radps, dtype=np.float64)
     ok = (np.abs(g) <= MAX_GYRO_RADPS) & (dt > 0)
+    if restart is not None:
+        ok &= ~np.asarray(restart, dtype=bool)
     flags = np.zeros(len(dt), dtype=bool) if slip_flags is None else np.asarray(slip_flags, dtype=bool)
-    dth0, jac = heading_jacobian(table, spin_m, steer_rad)
-    var = table.increment_covariance(spin_m, steer_rad)[:, 2, 2] + gyro_noise_radps ** 2 * dt * dt
-    bins = np.asarray(stamp_ns, dtype=np.int64) // max(1, int(round(interval_s * 1e9)))
+    stamp = np.asarray(stamp_ns, dtype=np.int64)
+    bins = stamp // interval_ns
     starts = np.flatnonzero(np.concatenate(([True], bins[1:] != bins[:-1])))
     z = np.where(ok, 1.0, 0.0)
+    spin = np.asarray(spin_m, dtype=np.float64).reshape(len(dt), -1)
 
     def per(a: np.ndarray) -> np.ndarray:
-        return np.add.reduceat(a * (z if a.ndim == 1 else z[:, None]), starts, axis=0)
+        a = np.where(ok if a.ndim == 1 else ok[:, None], a, 0.0)
+        return np.add.reduceat(a, starts, axis=0)
 
-    y = per(np.where(ok, g, 0.0) * dt - dth0)
-    x = np.column_stack([per(jac), per(dt)])
-    v = per(var)
+    steer = None if steer_rad is None else per(np.asarray(steer_rad, dtype=np.float64).reshape(len(dt), -1))
     bad = np.add.reduceat(flags.astype(np.int64), starts) > 0
-    use = ~bad & ~np.roll(bad, 1) & ~np.roll(bad, -1) & (v > 0) & (x[:, -1] > 0)
-    w = 1.0 / np.where(use, v, 1.0)
-    xw = x[use] * w[use, None]
-    a = x[use].T @ xw
-    b = xw.T @ y[use]
+    last = stamp[np.concatenate((starts[1:], [len(stamp)])) - 1]
+    return per(spin), steer, per(z), per(dt), per(g * dt), per(dt * dt), bad, last
+
+
+def _rows(table: WheelTable, perturbed: list, spin, steer, count, time, gyro, dt2, gyro_noise_radps: float):
+    """The intervals' design rows x (K, P+1) (heading Jacobian at the interval's summed spin travel and
+    mean steering, then the time for the bias), the gyro-minus-table headings y (K,) and their
+    variances v (K,)."""
+    mean_steer = None if steer is None else steer / np.maximum(count, 1.0)[:, None]
+    dth0, jac = heading_jacobian(table, spin, mean_steer, perturbed)
+    var = table.increment_covariance(spin, mean_steer)[:, 2, 2] + gyro_noise_radps ** 2 * dt2
+    return np.column_stack([jac, time]), gyro - dth0, var
+
+
+def _use(bad: np.ndarray, v: np.ndarray, x: np.ndarray, next_bad_after_last: bool = False) -> np.ndarray:
+    """Intervals that enter the estimate: no slip flag in it or its neighbours, a gyro reading in it."""
+    prev = np.concatenate(([False], bad[:-1]))
+    nxt = np.concatenate((bad[1:], [next_bad_after_last]))
+    return ~bad & ~prev & ~nxt & (v > 0) & (x[:, -1] > 0)
+
+
+def _solve(names: tuple[str, ...], a: np.ndarray, b: np.ndarray, used: int, alert_pct: float,
+           prior_bias_radps: float) -> TableOnlineResult:
+    """The bias eliminated (Schur complement), the geometry information split by its eigenvectors."""
+    a = a.copy()
     p = len(names)
     a[p, p] += 1.0 / prior_bias_radps ** 2
-    # eliminate the bias (Schur complement), split the geometry information by its eigenvectors
     agb, abb = a[:p, p], a[p, p]
     s = a[:p, :p] - np.outer(agb, agb) / abb
     r = b[:p] - agb * b[p] / abb
@@ -186,5 +219,202 @@ def online_table(table: WheelTable, stamp_ns: np.ndarray, dt_s: np.ndarray, spin
         else:
             unobserved.append(TableCombination(u, 0.0, se, False, _text(names, u)))
     bias = float((b[p] - agb @ delta) / abb)
-    return TableOnlineResult(names, observed, unobserved, bias, float(1.0 / np.sqrt(abb)), int(use.sum()),
+    return TableOnlineResult(names, observed, unobserved, bias, float(1.0 / np.sqrt(abb)), int(used),
                              any(c.alert for c in observed), delta)
+
+
+def online_table(table: WheelTable, stamp_ns: np.ndarray, dt_s: np.ndarray, spin_m: np.ndarray,
+                 steer_rad: np.ndarray | None, gyro_z_radps: np.ndarray, slip_flags: np.ndarray | None,
+                 gyro_noise_radps: float, interval_s: float = 0.1, alert_pct: float = 0.5,
+                 prior_bias_radps: float = 0.05, restart: np.ndarray | None = None) -> TableOnlineResult:
+    """Batch form over a run of accepted samples (see the module docstring); samples at a chain
+    restart (``restart``) are left out."""
+    return _batch(table, stamp_ns, dt_s, spin_m, steer_rad, gyro_z_radps, slip_flags, gyro_noise_radps,
+                  interval_s, alert_pct, prior_bias_radps, restart)[0]
+
+
+def _batch(table, stamp_ns, dt_s, spin_m, steer_rad, gyro_z_radps, slip_flags, gyro_noise_radps, interval_s,
+           alert_pct, prior_bias_radps, restart):
+    names = table_parameters(table)
+    *sums, bad, last = _sums(stamp_ns, dt_s, spin_m, steer_rad, gyro_z_radps, slip_flags, restart,
+                             max(1, int(round(interval_s * 1e9))))
+    x, y, v = _rows(table, _perturbed(table), *sums, gyro_noise_radps)
+    use = _use(bad, v, x)
+    w = np.where(use, 1.0 / np.where(use, v, 1.0), 0.0)
+    xw = x * w[:, None]
+    res = _solve(names, x.T @ xw, xw.T @ y, int(use.sum()), alert_pct, prior_bias_radps)
+    return res, (x, y, w, last)
+
+
+def _config(settings) -> dict:
+    o = settings.online_calibration
+    return {"gyro_noise_radps": settings.slip.gyro_noise_radps, "interval_s": o.interval_s, "alert_pct": o.alert_pct,
+            "prior_bias_radps": o.prior_bias_radps}
+
+
+@dataclass
+class TableOnlineSeries:
+    """The table estimate over a run (``online_table_series``): per closed interval (K rows) the
+    estimates of the run's final observed combinations from the data up to it (the directions the
+    gyro does not observe held at the configured geometry), their standard errors and alerts."""
+
+    stamp_ns: np.ndarray            # (K,) stamp of each interval's last sample
+    estimate: np.ndarray            # (K, C) relative change along each final observed combination
+    se: np.ndarray                  # (K, C) its standard error (NaN while not yet determined)
+    alert: np.ndarray               # (K, C) bool
+    final: TableOnlineResult
+
+    def __len__(self) -> int:
+        return len(self.stamp_ns)
+
+    @property
+    def texts(self) -> tuple[str, ...]:
+        return tuple(c.text for c in self.final.observed)
+
+
+def online_table_series(table: WheelTable, stamp_ns, dt_s, spin_m, steer_rad, gyro_z_radps, slip_flags,
+                        gyro_noise_radps: float, interval_s: float = 0.1, alert_pct: float = 0.5,
+                        prior_bias_radps: float = 0.05, restart=None) -> TableOnlineSeries:
+    """``online_table`` plus the estimate's course (``TableOnlineSeries``); the last row equals the result."""
+    res, (x, y, w, last) = _batch(table, stamp_ns, dt_s, spin_m, steer_rad, gyro_z_radps, slip_flags,
+                                  gyro_noise_radps, interval_s, alert_pct, prior_bias_radps, restart)
+    p, c, k = len(res.names), len(res.observed), len(last)
+    if c == 0 or k == 0:
+        empty = np.zeros((k, c))
+        return TableOnlineSeries(last, empty, empty + np.nan, empty.astype(bool), res)
+    u = np.column_stack([o.vector for o in res.observed])                       # (P, C)
+    xz = np.column_stack([x[:, :p] @ u, x[:, p]])                                # (K, C+1)
+    az = np.cumsum(xz[:, :, None] * xz[:, None, :] * w[:, None, None], axis=0)
+    bz = np.cumsum(xz * (w * y)[:, None], axis=0)
+    az[:, c, c] += 1.0 / prior_bias_radps ** 2
+    agb, abb = az[:, :c, c], az[:, c, c]
+    s = az[:, :c, :c] - agb[:, :, None] * agb[:, None, :] / abb[:, None, None]
+    r = bz[:, :c] - agb * (bz[:, c] / abb)[:, None]
+    lam = np.linalg.eigvalsh(0.5 * (s + np.swapaxes(s, 1, 2)))
+    ok = lam[:, 0] > 1e-9 * np.maximum(lam[:, -1], 1e-300)
+    est = np.full((k, c), np.nan)
+    se = np.full((k, c), np.nan)
+    if ok.any():
+        inv = np.linalg.inv(s[ok])
+        est[ok] = np.einsum("kij,kj->ki", inv, r[ok])
+        se[ok] = np.sqrt(np.maximum(np.diagonal(inv, axis1=1, axis2=2), 0.0))
+    limit = alert_pct * 0.01
+    with np.errstate(invalid="ignore"):
+        alert = ok[:, None] & (np.abs(est) > limit) & (np.abs(est) > 4.0 * se)
+    return TableOnlineSeries(last, est, se, alert, res)
+
+
+def run_series(table: WheelTable, travel, gyro_z_radps, slip_flags, settings) -> TableOnlineSeries:
+    """``online_table_series`` over a run's Travel with the settings' online_calibration values."""
+    return online_table_series(table, travel.stamp_ns, travel.dt_s, travel.joint_travel_m, travel.steer_rad,
+                               gyro_z_radps, slip_flags, restart=travel.restart, **_config(settings))
+
+
+class TableOnlineCalibrator:
+    """Streaming form of ``online_table`` for the node: ``step`` per accepted sample adds to the open
+    interval's sums (floats); when an interval closes (a stamp in the next one) its row is formed
+    (numpy, once per interval) and, once the next interval's slip flag is known, added to the sums.
+    ``result()`` does the eigen split; it equals ``online_table`` over the same samples."""
+
+    def __init__(self, settings) -> None:
+        self.table = settings.drive_model()
+        cfg = _config(settings)
+        self.gyro_noise = cfg["gyro_noise_radps"]
+        self.interval_ns = max(1, int(round(cfg["interval_s"] * 1e9)))
+        self.alert_pct, self.prior_bias = cfg["alert_pct"], cfg["prior_bias_radps"]
+        self.names = table_parameters(self.table)
+        self._pert = _perturbed(self.table)
+        self._params = _params(self.table)
+        self._enc = list(np.flatnonzero(self.table.spin))
+        n = len(self.names) + 1
+        self._a = np.zeros((n, n))
+        self._b = np.zeros(n)
+        self._used = 0
+        self._bin: int | None = None
+        self._n_e, self._n_t = int(self.table.spin.sum()), int(self.table.steered.sum())
+        self._clear()
+        self._pending = None          # (row, prev_bad) of the last closed interval, waiting for its successor
+        self.intervals = 0            # intervals closed so far
+
+    def _clear(self) -> None:
+        self._spin = [0.0] * self._n_e
+        self._steer = [0.0] * self._n_t
+        self._count = self._time = self._gyro = self._dt2 = 0.0
+        self._bad = False
+        self._open = False
+
+    def step(self, stamp_ns: int, restart: bool, dt_s: float, spin, steer, gyro_z_radps: float | None,
+             slipping: bool) -> None:
+        """One accepted sample: its spin travel (E, m), steering readings (T, rad; None without steered
+        wheels), gyro z rate (None: no reading) and slip flag. Floats only, unless an interval closes."""
+        b = stamp_ns // self.interval_ns
+        if b != self._bin:
+            if self._open:
+                self._close()
+            self._bin = b
+        self._open = True
+        if slipping:
+            self._bad = True
+        if restart or not dt_s > 0 or gyro_z_radps is None or not abs(gyro_z_radps) <= MAX_GYRO_RADPS:
+            return
+        acc = self._spin
+        for i, v in enumerate(spin):
+            acc[i] += v
+        if self._n_t:
+            acc = self._steer
+            for i, v in enumerate(steer):
+                acc[i] += v
+        self._count += 1.0
+        self._time += dt_s
+        self._gyro += gyro_z_radps * dt_s
+        self._dt2 += dt_s * dt_s
+
+    def _row(self):
+        """The open interval's row as ``_rows`` forms it, with the table's float path (``step_floats``)
+        for the increments and one numpy call for the spin Jacobian."""
+        sp = self._spin
+        st = [v / max(self._count, 1.0) for v in self._steer] if self._n_t else None
+        _, _, dth0, c6, _ = self.table.step_floats(sp, st)
+        jac = self.table.jacobian(np.array([sp]), None if st is None else np.array([st]))[0, 2, :]
+        cols = []
+        for (kind, i), pert in zip(self._params, self._pert):
+            if pert is None:
+                e = self._enc.index(i)
+                cols.append(jac[e] * sp[e])
+            else:
+                up, dn, step = pert
+                cols.append((up.step_floats(sp, st)[2] - dn.step_floats(sp, st)[2]) / step)
+        cols.append(self._time)
+        return np.array(cols), self._gyro - dth0, c6[5] + self.gyro_noise ** 2 * self._dt2, self._bad
+
+    def _add(self, a, b, row, prev_bad: bool, next_bad: bool) -> int:
+        x, y, v, bad = row
+        if bad or prev_bad or next_bad or not (v > 0) or not (x[-1] > 0):
+            return 0
+        w = 1.0 / v
+        a += np.outer(x, x) * w
+        b += x * (w * y)
+        return 1
+
+    def _close(self) -> None:
+        row = self._row()
+        self._clear()
+        self.intervals += 1
+        if self._pending is not None:
+            prow, pprev = self._pending
+            self._used += self._add(self._a, self._b, prow, pprev, row[3])
+            self._pending = (row, prow[3])
+        else:
+            self._pending = (row, False)
+
+    def result(self) -> TableOnlineResult:
+        """The estimate over every sample so far (the open interval included)."""
+        a, b, used = self._a.copy(), self._b.copy(), self._used
+        rows = [] if self._pending is None else [self._pending]
+        if self._open:
+            row = self._row()
+            rows.append((row, rows[-1][0][3] if rows else False))
+        for i, (row, prev_bad) in enumerate(rows):
+            nxt = rows[i + 1][0][3] if i + 1 < len(rows) else False
+            used += self._add(a, b, row, prev_bad, nxt)
+        return _solve(self.names, a, b, used, self.alert_pct, self.prior_bias)
