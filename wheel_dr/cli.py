@@ -105,6 +105,22 @@ def write_geometry_csv(path: Path, online) -> None:
     _atomic_bytes(path, (",".join(GEOMETRY_COLUMNS) + "\n").encode() + body)
 
 
+def write_geometry_table_csv(path: Path, series) -> None:
+    """DIR/geometry_online_table.csv (wheel tables): header row, then one row per online-calibration
+    interval: t in seconds (stamp of the interval's last sample), then per combination k = 1..C the
+    gyro observes (``TableOnlineSeries``; its text is in the header comment line) c<k> (relative change
+    along it), c<k>_se and c<k>_alert (0 or 1); nan while not yet determined."""
+    from .bags.textout import flag_field, float_field, join_fields, stamp_field
+    c = len(series.texts)
+    cols = ["t"] + [f"c{k + 1}{sfx}" for k in range(c) for sfx in ("", "_se", "_alert")]
+    fields = [stamp_field(series.stamp_ns)]
+    for k in range(c):
+        fields += [float_field(series.estimate[:, k]), float_field(series.se[:, k]), flag_field(series.alert[:, k])]
+    head = "".join(f"# c{k + 1} = {t}\n" for k, t in enumerate(series.texts)) + ",".join(cols) + "\n"
+    body = join_fields(fields) if len(series) else b""
+    _atomic_bytes(path, head.encode() + body)
+
+
 def _out_dir(path: str | None, default: str) -> Path:
     out = Path(path or default)
     if out.exists() and not out.is_dir():
@@ -118,6 +134,23 @@ def _say(text: str = "") -> None:
 
 
 # -- synth ---------------------------------------------------------------------------------------
+def _replay_table_online(out: Path, traj, settings) -> None:
+    series = traj.online_table
+    if series is None:
+        _say("online calibration: enabled, but the bag has no IMU readings (the gyro observes the geometry); "
+             "no geometry_online_table.csv written")
+        return
+    write_geometry_table_csv(out / "geometry_online_table.csv", series)
+    res = series.final
+    for k, c in enumerate(res.observed):
+        _say(f"online calibration c{k + 1} = {c.text}: {100 * c.estimate:+.3f} % +- {100 * c.se:.3f} %"
+             + (" (alert)" if c.alert else ""))
+    _say(f"online calibration: {len(res.observed)} combinations observed by the gyro from {res.intervals_used} "
+         f"intervals, {len(res.unobserved)} not (the scale needs a distance source); alert "
+         f"{'on' if res.alert else 'off'}")
+    _say(f"wrote {out / 'geometry_online_table.csv'}")
+
+
 def _scenario(args: argparse.Namespace):
     from . import sim
     from .demo import scenarios
@@ -234,6 +267,8 @@ def _cmd_replay(args: argparse.Namespace) -> int:
         why = unsupported_reason(res.settings)
         if why is not None:
             _say(f"online calibration: {why}; no geometry_online.csv written")
+        elif res.settings.drive.kind != "differential":
+            _replay_table_online(out, traj, res.settings)
         elif online is None:
             _say("online calibration: enabled, but the bag has no IMU readings (the gyro observes the geometry); "
                  "no geometry_online.csv written")
