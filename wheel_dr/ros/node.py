@@ -486,6 +486,9 @@ class OdometryNode:
         from ..params import atomic_write_text, update_params_text
         with self.lock:
             online = self.estimator.online
+            if online is None and self.estimator.online_table is not None:
+                return False, ("saving the geometry is not available for wheel tables yet; the observed "
+                               "combinations and their estimates are in /diagnostics (online.table.*).")
             if online is None:
                 return False, ("online_calibration.enabled is false, so there is no estimate to save; set it to "
                                "true (with an IMU on the imu topic) and drive.")
@@ -656,6 +659,8 @@ class OdometryNode:
             if online is not None:
                 geometry = (online.values(), online.status_ratio, online.status_track, online.dev_ratio,
                             online.dev_track)
+            table_online = self.estimator.online_table
+            table_result = table_online.result() if table_online is not None else None
         latency = self._latency.summarize(latency_ns)
         elapsed = max(now - self._period_start, 1e-9)
         self._period_start = now
@@ -695,9 +700,24 @@ class OdometryNode:
             **{f"param.{k}": v for k, v in settings.to_flat().items()},
         }
         problems = []
-        if geometry is None and settings.online_calibration.enabled:
+        if geometry is None and table_result is None and settings.online_calibration.enabled:
             from ..core.online_calibration import unsupported_reason
             values["online.status"] = unsupported_reason(settings) or "waiting"
+        if table_result is not None:   # wheel tables: the combinations the gyro observes (core.online_table)
+            values.update({"online.status": "running (wheel table)" if self.imu_received else "waiting for the imu",
+                           "online.table.combinations": len(table_result.observed),
+                           "online.table.unobserved": len(table_result.unobserved),
+                           "online.table.intervals_used": table_result.intervals_used,
+                           "online.table.gyro_bias_radps": table_result.gyro_bias_radps,
+                           "online.table.gyro_bias_se_radps": table_result.gyro_bias_se_radps,
+                           "online.alert": bool(table_result.alert)})
+            for k, c in enumerate(table_result.observed, start=1):
+                values.update({f"online.table.c{k}": c.text, f"online.table.c{k}_estimate": c.estimate,
+                               f"online.table.c{k}_se": c.se, f"online.table.c{k}_alert": bool(c.alert)})
+            if table_result.alert:
+                what = [f"c{k} ({c.text}) {100 * c.estimate:+.2f} % +- {100 * c.se:.2f} %"
+                        for k, c in enumerate(table_result.observed, start=1) if c.alert]
+                problems.append("geometry alert: " + " and ".join(what) + " departs from the configured wheel table")
         if geometry is not None:
             from ..core.online_calibration import GEOMETRY_FIELDS
             gv, st_ratio, st_track, dev_ratio, dev_track = geometry
