@@ -13,8 +13,10 @@ sec. 9.2). The geometry parameters are each encoder wheel's radius (relative cha
 each steered wheel's steering offset (rad); the last two by central differences of the table's own
 solution (a copy of the table as kind 'custom', so a perturbed axle need not stay straight).
 
-Samples are summed over intervals of ``online_calibration.interval_s``; intervals with a slip flag
-or without a gyro reading are left out; each is weighted by its residual variance (gyro white noise
+Samples are summed over intervals of ``online_calibration.interval_s`` (spin travel, steering
+readings, time, gyro heading; samples without a gyro reading or at a chain restart are left out) and
+the table is linearised once per interval, at its summed travel and mean steering; intervals with a
+slip flag, and their neighbours, are left out; each is weighted by its residual variance (gyro white noise
 plus the table's heading-increment variance, ``WheelTable.increment_covariance``). The bias is
 eliminated (Schur complement) and the geometry information is split by its eigenvectors: a
 direction whose standard error is below ``OBSERVABLE_SE`` is a combination the gyro observes, the
