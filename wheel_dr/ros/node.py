@@ -487,8 +487,8 @@ class OdometryNode:
         with self.lock:
             online = self.estimator.online
             if online is None and self.estimator.online_table is not None:
-                return False, ("saving the geometry is not available for wheel tables yet; the observed "
-                               "combinations and their estimates are in /diagnostics (online.table.*).")
+                table_online = self.estimator.online_table
+                return self._save_table_geometry(table_online.result(), table_online.table)
             if online is None:
                 return False, ("online_calibration.enabled is false, so there is no estimate to save; set it to "
                                "true (with an IMU on the imu topic) and drive.")
@@ -522,6 +522,44 @@ class OdometryNode:
         atomic_write_text(target, update_params_text(text, values, header))
         return True, (f"wrote {target} (left radius {values['wheels.left_radius']} m, right radius "
                       f"{values['wheels.right_radius']} m, track {values['wheels.track_width']} m; {status})")
+
+    def _save_table_geometry(self, res, table) -> tuple[bool, str]:
+        """``save_geometry`` for a wheel table: the table moved along its observed combinations
+        (``TableOnlineResult.suggested``), as drive.* arrays, beside the running file."""
+        import datetime as _dt
+        from pathlib import Path
+
+        from ..calibrate_cmd import default_params_text
+        from ..params import atomic_write_text, update_params_text
+        if not res.observed:
+            return False, ("the gyro observes no combination of the wheel table yet (too little driving or turning); "
+                           "drive with turns and try again.")
+        keys = ["drive.wheel_radius", "drive.wheel_x", "drive.wheel_y"]
+        if table.steered.any():
+            keys.append("drive.steer_offset")
+        sugg = res.suggested(table)
+        values = {k: [round(float(v), 6) for v in sugg[k]] for k in keys}
+        running = self.params_files[-1] if self.params_files else None
+        if running is not None:
+            src = Path(running)
+            text = src.read_text(encoding="utf-8")
+            target = src.with_name(f"{src.stem}_geometry.yaml")
+            label = str(src)
+        else:
+            text = default_params_text()
+            target = Path.cwd() / "wheel_dr_geometry.yaml"
+            label = "config/wheel_dr.yaml defaults"
+        when = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+        lines = [f"c{k} = {c.text}: {100 * c.estimate:+.3f} % +- {100 * c.se:.3f} %" + (" (alert)" if c.alert else "")
+                 for k, c in enumerate(res.observed, start=1)]
+        header = "\n".join([
+            f"description: Wheel table suggested by the wheel_dr node's online self-calibration on {when} from {label}.",
+            f"Online self-calibration on {when}, starting from {label} (every other value is as there).",
+            "The table is moved along the combinations the gyro observes only; the scale (all radii and "
+            "positions together) is kept as configured."] + lines + [SAFETY_TEXT])
+        atomic_write_text(target, update_params_text(text, values, header))
+        return True, (f"wrote {target} (wheel table moved along {len(res.observed)} observed combinations; "
+                      f"alert {'on' if res.alert else 'off'})")
 
     def _apply_geometry(self) -> None:
         """online_calibration.apply: while the alert holds, take the suggested geometry as the running one."""
