@@ -125,3 +125,89 @@ def test_replay_writes_geometry_online_table_csv(tmp_path, capsys):
     out2 = tmp_path / "off"
     assert main(["replay", str(bag), "--params", str(tmp_path / "numbat.params.yaml"), "--out", str(out2)]) == 0
     assert not (out2 / "geometry_online_table.csv").exists()
+
+
+def test_node_reports_the_table_alert_and_saves_a_table_that_loads(tmp_path, ros_env):
+    """The node as a real process over real DDS (pattern of test_node_online.py): the mecanum drive
+    with the 1.5 % smaller front-left tyre, published ten times faster than its stamps (the node
+    goes by the stamps), gives a WARN with the table's alert in /diagnostics, the same combinations
+    as the core's batch run over the same samples (equal within a standard error: the node may miss
+    a message, common practice), and ~/save_geometry writes a parameters file that loads and moves
+    the changed wheel's radius down."""
+    import time
+
+    from std_srvs.srv import Trigger
+
+    from test_node import Probe, _wait
+    from test_node_online import _stop
+    from wheel_dr.demo.vehicles import params_text
+    from wheel_dr.params import load_settings
+
+    ns, js_topic = "/numbat_online", "/online_js"
+    sc = table_scenario("mecanum", slip=True)
+    nom = sc.nominal_table
+    r = nom.radius.copy()
+    i = list(nom.wheel_joints).index(CHANGED["mecanum"])
+    r[i] *= 1.0 - 0.015
+    true = WheelTable(nom.kind, nom.wheel_joints, nom.x, nom.y, r, roller_angle=nom.roller, k_wheels=nom.k)
+    sim = simulate_table(sc.with_values(table=true), seed=1)
+    params = tmp_path / "numbat.yaml"
+    params.write_text(params_text("mecanum") + "    slip:\n      gyro_noise_radps: 0.004\n    output:\n"
+                      "      diagnostics_period_s: 0.2\n    online_calibration:\n      enabled: true\n",
+                      encoding="utf-8")
+    batch = run(sim.joint_samples(), load_settings(params), gyro_z_radps=sim.gyro_z_radps).online_table.final
+    assert batch.alert
+    proc = _start_ns(params, tmp_path / "node.log", ros_env, ns, js_topic)
+    probe = Probe(ns=ns, js_topic=js_topic)
+    names = list(sim.joint_names)
+    try:
+        _wait(lambda: probe.pub_js.get_subscription_count() > 0 and probe.pub_imu.get_subscription_count() > 0
+              or proc.poll() is not None, 30, "the node to subscribe")
+        assert proc.poll() is None, (tmp_path / "node.log").read_text()
+        _wait(lambda: probe.node.count_publishers(f"{ns}/odom_flags") > 0, 10, "the node's flags publisher")
+        probe.handshake(names)
+        start = time.monotonic()
+        for k in range(len(sim.stamp_ns)):
+            stamp = int(sim.stamp_ns[k])
+            imu = probe.Imu()
+            imu.header.stamp.sec, imu.header.stamp.nanosec = divmod(stamp, 1_000_000_000)
+            imu.angular_velocity.z = float(sim.gyro_z_radps[k])
+            imu.linear_acceleration_covariance[0] = -1.0
+            imu.orientation_covariance[0] = -1.0
+            probe.pub_imu.publish(imu)
+            time.sleep(0.0003)
+            probe.pub_js.publish(probe.js(stamp, names, sim.position_rad[k].tolist()))
+            delay = start + (k + 1) / 1000.0 - time.monotonic()
+            if delay > 0:
+                time.sleep(delay)
+        probe.wait_flag(int(sim.stamp_ns[-1]))
+
+        def warned():
+            with probe.lock:
+                return next((d for d in reversed(probe.diag) if d[1] == 1 and "geometry alert" in d[2]
+                             and "online.table.c1" in d[3]), None)
+        _, _, message, values = _wait(warned, 10, "a WARN diagnostics status with the table's geometry alert")
+        assert "wheel table" in message
+        assert int(values["online.table.combinations"]) == len(batch.observed)
+        node = {values[f"online.table.c{k}"]: float(values[f"online.table.c{k}_estimate"])
+                for k in range(1, len(batch.observed) + 1)}
+        hit = [c for c in batch.observed if c.alert]
+        assert hit and all(c.text in node and abs(node[c.text] - c.estimate) < c.se for c in hit)
+        response = probe.call(Trigger, f"{ns}/wheel_dr_node/save_geometry", Trigger.Request())
+        assert response.success, response.message
+        saved = tmp_path / "numbat_geometry.yaml"
+        new = load_settings(saved)
+        assert new.drive.wheel_radius[i] < nom.radius[i]
+        assert new.online_calibration.enabled and new.drive.kind == "mecanum"
+    finally:
+        _stop(proc)
+        probe.close()
+
+
+def _start_ns(params, log, env, ns, js_topic):
+    """test_node_online._start with this test's namespace and joint-state topic."""
+    import subprocess
+
+    from test_node import NODE_EXE
+    return subprocess.Popen([NODE_EXE, "--ros-args", "--params-file", str(params), "-r", f"joint_states:={js_topic}",
+                             "-r", f"__ns:={ns}"], env=env, stdout=log.open("w"), stderr=subprocess.STDOUT)
