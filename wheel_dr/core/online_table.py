@@ -8,10 +8,10 @@ geometry g (``WheelTable.increment``); the gyro reads dtheta(g_true) + bias dt +
     sum(w_z dt) - dtheta(g0) = J (g - g0) + bias T + noise,    J = d dtheta / d g at the configured g0,
 
 a linear model in the geometry change and the bias (Gauss-Newton's first step, Bjorck 1996,
-sec. 9.2). The geometry parameters are each encoder wheel's radius (relative change; the Jacobian is
-``WheelTable.jacobian`` times the travel), every wheel's position x, y (over the base's size L) and
-each steered wheel's steering offset (rad); the last two by central differences of the table's own
-solution (a copy of the table as kind 'custom', so a perturbed axle need not stay straight).
+sec. 9.2). The geometry parameters are each encoder wheel's radius (relative change: its spin travel
+scaled), every wheel's position x, y (over the base's size L) and each steered wheel's steering
+offset (rad); the derivatives by forward differences of the table's own solution (positions and
+offsets in a copy of the table as kind 'custom', so a perturbed axle need not stay straight).
 
 Samples are summed over intervals of ``online_calibration.interval_s`` (spin travel, steering
 readings, time, gyro heading; samples without a gyro reading or at a chain restart are left out) and
@@ -41,7 +41,8 @@ __all__ = ["TableCombination", "TableOnlineResult", "TableOnlineSeries", "TableO
            "OBSERVABLE_SE"]
 
 OBSERVABLE_SE = 0.01        # a combination with a standard error below 1 % (relative units) is observed
-_FD_M = 1e-6                # central-difference step for positions (m) and steering offsets (rad)
+_FD_M = 1e-5                # forward-difference step for positions (m) and steering offsets (rad)
+_FD_R = 1e-5                # forward-difference step for a radius (relative)
 _SHOWN = 0.05               # components below this are left out of a combination's text
 
 
@@ -113,39 +114,42 @@ def _copy(table: WheelTable, x=None, y=None, offset=None) -> WheelTable:
                       k_wheels=table.k, steer_sd_rad=table.steer_sd_rad)
 
 
-def _perturbed(table: WheelTable) -> list[tuple[WheelTable, WheelTable, float] | None]:
-    """Per parameter: None for a radius, else the (up, down) copies of the table and the step in relative units."""
+def _perturbed(table: WheelTable) -> list:
+    """[the table's unperturbed copy as kind 'custom'] + per parameter: None for a radius, else the
+    copy with that position (m) or steering offset (rad) moved up by ``_FD_M``, and the step in
+    relative units (forward differences against the unperturbed copy)."""
     size = _size(table)
-    out: list[tuple[WheelTable, WheelTable, float] | None] = []
+    out: list = [_copy(table)]
     for kind, i in _params(table):
         if kind == "radius":
             out.append(None)
             continue
-        arr = {"x": table.x, "y": table.y, "offset": table.offset}[kind]
-        up, dn = arr.copy(), arr.copy()
+        up = {"x": table.x, "y": table.y, "offset": table.offset}[kind].copy()
         up[i] += _FD_M
-        dn[i] -= _FD_M
-        step = 2.0 * _FD_M / (size if kind in ("x", "y") else 1.0)
-        out.append((_copy(table, **{kind: up}), _copy(table, **{kind: dn}), step))
+        out.append((_copy(table, **{kind: up}), _FD_M / (size if kind in ("x", "y") else 1.0)))
     return out
 
 
 def heading_jacobian(table: WheelTable, spin_m: np.ndarray, steer_rad: np.ndarray | None,
                      perturbed: list | None = None) -> tuple[np.ndarray, np.ndarray]:
     """(dtheta0 (M,), J (M, P)): the table's heading increments and their derivatives in the parameters
-    (``perturbed``: the table's copies from ``_perturbed``, built once by a streaming caller)."""
+    by forward differences: a radius scales its wheel's spin travel by 1 + ``_FD_R``; a position or
+    steering offset moves by ``_FD_M`` in a 'custom' copy (``perturbed``: from ``_perturbed``, built
+    once by a streaming caller)."""
     spin = np.asarray(spin_m, dtype=np.float64).reshape(-1, int(table.spin.sum()))
     dth0 = table.increment(spin, steer_rad)[:, 2]
-    jac = table.jacobian(spin, steer_rad)[:, 2, :]                  # d dtheta / d spin travel (M, E)
+    pert = perturbed if perturbed is not None else _perturbed(table)
+    base = pert[0].increment(spin, steer_rad)[:, 2]
     cols = []
     enc = list(np.flatnonzero(table.spin))
-    for (kind, i), pert in zip(_params(table), perturbed if perturbed is not None else _perturbed(table)):
-        if pert is None:
-            e = enc.index(i)
-            cols.append(jac[:, e] * spin[:, e])
+    for (kind, i), pt in zip(_params(table), pert[1:]):
+        if pt is None:
+            scaled = spin.copy()
+            scaled[:, enc.index(i)] *= 1.0 + _FD_R
+            cols.append((table.increment(scaled, steer_rad)[:, 2] - dth0) / _FD_R)
             continue
-        up, dn, step = pert
-        cols.append((up.increment(spin, steer_rad)[:, 2] - dn.increment(spin, steer_rad)[:, 2]) / step)
+        up, step = pt
+        cols.append((up.increment(spin, steer_rad)[:, 2] - base) / step)
     return dth0, np.column_stack(cols)
 
 
@@ -372,20 +376,20 @@ class TableOnlineCalibrator:
         self._dt2 += dt_s * dt_s
 
     def _row(self):
-        """The open interval's row as ``_rows`` forms it, with the table's float path (``step_floats``)
-        for the increments and one numpy call for the spin Jacobian."""
+        """The open interval's row as ``_rows`` forms it, with the table's float path (``step_floats``)."""
         sp = self._spin
         st = [v / max(self._count, 1.0) for v in self._steer] if self._n_t else None
         _, _, dth0, c6, _ = self.table.step_floats(sp, st)
-        jac = self.table.jacobian(np.array([sp]), None if st is None else np.array([st]))[0, 2, :]
+        base = self._pert[0].step_floats(sp, st)[2]
         cols = []
-        for (kind, i), pert in zip(self._params, self._pert):
-            if pert is None:
-                e = self._enc.index(i)
-                cols.append(jac[e] * sp[e])
+        for (kind, i), pt in zip(self._params, self._pert[1:]):
+            if pt is None:
+                scaled = list(sp)
+                scaled[self._enc.index(i)] *= 1.0 + _FD_R
+                cols.append((self.table.step_floats(scaled, st)[2] - dth0) / _FD_R)
             else:
-                up, dn, step = pert
-                cols.append((up.step_floats(sp, st)[2] - dn.step_floats(sp, st)[2]) / step)
+                up, step = pt
+                cols.append((up.step_floats(sp, st)[2] - base) / step)
         cols.append(self._time)
         return np.array(cols), self._gyro - dth0, c6[5] + self.gyro_noise ** 2 * self._dt2, self._bad
 
