@@ -506,63 +506,17 @@ class TableSlipMonitor:
             bias = k.bias_prior
         gi = (g - bias) * dt if avail else 0.0
 
-        # running totals (new lists each step: the window's entries keep the old ones)
-        scale = c.scale
+        # steering directions of the encoder wheels
         if not self._steer_w:
             cas, sas = c.cos0, c.sin0
         elif self._all_steered:
-            cos, sin = math.cos, math.sin
-            cas, sas = [], []
-            for _, col, a0, off in self._steer_w:
-                a = a0 + (st[col] - off)
-                cas.append(cos(a))
-                sas.append(sin(a))
+            ang = [a0 + (st[col] - off) for _, col, a0, off in self._steer_w]
+            cas, sas = list(map(math.cos, ang)), list(map(math.sin, ang))
         else:
             cas, sas = list(c.cos0), list(c.sin0)
             for i, col, a0, off in self._steer_w:
                 a = a0 + (st[col] - off)
                 cas[i], sas[i] = math.cos(a), math.sin(a)
-        tu, tw = [], []
-        for a_u, a_w, v, sc, ca, sa in zip(self._tu, self._tw, s, scale, cas, sas):
-            sc = v * sc
-            tu.append(a_u + sc * ca)
-            tw.append(a_w + sc * sa)
-        self._tu, self._tw = tu, tw
-        tr = self._tr
-        td = self._td
-        rdof = c.rdof
-        if rdof > 0:
-            r = self._zeros if (restart or resid is None) else _floats(resid, e)
-            tr = self._tr = [a + v for a, v in zip(tr, r)]
-            if rdof == 1 and avail:
-                # heading change a fault on wheel i would explain (its parity share, through the
-                # increment's covariance row): sqrt(w_i) (C R_i^T)[theta] |r|^2 / r_i
-                if restart:
-                    xt = yt = tt = 0.0
-                else:
-                    v = body_cov6[2]
-                    xt = v if (type(v) is float and v - v == 0.0) else _num(v)
-                    v = body_cov6[4]
-                    yt = v if (type(v) is float and v - v == 0.0) else _num(v)
-                    tt = var_th
-                r2 = mean_abs = 0.0
-                for ri, v in zip(r, s):
-                    r2 += ri * ri
-                    mean_abs += abs(v)
-                floor = _ROBUST * (mean_abs / e)
-                if 1e-12 > floor:
-                    floor = 1e-12
-                td = list(td)
-                sqrt = math.sqrt
-                for i, ri, v, ca, sa, (x, y, kw, asc) in zip(self._wheels, r, s, cas, sas, self._share_w):
-                    if ri != 0.0:
-                        crow = xt * ca + yt * sa + tt * (sa * x - ca * y)
-                        v = abs(v)
-                        sw = 1.0 / (asc * sqrt(kw * (v if v >= floor else floor) + 1e-30))
-                        sig = crow * sw * r2 / ri
-                        if _isfinite(sig):
-                            td[i] = td[i] + sig      # (adding nothing leaves the total as the batch's)
-                self._td = td
         self._t_gi += gi
         self._t_var += var_th
         self._t_dth += dth
@@ -580,31 +534,106 @@ class TableSlipMonitor:
             bnd = entries.popleft()
         self._boundary = bnd
         n = len(entries) + 1
+        zeros = self._zeros
         if bnd is None:
             clean = False
             b_stamp, b_tot = stamp, (0.0, 0.0, 0.0, 0, 0)
+            b_u = b_w = b_r = zeros
         else:
-            b_stamp, b_tot = bnd[0], bnd[1]
+            b_stamp, b_tot, b_u, b_w, b_r = bnd[0], bnd[1], bnd[2], bnd[3], bnd[4]
             clean = now[3] - b_tot[3] == 0
-        za = self._zeros
-        zr = 0.0
+
+        # per wheel, in one pass: running totals (new lists each step: the window's entries keep the
+        # old ones), window-mean velocities and traction, residual window sums
+        rdof = c.rdof
+        r = zeros if (rdof <= 0 or restart or resid is None) else _floats(resid, e)
+        tu, tw, tr = [], [], []
+        stat = 0.0
+        best = -1.0
         named = 0
+        za = zeros
         vu = vw = None
         safe = 1.0
+        i = 0
         if clean:
             safe = (stamp - b_stamp) * 1e-9
-            vu = [(a - b) / safe for a, b in zip(tu, bnd[2])]
-            vw = [(a - b) / safe for a, b in zip(tw, bnd[3])]
-            # traction per wheel
-            if bnd[6]:
+            vu, vw = [], []
+            trac = bnd[6]                               # the boundary's window is clean too
+            if trac:
+                za = []
                 den = 0.5 * (safe + bnd[9])
                 mu_g = k.mu_g
                 sqrt = math.sqrt
-                za = []
-                for u, w, bu, bw, ca, sa in zip(vu, vw, bnd[7], bnd[8], cas, sas):
-                    du, dw = u - bu, w - bw
+                b_vu, b_vw = bnd[7], bnd[8]
+            else:
+                b_vu = b_vw = zeros
+            for v, sc, ca, sa, a_u, a_w, a_r, ri, p_u, p_w, p_r, bu, bw in zip(
+                    s, c.scale, cas, sas, self._tu, self._tw, self._tr, r, b_u, b_w, b_r, b_vu, b_vw):
+                sc = v * sc
+                a_u = a_u + sc * ca
+                a_w = a_w + sc * sa
+                tu.append(a_u)
+                tw.append(a_w)
+                a_u = (a_u - p_u) / safe
+                a_w = (a_w - p_w) / safe
+                vu.append(a_u)
+                vw.append(a_w)
+                if trac:
+                    du, dw = a_u - bu, a_w - bw
                     mag = sqrt(du * du + dw * dw) / den / mu_g
                     za.append(mag if du * ca + dw * sa >= 0.0 else -mag)
+                a_r = a_r + ri
+                tr.append(a_r)
+                si = a_r - p_r
+                stat += si * si
+                if abs(si) > best:
+                    best, named = abs(si), i
+                i += 1
+        else:
+            for v, sc, ca, sa, a_u, a_w, a_r, ri, p_r in zip(
+                    s, c.scale, cas, sas, self._tu, self._tw, self._tr, r, b_r):
+                sc = v * sc
+                tu.append(a_u + sc * ca)
+                tw.append(a_w + sc * sa)
+                a_r = a_r + ri
+                tr.append(a_r)
+                si = a_r - p_r
+                stat += si * si
+                if abs(si) > best:
+                    best, named = abs(si), i
+                i += 1
+        self._tu, self._tw, self._tr = tu, tw, tr
+        td = self._td
+        if rdof == 1 and avail:
+            # heading change a fault on wheel i would explain (its parity share, through the
+            # increment's covariance row): sqrt(w_i) (C R_i^T)[theta] |r|^2 / r_i
+            if restart:
+                xt = yt = tt = 0.0
+            else:
+                v = body_cov6[2]
+                xt = v if (type(v) is float and v - v == 0.0) else _num(v)
+                v = body_cov6[4]
+                yt = v if (type(v) is float and v - v == 0.0) else _num(v)
+                tt = var_th
+            r2 = mean_abs = 0.0
+            for ri, v in zip(r, s):
+                r2 += ri * ri
+                mean_abs += abs(v)
+            floor = _ROBUST * (mean_abs / e)
+            if 1e-12 > floor:
+                floor = 1e-12
+            td = list(td)
+            sqrt = math.sqrt
+            for i, ri, v, ca, sa, (x, y, kw, asc) in zip(self._wheels, r, s, cas, sas, self._share_w):
+                if ri != 0.0:
+                    crow = xt * ca + yt * sa + tt * (sa * x - ca * y)
+                    v = abs(v)
+                    sw = 1.0 / (asc * sqrt(kw * (v if v >= floor else floor) + 1e-30))
+                    sig = crow * sw * r2 / ri
+                    if _isfinite(sig):
+                        td[i] = td[i] + sig      # (adding nothing leaves the total as the batch's)
+            self._td = td
+
         entry = (stamp, now, tu, tw, tr, td, clean, vu, vw, safe)
         entries.append(entry)
         if k.long_ns > 0:
@@ -614,23 +643,16 @@ class TableSlipMonitor:
             while lentries[0][0] <= cutoff_l:
                 self._lboundary = lentries.popleft()
         # residual
+        zr = 0.0
         if rdof > 0:
-            b_r = bnd[4] if bnd is not None else self._zeros
-            best = -1.0
-            stat = 0.0
-            i = 0
-            for a, b in zip(tr, b_r):
-                si = a - b
-                stat += si * si
-                if abs(si) > best:
-                    best, named = abs(si), i
-                i += 1
             if clean:
                 zr = math.sqrt(stat / float(n) / c.gate_r)
             if zr > 1.0:
                 self._named = named
             elif self._named is not None:
                 named = self._named
+        else:
+            named = 0
 
         # gyro against the model's heading
         zg = 0.0

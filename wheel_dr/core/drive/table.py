@@ -632,9 +632,11 @@ class WheelTable(DriveModel):
                 rows[e] = (ca, sa, sa * x - ca * y)
             trig.append((cp, sp, c2))
         n0, n1, n2, lam, sig, pi = _smallest_eigvec_floats(a00, a01, a02, a11, a12, a22)
-        g = [r0 * n0 + r1 * n1 + r2 * n2 for r0, r1, r2 in rows]
+        g = []
         h = pz = 0.0
-        for ge, we, be in zip(g, w, b):
+        for (r0, r1, r2), we, be in zip(rows, w, b):
+            ge = r0 * n0 + r1 * n1 + r2 * n2
+            g.append(ge)
             wg = we * ge
             h += wg * ge
             pz += wg * be
@@ -643,17 +645,23 @@ class WheelTable(DriveModel):
         ih = 1.0 / h
         z = pz * ih
         sqrt = math.sqrt
-        resid = tuple((be - ge * z) * sqrt(we) for ge, we, be in zip(g, w, b))
         cxx, cxy, cxt = n0 * n0 * ih, n0 * n1 * ih, n0 * n2 * ih
         cyy, cyt, ctt = n1 * n1 * ih, n1 * n2 * ih, n2 * n2 * ih
-        if sd2:
+        if not sd2:
+            resid = tuple([(be - ge * z) * sqrt(we) for ge, we, be in zip(g, w, b)])
+        else:
             z2 = 2.0 * z
-            coef = [we * (be - z2 * ge) for ge, we, be in zip(g, w, b)]
+            res = []
+            coef = []
             q0 = q1 = q2 = 0.0
-            for (r0, r1, r2), ce in zip(rows, coef):
+            for (r0, r1, r2), ge, we, be in zip(rows, g, w, b):
+                res.append((be - ge * z) * sqrt(we))
+                ce = we * (be - z2 * ge)
+                coef.append(ce)
                 q0 += ce * r0
                 q1 += ce * r1
                 q2 += ce * r2
+            resid = tuple(res)
             q0, q1, q2 = q0 * ih, q1 * ih, q2 * ih
             # a sliding row's turn moves n by dn = -P y, P = M^+ = (sigma (I - n n^T) - M) / pi, and tau by
             # z dn + n (q . dn) = L y with L = -(z P + n (P q)^T), once per step
