@@ -414,7 +414,9 @@ class TableSlipMonitor:
         # per-wheel constants of the hot loops (the same numbers, gathered once)
         self._steer_w = tuple((i, c.steer_col[i], c.ang0[i], c.offset[i]) for i in range(e) if c.steer_col[i] >= 0)
         self._all_steered = len(self._steer_w) == e and [w[0] for w in self._steer_w] == self._wheels
-        self._share_w = tuple(zip(c.x, c.y, c.kw, [abs(v) for v in c.scale]))
+        # (x, y, k, |scale|, sa x - ca y of a fixed wheel (its rolling direction is constant) or None)
+        self._share_w = tuple((x, y, kw, abs(sc), (sa * x - ca * y) if c.steer_col[i] < 0 else None)
+                              for i, (x, y, kw, sc, ca, sa) in enumerate(zip(c.x, c.y, c.kw, c.scale, c.cos0, c.sin0)))
         self._zeros = [0.0] * e
         self._zeros_t = [0.0] * c.t
         self._sides = tuple(zip(c.left, c.right))
@@ -624,9 +626,9 @@ class TableSlipMonitor:
                 floor = 1e-12
             td = list(td)
             sqrt = math.sqrt
-            for i, ri, v, ca, sa, (x, y, kw, asc) in zip(self._wheels, r, s, cas, sas, self._share_w):
+            for i, ri, v, ca, sa, (x, y, kw, asc, arm) in zip(self._wheels, r, s, cas, sas, self._share_w):
                 if ri != 0.0:
-                    crow = xt * ca + yt * sa + tt * (sa * x - ca * y)
+                    crow = xt * ca + yt * sa + tt * ((sa * x - ca * y) if arm is None else arm)
                     v = abs(v)
                     sw = 1.0 / (asc * sqrt(kw * (v if v >= floor else floor) + 1e-30))
                     sig = crow * sw * r2 / ri
@@ -679,20 +681,32 @@ class TableSlipMonitor:
         on_t = False
         left = right = False
         score = zg if zg > zr else zr
-        i = 0
-        for lat, z, (is_l, is_r) in zip(self._lat_t, za, self._sides):
-            res_i = every or (on_r and (cons[i] if cons is not None else (named_on and named == i)))
-            tr_i = lat.update(z, stamp, on_g or res_i)
-            if abs(z) > score:
-                score = abs(z)
-            if gyro_all or res_i or tr_i:
-                on_t = on_t or tr_i
-                flags.append(True)
-                left = left or is_l
-                right = right or is_r
-            else:
-                flags.append(False)
-            i += 1
+        if not (on_g or on_r):                # the usual sample: only traction can flag a wheel
+            for lat, z, (is_l, is_r) in zip(self._lat_t, za, self._sides):
+                if lat.update(z, stamp, False):
+                    on_t = True
+                    flags.append(True)
+                    left = left or is_l
+                    right = right or is_r
+                else:
+                    flags.append(False)
+                if abs(z) > score:
+                    score = abs(z)
+        else:
+            i = 0
+            for lat, z, (is_l, is_r) in zip(self._lat_t, za, self._sides):
+                res_i = every or (on_r and (cons[i] if cons is not None else (named_on and named == i)))
+                tr_i = lat.update(z, stamp, on_g or res_i)
+                if abs(z) > score:
+                    score = abs(z)
+                if gyro_all or res_i or tr_i:
+                    on_t = on_t or tr_i
+                    flags.append(True)
+                    left = left or is_l
+                    right = right or is_r
+                else:
+                    flags.append(False)
+                i += 1
         flagged = left or right
         detector = ((DETECTOR_GYRO if on_g else 0) | (DETECTOR_TRACTION if on_t else 0)
                     | (DETECTOR_RESIDUAL if on_r else 0))
