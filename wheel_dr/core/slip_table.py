@@ -410,7 +410,6 @@ class TableSlipMonitor:
         c = self._c
         e = c.e
         self._wheels = list(range(e))
-        self._fixed = [c.steer_col[i] < 0 for i in range(e)]
         # per-wheel constants of the hot loops (the same numbers, gathered once)
         self._steer_w = tuple((i, c.steer_col[i], c.ang0[i], c.offset[i]) for i in range(e) if c.steer_col[i] >= 0)
         self._all_steered = len(self._steer_w) == e and [w[0] for w in self._steer_w] == self._wheels

@@ -780,7 +780,8 @@ class WheelTable(DriveModel):
         t0, t1, t2 = tau
         sqrt = math.sqrt
         if not (sd2 and moved):
-            resid = tuple([(be - (r0 * t0 + r1 * t1 + r2 * t2)) * sqrt(we) for (r0, r1, r2), be, we in zip(rows, b, w)])
+            resid = tuple([(be - (r0 * t0 + r1 * t1 + r2 * t2)) * sqrt(we)
+                           for (r0, r1, r2), be, we in zip(rows, b, w)])
             return t0, t1, t2, tuple(cov), resid
         eps = [be - (r[0] * t0 + r[1] * t1 + r[2] * t2) for r, be in zip(rows, b)]
         resid = tuple([ee * sqrt(we) for ee, we in zip(eps, w)])
