@@ -28,6 +28,7 @@ from .wheels import JointSamples, SampleStatus, Travel, TravelTracker, count_sta
 
 __all__ = ["Trajectory", "run", "run_travel", "Estimator"]
 
+_COUNTER_KEY = {s: s.name.lower() for s in SampleStatus}   # counter name of each status (no string work per sample)
 _UNOBSERVED_TWIST = np.diag([UNOBSERVED_VARIANCE, UNOBSERVED_VARIANCE])
 _UNOBSERVED_TWIST_FLOATS = (UNOBSERVED_VARIANCE, 0.0, UNOBSERVED_VARIANCE)
 
@@ -239,11 +240,11 @@ class Estimator:
         """
         status, dt, dl, dr = self._tracker.step(stamp_ns, names, positions, velocities)
         if status >= 10:
-            self.counters[status.name.lower()] += 1
+            self.counters[_COUNTER_KEY[status]] += 1
             return status
         if self._table is not None:
             self.last_slip = self._table.step(self, self._tracker, status, dt, gyro_z_radps)
-            self.counters[status.name.lower()] += 1
+            self.counters[_COUNTER_KEY[status]] += 1
             return status
         s = self.settings
         b = s.wheels.track_width
@@ -275,5 +276,5 @@ class Estimator:
             self._twist = (c_in[0] / dt2, c_in[1] / dt2, c_in[2] / dt2)
         if self.online is not None:
             self.online.step(stamp_ns, restart, dt, dl, dr, gyro_z_radps, slip.slip)
-        self.counters[status.name.lower()] += 1   # counted once the sample is fully applied
+        self.counters[_COUNTER_KEY[status]] += 1   # counted once the sample is fully applied
         return status

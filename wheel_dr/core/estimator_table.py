@@ -30,6 +30,8 @@ __all__ = ["run_table", "TableStepper", "UNOBSERVED_TWIST3"]
 
 UNOBSERVED_TWIST3 = np.diag([UNOBSERVED_VARIANCE] * 3)
 _UNOBSERVED_TWIST3_FLOATS = (UNOBSERVED_VARIANCE, 0.0, 0.0, UNOBSERVED_VARIANCE, 0.0, UNOBSERVED_VARIANCE)
+_ZERO6 = (0.0,) * 6
+_USED = SampleStatus.USED
 
 
 def run_table(travel: Travel, settings: Settings, start_pose: Sequence[float] = (0.0, 0.0, 0.0),
@@ -86,23 +88,25 @@ class TableStepper:
 
     def step(self, est, tracker: TravelTracker, status: SampleStatus, dt: float, gyro_z_radps: float | None):
         """Apply one accepted sample to the estimator ``est`` (pose, covariance, twist); returns the slip step."""
-        restart = status != SampleStatus.USED
+        restart = status != _USED
         spin = tracker.joint_travel_m
-        steer = tracker.steer_rad if tracker.steer_rad else None
+        steer = tracker.steer_rad or None
         if restart:
             bx = by = bt = 0.0
-            c6 = (0.0,) * 6
+            c6 = _ZERO6
             resid: tuple[float, ...] = (0.0,) * len(spin)
         else:
             bx, by, bt, c6, resid = self.model.step_floats(spin, steer)
         slip = self.slip.step(status, tracker.last_stamp_ns, dt, spin, steer, (bx, by, bt), c6, resid, gyro_z_radps)
         if slip.dtheta_rad is not None:
             bt = slip.dtheta_rad
-        if slip.noise_scale != 1.0:
-            c6 = tuple(v * slip.noise_scale for v in c6)
+        scale = slip.noise_scale
+        if scale != 1.0:
+            c6 = (c6[0] * scale, c6[1] * scale, c6[2] * scale, c6[3] * scale, c6[4] * scale, c6[5] * scale)
         theta = est.theta_rad
-        dx, dy = odom_increment_floats(theta, bx, by, bt, self.scheme)
-        q = body_to_odom_noise_floats(theta, bx, by, bt, c6, self.scheme)
+        scheme = self.scheme
+        dx, dy = odom_increment_floats(theta, bx, by, bt, scheme)
+        q = body_to_odom_noise_floats(theta, bx, by, bt, c6, scheme)
         est._p = propagate_step_floats(est._p, dx, dy, q)
         est.x_m += dx
         est.y_m += dy
@@ -113,7 +117,7 @@ class TableStepper:
         else:
             est.v_mps, est.w_radps, self.vy_mps = bx / dt, bt / dt, by / dt
             dt2 = dt * dt
-            self.twist6 = tuple(v / dt2 for v in c6)
+            self.twist6 = (c6[0] / dt2, c6[1] / dt2, c6[2] / dt2, c6[3] / dt2, c6[4] / dt2, c6[5] / dt2)
         if self.online is not None:
             self.online.step(tracker.last_stamp_ns, restart, dt, spin, steer, gyro_z_radps, slip.slip)
         return slip

@@ -360,19 +360,13 @@ def detect_slip_table(model: WheelTable, travel: Travel, body: np.ndarray, body_
 # ------------------------------------------------------------------------------------------------
 # streaming
 # ------------------------------------------------------------------------------------------------
-class _Entry:
-    """One sample in the window: stamp, running totals after it, and what the boundary needs."""
-
-    __slots__ = ("stamp", "totals", "cu", "cw", "cr", "cd", "clean", "vu", "vw", "span")
-
-    def __init__(self, stamp: int, totals: tuple, cu: list, cw: list, cr: list, cd: list) -> None:
-        self.stamp = stamp
-        self.totals = totals
-        self.cu, self.cw, self.cr, self.cd = cu, cw, cr, cd
-        self.clean = False
-        self.vu: list[float] = []
-        self.vw: list[float] = []
-        self.span = 1.0
+# A sample in the window is a tuple (stamp, totals, cu, cw, cr, cd, clean, vu, vw, span): its stamp,
+# the running totals after it (gyro increment, heading variance, heading change, restarts, missing
+# gyro readings), the per-wheel running totals (traction u and w, residual, heading share; lists
+# never changed once stored) and what a later sample needs of it as a boundary (its window's
+# cleanness, window-mean velocities and span).
+_USED = SampleStatus.USED
+_isfinite = math.isfinite
 
 
 def _num(v) -> float:
@@ -395,6 +389,17 @@ def _nums(values, n: int) -> list[float]:
     return out + [0.0] * (n - len(out))
 
 
+def _floats(values, n: int):
+    """``values`` itself where it holds ``n`` floats with a finite sum (so each is finite: what the
+    estimator hands over), else ``_nums(values, n)``."""
+    try:
+        if len(values) == n and type(total := sum(values)) is float and _isfinite(total):
+            return values
+    except (TypeError, ValueError, OverflowError):
+        pass
+    return _nums(values, n)
+
+
 class TableSlipMonitor:
     """Streaming form of ``detect_slip_table`` (same rules; tested equal sample by sample)."""
 
@@ -403,8 +408,17 @@ class TableSlipMonitor:
         self.settings = settings
         self._c = _TableConstants(model, settings)
         c = self._c
-        self._wheels = list(range(c.e))
-        self._fixed = [c.steer_col[i] < 0 for i in range(c.e)]
+        e = c.e
+        self._wheels = list(range(e))
+        # per-wheel constants of the hot loops (the same numbers, gathered once)
+        self._steer_w = tuple((i, c.steer_col[i], c.ang0[i], c.offset[i]) for i in range(e) if c.steer_col[i] >= 0)
+        self._all_steered = len(self._steer_w) == e and [w[0] for w in self._steer_w] == self._wheels
+        # (x, y, k, |scale|, sa x - ca y of a fixed wheel (its rolling direction is constant) or None)
+        self._share_w = tuple((x, y, kw, abs(sc), (sa * x - ca * y) if c.steer_col[i] < 0 else None)
+                              for i, (x, y, kw, sc, ca, sa) in enumerate(zip(c.x, c.y, c.kw, c.scale, c.cos0, c.sin0)))
+        self._zeros = [0.0] * e
+        self._zeros_t = [0.0] * c.t
+        self._sides = tuple(zip(c.left, c.right))
         self.reset()
 
     def reset(self) -> None:
@@ -412,10 +426,10 @@ class TableSlipMonitor:
         c = self._c
         k = c.k
         e = c.e
-        self._entries: deque[_Entry] = deque()
-        self._boundary: _Entry | None = None
-        self._lentries: deque[_Entry] = deque()
-        self._lboundary: _Entry | None = None
+        self._entries: deque[tuple] = deque()
+        self._boundary: tuple | None = None
+        self._lentries: deque[tuple] = deque()
+        self._lboundary: tuple | None = None
         self._tu, self._tw, self._tr, self._td = [0.0] * e, [0.0] * e, [0.0] * e, [0.0] * e
         self._cons: list[bool] | None = None
         self._t_gi = self._t_var = self._t_dth = 0.0
@@ -448,22 +462,30 @@ class TableSlipMonitor:
         c = self._c
         k = c.k
         e = c.e
-        wheels = self._wheels
         if not k.enabled:
             return SlipStep(wheel_flags=(False,) * e)
         stamp = int(stamp_ns)
-        restart = status != SampleStatus.USED
-        dt = 0.0 if restart else float(dt_s)
-        s = [0.0] * e if restart else _nums(spin, e)
-        dth = 0.0 if restart else _num(body[2])
-        var_th = 0.0 if restart else _num(body_cov6[5])
-        st = _nums(steer, c.t) if (c.t and steer is not None) else [0.0] * c.t
+        restart = status != _USED
+        if restart:
+            dt = dth = var_th = 0.0
+            s = self._zeros
+        else:
+            dt = float(dt_s)
+            s = _floats(spin, e)
+            v = body[2]
+            dth = v if (type(v) is float and v - v == 0.0) else _num(v)
+            v = body_cov6[5]
+            var_th = v if (type(v) is float and v - v == 0.0) else _num(v)
+        t = c.t
+        st = _floats(steer, t) if (t and steer is not None) else self._zeros_t
 
         # gyro and bias
-        try:
-            g = float(gyro_z_radps) if gyro_z_radps is not None else math.nan
-        except (TypeError, ValueError, OverflowError):
-            g = math.nan
+        g = gyro_z_radps
+        if type(g) is not float:
+            try:
+                g = float(g) if g is not None else math.nan
+            except (TypeError, ValueError, OverflowError):
+                g = math.nan
         avail = abs(g) <= MAX_GYRO_RADPS                     # False for NaN and inf too
         if not avail:
             g = 0.0
@@ -485,154 +507,217 @@ class TableSlipMonitor:
             bias = k.bias_prior
         gi = (g - bias) * dt if avail else 0.0
 
-        # running totals
-        tu, tw, tr = self._tu, self._tw, self._tr
-        scale, cos0, sin0, fixed = c.scale, c.cos0, c.sin0, self._fixed
-        cas, sas = cos0, sin0
-        if c.t:
-            cas, sas = list(cos0), list(sin0)
-            for i in wheels:
-                if not fixed[i]:
-                    a = c.ang0[i] + (st[c.steer_col[i]] - c.offset[i])
-                    cas[i], sas[i] = math.cos(a), math.sin(a)
-        for i in wheels:
-            sc = s[i] * scale[i]
-            tu[i] = tu[i] + sc * cas[i]
-            tw[i] = tw[i] + sc * sas[i]
-        td = self._td
-        if c.rdof > 0:
-            r = [0.0] * e if (restart or resid is None) else _nums(resid, e)
-            for i in wheels:
-                tr[i] = tr[i] + r[i]
-            if c.rdof == 1 and avail:
-                # heading change a fault on wheel i would explain (its parity share, through the
-                # increment's covariance row): sqrt(w_i) (C R_i^T)[theta] |r|^2 / r_i
-                if restart:
-                    xt = yt = tt = 0.0
-                else:
-                    xt, yt, tt = _num(body_cov6[2]), _num(body_cov6[4]), var_th
-                r2 = r[0] * r[0]
-                mean_abs = abs(s[0])
-                for i in range(1, e):
-                    r2 = r2 + r[i] * r[i]
-                    mean_abs = mean_abs + abs(s[i])
-                floor = max(_ROBUST * (mean_abs / e), 1e-12)
-                for i in wheels:
-                    ri = r[i]
-                    if ri != 0.0:
-                        ca, sa = cas[i], sas[i]
-                        crow = xt * ca + yt * sa + tt * (sa * c.x[i] - ca * c.y[i])
-                        sw = 1.0 / (abs(scale[i]) * math.sqrt(c.kw[i] * max(abs(s[i]), floor) + 1e-30))
-                        sig = crow * sw * r2 / ri
-                        if math.isfinite(sig):
-                            td[i] = td[i] + sig      # (adding nothing leaves the total as the batch's)
+        # steering directions of the encoder wheels
+        if not self._steer_w:
+            cas, sas = c.cos0, c.sin0
+        elif self._all_steered:
+            ang = [a0 + (st[col] - off) for _, col, a0, off in self._steer_w]
+            cas, sas = list(map(math.cos, ang)), list(map(math.sin, ang))
+        else:
+            cas, sas = list(c.cos0), list(c.sin0)
+            for i, col, a0, off in self._steer_w:
+                a = a0 + (st[col] - off)
+                cas[i], sas[i] = math.cos(a), math.sin(a)
         self._t_gi += gi
         self._t_var += var_th
         self._t_dth += dth
-        self._t_restart += int(restart)
-        self._t_miss += int(not avail)
-        entry = _Entry(stamp, (self._t_gi, self._t_var, self._t_dth, self._t_restart, self._t_miss),
-                       tu.copy(), tw.copy(), tr.copy(), td.copy())
+        if restart:
+            self._t_restart += 1
+        if not avail:
+            self._t_miss += 1
+        now = (self._t_gi, self._t_var, self._t_dth, self._t_restart, self._t_miss)
+
+        # the window (stamp in (t - window, t]) and its boundary sample
         entries = self._entries
-        entries.append(entry)
         cutoff = stamp - k.window_ns
-        while entries[0].stamp <= cutoff:
-            self._boundary = entries.popleft()
-        if k.long_ns > 0:
-            self._lentries.append(entry)
-            cutoff_l = stamp - k.long_ns
-            while self._lentries[0].stamp <= cutoff_l:
-                self._lboundary = self._lentries.popleft()
         bnd = self._boundary
-        now = entry.totals
-        n = len(entries)
+        while entries and entries[0][0] <= cutoff:      # (the new sample, at the end, always stays)
+            bnd = entries.popleft()
+        self._boundary = bnd
+        n = len(entries) + 1
+        zeros = self._zeros
         if bnd is None:
-            clean, clean_b, b_stamp, b_tot = False, False, stamp, (0.0, 0.0, 0.0, 0, 0)
+            clean = False
+            b_stamp, b_tot = stamp, (0.0, 0.0, 0.0, 0, 0)
+            b_u = b_w = b_r = zeros
         else:
-            b_stamp, b_tot = bnd.stamp, bnd.totals
-            clean, clean_b = now[3] - b_tot[3] == 0, bnd.clean
-        za = [0.0] * e
-        zr = 0.0
+            b_stamp, b_tot, b_u, b_w, b_r = bnd[0], bnd[1], bnd[2], bnd[3], bnd[4]
+            clean = now[3] - b_tot[3] == 0
+
+        # per wheel, in one pass: running totals (new lists each step: the window's entries keep the
+        # old ones), window-mean velocities and traction, residual window sums
+        rdof = c.rdof
+        r = zeros if (rdof <= 0 or restart or resid is None) else _floats(resid, e)
+        tu, tw, tr = [], [], []
+        stat = 0.0
+        best = -1.0
         named = 0
+        za = zeros
+        vu = vw = None
+        safe = 1.0
+        i = 0
         if clean:
             safe = (stamp - b_stamp) * 1e-9
-            b_u, b_w = bnd.cu, bnd.cw
-            vu = [(tu[i] - b_u[i]) / safe for i in wheels]
-            vw = [(tw[i] - b_w[i]) / safe for i in wheels]
-            entry.clean, entry.vu, entry.vw, entry.span = True, vu, vw, safe
-            # traction per wheel
-            if clean_b:
-                den = 0.5 * (safe + bnd.span)
+            vu, vw = [], []
+            trac = bnd[6]                               # the boundary's window is clean too
+            if trac:
+                za = []
+                den = 0.5 * (safe + bnd[9])
                 mu_g = k.mu_g
-                bu, bw = bnd.vu, bnd.vw
-                for i in wheels:
-                    du, dw = vu[i] - bu[i], vw[i] - bw[i]
-                    mag = math.sqrt(du * du + dw * dw) / den / mu_g
-                    za[i] = mag if du * cas[i] + dw * sas[i] >= 0.0 else -mag
-        # residual
-        if c.rdof > 0:
-            b_r = bnd.cr if bnd is not None else [0.0] * e
-            best = -1.0
-            stat = 0.0
-            for i in wheels:
-                si = tr[i] - b_r[i]
-                stat = si * si if i == 0 else stat + si * si
+                sqrt = math.sqrt
+                b_vu, b_vw = bnd[7], bnd[8]
+            else:
+                b_vu = b_vw = zeros
+            for v, sc, ca, sa, a_u, a_w, a_r, ri, p_u, p_w, p_r, bu, bw in zip(
+                    s, c.scale, cas, sas, self._tu, self._tw, self._tr, r, b_u, b_w, b_r, b_vu, b_vw):
+                sc = v * sc
+                a_u = a_u + sc * ca
+                a_w = a_w + sc * sa
+                tu.append(a_u)
+                tw.append(a_w)
+                a_u = (a_u - p_u) / safe
+                a_w = (a_w - p_w) / safe
+                vu.append(a_u)
+                vw.append(a_w)
+                if trac:
+                    du, dw = a_u - bu, a_w - bw
+                    mag = sqrt(du * du + dw * dw) / den / mu_g
+                    za.append(mag if du * ca + dw * sa >= 0.0 else -mag)
+                a_r = a_r + ri
+                tr.append(a_r)
+                si = a_r - p_r
+                stat += si * si
                 if abs(si) > best:
                     best, named = abs(si), i
+                i += 1
+        else:
+            for v, sc, ca, sa, a_u, a_w, a_r, ri, p_r in zip(
+                    s, c.scale, cas, sas, self._tu, self._tw, self._tr, r, b_r):
+                sc = v * sc
+                tu.append(a_u + sc * ca)
+                tw.append(a_w + sc * sa)
+                a_r = a_r + ri
+                tr.append(a_r)
+                si = a_r - p_r
+                stat += si * si
+                if abs(si) > best:
+                    best, named = abs(si), i
+                i += 1
+        self._tu, self._tw, self._tr = tu, tw, tr
+        td = self._td
+        if rdof == 1 and avail:
+            # heading change a fault on wheel i would explain (its parity share, through the
+            # increment's covariance row): sqrt(w_i) (C R_i^T)[theta] |r|^2 / r_i
+            if restart:
+                xt = yt = tt = 0.0
+            else:
+                v = body_cov6[2]
+                xt = v if (type(v) is float and v - v == 0.0) else _num(v)
+                v = body_cov6[4]
+                yt = v if (type(v) is float and v - v == 0.0) else _num(v)
+                tt = var_th
+            r2 = mean_abs = 0.0
+            for ri, v in zip(r, s):
+                r2 += ri * ri
+                mean_abs += abs(v)
+            floor = _ROBUST * (mean_abs / e)
+            if 1e-12 > floor:
+                floor = 1e-12
+            td = list(td)
+            sqrt = math.sqrt
+            for i, ri, v, ca, sa, (x, y, kw, asc, arm) in zip(self._wheels, r, s, cas, sas, self._share_w):
+                if ri != 0.0:
+                    crow = xt * ca + yt * sa + tt * ((sa * x - ca * y) if arm is None else arm)
+                    v = abs(v)
+                    sw = 1.0 / (asc * sqrt(kw * (v if v >= floor else floor) + 1e-30))
+                    sig = crow * sw * r2 / ri
+                    if _isfinite(sig):
+                        td[i] = td[i] + sig      # (adding nothing leaves the total as the batch's)
+            self._td = td
+
+        entry = (stamp, now, tu, tw, tr, td, clean, vu, vw, safe)
+        entries.append(entry)
+        if k.long_ns > 0:
+            lentries = self._lentries
+            lentries.append(entry)
+            cutoff_l = stamp - k.long_ns
+            while lentries[0][0] <= cutoff_l:
+                self._lboundary = lentries.popleft()
+        # residual
+        zr = 0.0
+        if rdof > 0:
             if clean:
                 zr = math.sqrt(stat / float(n) / c.gate_r)
             if zr > 1.0:
                 self._named = named
             elif self._named is not None:
                 named = self._named
+        else:
+            named = 0
 
         # gyro against the model's heading
         zg = 0.0
         if clean and now[4] - b_tot[4] == 0:
             zg, d, var_g = self._gyro_test(stamp, b_stamp, now, b_tot, n)
             lb = self._lboundary
-            if k.long_ns > 0 and lb is not None and zg >= LONG_SHORT_SCORE and now[3] - lb.totals[3] == 0 \
-                    and now[4] - lb.totals[4] == 0:
-                zl, dl_w, _ = self._gyro_test(stamp, lb.stamp, now, lb.totals, len(self._lentries))
+            if k.long_ns > 0 and lb is not None and zg >= LONG_SHORT_SCORE and now[3] - lb[1][3] == 0 \
+                    and now[4] - lb[1][4] == 0:
+                zl, dl_w, _ = self._gyro_test(stamp, lb[0], now, lb[1], len(self._lentries))
                 if (d > 0.0) == (dl_w > 0.0):
                     zg = max(zg, zl)
-            if c.rdof == 1 and zr > 1.0:
+            if rdof == 1 and zr > 1.0:
                 lim = math.sqrt(var_g * k.gate)
-                b_d = bnd.cd
-                cons = [abs(d - (td[i] - b_d[i])) / lim <= 1.0 for i in wheels]
+                cons = [abs(d - (a - b)) / lim <= 1.0 for a, b in zip(td, bnd[5])]
                 self._cons = cons if any(cons) else [True] * e
 
         on_g = self._lat_g.update(zg, stamp)
-        on_r = self._lat_r.update(zr, stamp) if c.rdof > 0 else False
+        on_r = self._lat_r.update(zr, stamp) if rdof > 0 else False
         gyro_all = on_g and not on_r          # with the residual flag set, it names the wheels
-        cons = self._cons if (on_r and c.rdof == 1) else None
-        every = on_r and c.rdof == 1 and cons is None
-        flags = [False] * e
+        cons = self._cons if (on_r and rdof == 1) else None
+        every = on_r and rdof == 1 and cons is None
+        named_on = on_r and rdof >= 2
+        flags = []
         on_t = False
         left = right = False
         score = zg if zg > zr else zr
-        lat_t = self._lat_t
-        for i in wheels:
-            res_i = every or (on_r and (cons[i] if cons is not None else (c.rdof >= 2 and named == i)))
-            z = za[i]
-            tr_i = lat_t[i].update(z, stamp, on_g or res_i)
-            if abs(z) > score:
-                score = abs(z)
-            if gyro_all or res_i or tr_i:
-                on_t = on_t or tr_i
-                flags[i] = True
-                left = left or c.left[i]
-                right = right or c.right[i]
+        if not (on_g or on_r):                # the usual sample: only traction can flag a wheel
+            for lat, z, (is_l, is_r) in zip(self._lat_t, za, self._sides):
+                if lat.update(z, stamp, False):
+                    on_t = True
+                    flags.append(True)
+                    left = left or is_l
+                    right = right or is_r
+                else:
+                    flags.append(False)
+                if abs(z) > score:
+                    score = abs(z)
+        else:
+            i = 0
+            for lat, z, (is_l, is_r) in zip(self._lat_t, za, self._sides):
+                res_i = every or (on_r and (cons[i] if cons is not None else (named_on and named == i)))
+                tr_i = lat.update(z, stamp, on_g or res_i)
+                if abs(z) > score:
+                    score = abs(z)
+                if gyro_all or res_i or tr_i:
+                    on_t = on_t or tr_i
+                    flags.append(True)
+                    left = left or is_l
+                    right = right or is_r
+                else:
+                    flags.append(False)
+                i += 1
         flagged = left or right
         detector = ((DETECTOR_GYRO if on_g else 0) | (DETECTOR_TRACTION if on_t else 0)
                     | (DETECTOR_RESIDUAL if on_r else 0))
         out = SlipStep(flagged, left, right, detector, score,
                        gyro_bias_radps=bias if gyro_z_radps is not None else None, wheel_flags=tuple(flags))
-        if k.response == "inflate" and flagged:
-            out.noise_scale = k.inflate
-        elif k.response == "gyro" and flagged:
-            if avail:
-                out.dtheta_rad = gi
-            else:
+        if flagged:
+            response = k.response
+            if response == "inflate":
                 out.noise_scale = k.inflate
+            elif response == "gyro":
+                if avail:
+                    out.dtheta_rad = gi
+                else:
+                    out.noise_scale = k.inflate
         return out

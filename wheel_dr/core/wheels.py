@@ -52,6 +52,7 @@ __all__ = [
 _INT64_MAX = 2**63 - 1
 
 TWO_PI = 2.0 * math.pi
+_HALF_TURN = 0.5 * TWO_PI                 # wrap_difference's half period for angles
 
 
 class SampleStatus(IntEnum):
@@ -329,7 +330,7 @@ class TravelTracker:
                 vals = [float(values[c]) for c in cols]
         except (TypeError, ValueError, OverflowError):
             return SampleStatus.NON_FINITE, 0.0, 0.0, 0.0
-        if not all(math.isfinite(v) for v in vals):
+        if not all(map(math.isfinite, vals)):
             return SampleStatus.NON_FINITE, 0.0, 0.0, 0.0
         last_stamp = self.last_stamp_ns
         if last_stamp is not None and stamp_ns <= last_stamp:
@@ -345,6 +346,9 @@ class TravelTracker:
         dt = (stamp_ns - last_stamp) * 1e-9
         if dt > self._max_gap_s:
             return SampleStatus.GAP, dt, 0.0, 0.0
+        nl = self._nl
+        if not nl:                                 # a wheel table: no sides
+            return self._table_step(vals, last, dt)
         travel = []
         limit = self._max_speed * dt
         for v, v0, r in zip(vals, last, self._radius):
@@ -369,12 +373,40 @@ class TravelTracker:
                 steer.append(v0 + 0.5 * d)
             self.steer_rad = steer
         self.joint_travel_m = travel
-        nl = self._nl
-        if not nl:                                 # a wheel table: no sides
-            return SampleStatus.USED, dt, 0.0, 0.0
         ds_left = sum(travel[:nl]) / nl
         ds_right = sum(travel[nl:]) / (len(travel) - nl)
         return SampleStatus.USED, dt, ds_left, ds_right
+
+    def _table_step(self, vals: list[float], last: list[float], dt: float) -> tuple[SampleStatus, float, float, float]:
+        """The rest of ``step`` for a wheel table (the same arithmetic as the differential loop, per
+        list): spin travel of the encoder wheels, then the steering readings (mean of the step's
+        two); an implausible speed of either is a jump."""
+        limit = self._max_speed * dt
+        r = self._radius
+        if self._use_velocity:
+            travel = [0.5 * (v + v0) * dt * ri for v, v0, ri in zip(vals, last, r)]
+        elif self._period:
+            period = self._period
+            half = 0.5 * period
+            sc = self._scale
+            travel = [(((v - v0) + half) % period - half) * sc * ri for v, v0, ri in zip(vals, last, r)]
+        else:
+            sc = self._scale
+            travel = [(v - v0) * sc * ri for v, v0, ri in zip(vals, last, r)]
+        # every |travel| within the limit; NaN (an overflowed, wrapped difference) fails the sum
+        if travel and not (max(map(abs, travel)) <= limit and math.isfinite(sum(travel))):
+            return SampleStatus.JUMP, dt, 0.0, 0.0
+        if self._nsteer:
+            ns, steer = self._nspin, []
+            limit_s = self._max_steer * dt
+            for v, v0 in zip(vals[ns:], last[ns:]):
+                d = (v - v0 + _HALF_TURN) % TWO_PI - _HALF_TURN      # wrap_difference(v - v0, TWO_PI)
+                if not abs(d) <= limit_s:
+                    return SampleStatus.JUMP, dt, 0.0, 0.0
+                steer.append(v0 + 0.5 * d)
+            self.steer_rad = steer
+        self.joint_travel_m = travel
+        return SampleStatus.USED, dt, 0.0, 0.0
 
 
 def samples_from_messages(messages: Sequence[tuple[int, Sequence[str], Sequence[float], Sequence[float]]]

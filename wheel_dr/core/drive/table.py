@@ -394,6 +394,7 @@ class WheelTable(DriveModel):
         self._f_k = tuple(float(v) for v in self._k_enc)
         self._f_scale = tuple(float(v) for v in self._scale)
         self._f_inv_s2 = tuple(float(1.0 / (v * v)) for v in self._scale)
+        self._f_unit_scale = all(v == 1.0 for v in self._f_scale)
         self._f_rows0 = tuple(tuple(float(c) for c in r) for r in self._rows0)
         self._f_a0 = tuple(float(self._a0[i, j]) for i, j in ((0, 0), (0, 1), (0, 2), (1, 1), (1, 2), (2, 2)))
         self._f_steer = tuple((enc_of.get(int(i), -1), bool(self.standard[i]),
@@ -594,13 +595,15 @@ class WheelTable(DriveModel):
         floor = _ROBUST_FRACTION * (sum(map(abs, spin)) / n_e)
         if floor < 1e-12:
             floor = 1e-12
-        w = [i2 / (k * (abs(v) if abs(v) > floor else floor) + 1e-30)
+        w = [i2 / (k * (a if (a := abs(v)) > floor else floor) + 1e-30)
              for v, k, i2 in zip(spin, self._f_k, self._f_inv_s2)]
-        b = [v * sc for v, sc in zip(spin, self._f_scale)]
+        b = spin if self._f_unit_scale else [v * sc for v, sc in zip(spin, self._f_scale)]   # (v * 1.0 is v)
         sd2 = self._f_sd2
         cos, sin = math.cos, math.sin
-        rows = list(self._f_rows0)
         if self._mode == "fixed":
+            if not steer_table:                                  # no steering: the rows as they are
+                return self._fixed_floats(self._f_rows0, (), w, b, sd2)
+            rows = list(self._f_rows0)
             moved = []
             for (e, std, base, x, y, co, so), sv in zip(steer_table, steer or ()):
                 if e >= 0:                                       # a steered roller wheel with an encoder
@@ -610,6 +613,7 @@ class WheelTable(DriveModel):
                     rows[e] = (ca, sa, sa * x - ca * y)
                     moved.append((e, (-sa, ca, ca * x + sa * y), None, None))
             return self._fixed_floats(rows, moved, w, b, sd2)
+        rows = list(self._f_rows0)
         a00, a01, a02, a11, a12, a22 = self._f_a0
         trig = []
         for (e, std, base, x, y, co, so), sv in zip(steer_table, steer):
@@ -632,9 +636,11 @@ class WheelTable(DriveModel):
                 rows[e] = (ca, sa, sa * x - ca * y)
             trig.append((cp, sp, c2))
         n0, n1, n2, lam, sig, pi = _smallest_eigvec_floats(a00, a01, a02, a11, a12, a22)
-        g = [r0 * n0 + r1 * n1 + r2 * n2 for r0, r1, r2 in rows]
+        g = []
         h = pz = 0.0
-        for ge, we, be in zip(g, w, b):
+        for (r0, r1, r2), we, be in zip(rows, w, b):
+            ge = r0 * n0 + r1 * n1 + r2 * n2
+            g.append(ge)
             wg = we * ge
             h += wg * ge
             pz += wg * be
@@ -643,17 +649,23 @@ class WheelTable(DriveModel):
         ih = 1.0 / h
         z = pz * ih
         sqrt = math.sqrt
-        resid = tuple((be - ge * z) * sqrt(we) for ge, we, be in zip(g, w, b))
         cxx, cxy, cxt = n0 * n0 * ih, n0 * n1 * ih, n0 * n2 * ih
         cyy, cyt, ctt = n1 * n1 * ih, n1 * n2 * ih, n2 * n2 * ih
-        if sd2:
+        if not sd2:
+            resid = tuple([(be - ge * z) * sqrt(we) for ge, we, be in zip(g, w, b)])
+        else:
             z2 = 2.0 * z
-            coef = [we * (be - z2 * ge) for ge, we, be in zip(g, w, b)]
+            res = []
+            coef = []
             q0 = q1 = q2 = 0.0
-            for (r0, r1, r2), ce in zip(rows, coef):
+            for (r0, r1, r2), ge, we, be in zip(rows, g, w, b):
+                res.append((be - ge * z) * sqrt(we))
+                ce = we * (be - z2 * ge)
+                coef.append(ce)
                 q0 += ce * r0
                 q1 += ce * r1
                 q2 += ce * r2
+            resid = tuple(res)
             q0, q1, q2 = q0 * ih, q1 * ih, q2 * ih
             # a sliding row's turn moves n by dn = -P y, P = M^+ = (sigma (I - n n^T) - M) / pi, and tau by
             # z dn + n (q . dn) = L y with L = -(z P + n (P q)^T), once per step
@@ -671,20 +683,26 @@ class WheelTable(DriveModel):
             l10, l11, l12 = -(z * p01 + n1 * pq0), -(z * p11 + n1 * pq1), -(z * p12 + n1 * pq2)
             l20, l21, l22 = -(z * p02 + n2 * pq0), -(z * p12 + n2 * pq1), -(z * p22 + n2 * pq2)
             for (e, std, base, x, y, co, so), (cp, sp, c2) in zip(steer_table, trig):
-                if e >= 0:                                       # the wheel's rolling row turns
-                    ca, sa, _ = rows[e]
-                    f = coef[e] * (ca * n1 - sa * n0 + (ca * x + sa * y) * n2) * ih
-                    j0, j1, j2 = n0 * f, n1 * f, n2 * f
-                else:
-                    j0 = j1 = j2 = 0.0
                 if std:                                          # its sliding row turns and moves n
-                    dc2 = cp * y - sp * x
                     cn = cp * n1 - sp * n0 + c2 * n2
+                    if e >= 0:                                   # the wheel's rolling row turns
+                        # (its row is (cp, sp, .), so the factor below is cn: the same operations)
+                        f = coef[e] * cn * ih
+                        j0, j1, j2 = n0 * f, n1 * f, n2 * f
+                    else:
+                        j0 = j1 = j2 = 0.0
+                    dc2 = cp * y - sp * x
                     dcn = dc2 * n2 - cp * n0 - sp * n1
                     y0, y1, y2 = -cp * cn - sp * dcn, cp * dcn - sp * cn, dc2 * cn + c2 * dcn
                     j0 += l00 * y0 + l01 * y1 + l02 * y2
                     j1 += l10 * y0 + l11 * y1 + l12 * y2
                     j2 += l20 * y0 + l21 * y1 + l22 * y2
+                elif e >= 0:                                     # the wheel's rolling row turns
+                    ca, sa, _ = rows[e]
+                    f = coef[e] * (ca * n1 - sa * n0 + (ca * x + sa * y) * n2) * ih
+                    j0, j1, j2 = n0 * f, n1 * f, n2 * f
+                else:
+                    j0 = j1 = j2 = 0.0
                 s0, s1 = sd2 * j0, sd2 * j1
                 cxx += s0 * j0
                 cxy += s0 * j1
@@ -760,8 +778,13 @@ class WheelTable(DriveModel):
             tau = tuple(sum(nr[i] * z[i] for i in range(k)) for nr in null)
             cov = tuple(sum(cf[i] * hi[i] for i in range(len(hi))) for cf in self._f_cov_coef)
         t0, t1, t2 = tau
+        sqrt = math.sqrt
+        if not (sd2 and moved):
+            resid = tuple([(be - (r0 * t0 + r1 * t1 + r2 * t2)) * sqrt(we)
+                           for (r0, r1, r2), be, we in zip(rows, b, w)])
+            return t0, t1, t2, tuple(cov), resid
         eps = [be - (r[0] * t0 + r[1] * t1 + r[2] * t2) for r, be in zip(rows, b)]
-        resid = tuple(ee * math.sqrt(we) for ee, we in zip(eps, w))
+        resid = tuple([ee * sqrt(we) for ee, we in zip(eps, w)])
         cxx, cxy, cxt, cyy, cyt, ctt = cov
         if sd2:
             for e, dr, _, _ in moved:
