@@ -479,10 +479,7 @@ class OdometryNode:
     def save_geometry(self) -> tuple[bool, str]:
         """Write the running parameters file with the suggested geometry beside it (or, started without
         one, ``wheel_dr_geometry.yaml`` in the working directory); (success, one sentence)."""
-        import datetime as _dt
-        from pathlib import Path
-
-        from ..calibrate_cmd import _rounded, default_params_text
+        from ..calibrate_cmd import _rounded
         from ..params import atomic_write_text, update_params_text
         with self.lock:
             online = self.estimator.online
@@ -500,17 +497,7 @@ class OdometryNode:
                           "distance against a known one." if sc is None or not sc.ready else
                           f"Scale (true over configured mean radius) {sc.scale:.5f} +- {sc.se:.5f} from "
                           f"{sc.windows} windows of {self.settings.online_calibration.reference_topic}.")
-        running = self.params_files[-1] if self.params_files else None
-        if running is not None:
-            src = Path(running)
-            text = src.read_text(encoding="utf-8")
-            target = src.with_name(f"{src.stem}_geometry.yaml")
-            label = str(src)
-        else:
-            text = default_params_text()
-            target = Path.cwd() / "wheel_dr_geometry.yaml"
-            label = "config/wheel_dr.yaml defaults"
-        when = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+        text, target, label, when = self._geometry_file()
         values = _rounded({"wheels.left_radius": left, "wheels.right_radius": right, "wheels.track_width": track})
         header = "\n".join([
             f"description: Geometry suggested by the wheel_dr node's online self-calibration on {when} from {label}.",
@@ -523,13 +510,25 @@ class OdometryNode:
         return True, (f"wrote {target} (left radius {values['wheels.left_radius']} m, right radius "
                       f"{values['wheels.right_radius']} m, track {values['wheels.track_width']} m; {status})")
 
-    def _save_table_geometry(self, res, table) -> tuple[bool, str]:
-        """``save_geometry`` for a wheel table: the table moved along its observed combinations
-        (``TableOnlineResult.suggested``), as drive.* arrays, beside the running file."""
+    def _geometry_file(self) -> tuple:
+        """(text of the running parameters file, path of the file to write beside it, its label, the
+        time) for ``save_geometry``; the defaults file and the working directory without one."""
         import datetime as _dt
         from pathlib import Path
 
         from ..calibrate_cmd import default_params_text
+        running = self.params_files[-1] if self.params_files else None
+        if running is not None:
+            src = Path(running)
+            text, target, label = src.read_text(encoding="utf-8"), src.with_name(f"{src.stem}_geometry.yaml"), str(src)
+        else:
+            text, target, label = default_params_text(), Path.cwd() / "wheel_dr_geometry.yaml", \
+                "config/wheel_dr.yaml defaults"
+        return text, target, label, _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+
+    def _save_table_geometry(self, res, table) -> tuple[bool, str]:
+        """``save_geometry`` for a wheel table: the table moved along its observed combinations
+        (``TableOnlineResult.suggested``), as drive.* arrays, beside the running file."""
         from ..params import atomic_write_text, update_params_text
         if not res.observed:
             return False, ("the gyro observes no combination of the wheel table yet (too little driving or turning); "
@@ -539,17 +538,7 @@ class OdometryNode:
             keys.append("drive.steer_offset")
         sugg = res.suggested(table)
         values = {k: [round(float(v), 6) for v in sugg[k]] for k in keys}
-        running = self.params_files[-1] if self.params_files else None
-        if running is not None:
-            src = Path(running)
-            text = src.read_text(encoding="utf-8")
-            target = src.with_name(f"{src.stem}_geometry.yaml")
-            label = str(src)
-        else:
-            text = default_params_text()
-            target = Path.cwd() / "wheel_dr_geometry.yaml"
-            label = "config/wheel_dr.yaml defaults"
-        when = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+        text, target, label, when = self._geometry_file()
         lines = [f"c{k} = {c.text}: {100 * c.estimate:+.3f} % +- {100 * c.se:.3f} %" + (" (alert)" if c.alert else "")
                  for k, c in enumerate(res.observed, start=1)]
         header = "\n".join([
