@@ -72,6 +72,17 @@ def _wait(pred: Callable[[], Any], timeout_s: float, what: str) -> Any:
     raise AssertionError(f"timed out after {timeout_s} s waiting for {what}")
 
 
+def stop_node(proc: subprocess.Popen) -> None:
+    """End a node process with SIGTERM (killed if it has not ended 15 s later)."""
+    if proc.poll() is None:
+        proc.send_signal(signal.SIGTERM)
+    try:
+        proc.wait(timeout=15)
+    except subprocess.TimeoutExpired:
+        proc.kill()
+        proc.wait()
+
+
 class Probe:
     """The test side: an rclpy node in this process that drives and watches the node under test."""
 
@@ -260,13 +271,7 @@ def node_run(tmp_path_factory: pytest.TempPathFactory, ros_env: dict[str, str]) 
         yield {"proc": proc, "probe": probe, "log": log_path}
     finally:
         probe.close()
-        if proc.poll() is None:
-            proc.send_signal(signal.SIGTERM)
-        try:
-            proc.wait(timeout=15)
-        except subprocess.TimeoutExpired:
-            proc.kill()
-            proc.wait()
+        stop_node(proc)
         log.close()
 
 

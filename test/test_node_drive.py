@@ -13,7 +13,6 @@ Scaramuzza 2011, sec. 3.2 for the wheel equations).
 from __future__ import annotations
 
 import math
-import signal
 import subprocess
 from pathlib import Path
 from typing import Any, Iterator
@@ -21,7 +20,7 @@ from typing import Any, Iterator
 import numpy as np
 import pytest
 
-from test_node import NODE_EXE, Probe, _wait
+from test_node import NODE_EXE, Probe, _wait, stop_node
 from wheel_dr.core import Settings, run
 from wheel_dr.core.wheels import samples_from_messages
 
@@ -68,13 +67,7 @@ def table_node(tmp_path_factory: pytest.TempPathFactory, ros_env: dict[str, str]
         yield {"proc": proc, "probe": probe}
     finally:
         probe.close()
-        if proc.poll() is None:
-            proc.send_signal(signal.SIGTERM)
-        try:
-            proc.wait(timeout=15)
-        except subprocess.TimeoutExpired:
-            proc.kill()
-            proc.wait()
+        stop_node(proc)
         log.close()
 
 

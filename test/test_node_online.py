@@ -10,7 +10,6 @@ core's batch run over the same samples (heading model of Siegwart et al. 2011, s
 from __future__ import annotations
 
 import math
-import signal
 import subprocess
 import time
 from pathlib import Path
@@ -18,7 +17,7 @@ from typing import Any
 
 import pytest
 
-from test_node import NODE_EXE, Probe, _wait
+from test_node import NODE_EXE, Probe, _wait, stop_node
 from wheel_dr.core import run
 from wheel_dr.core.online_calibration import GEOMETRY_FIELDS, GEOMETRY_LABEL
 from wheel_dr.demo.scenarios import varied_route
@@ -59,14 +58,7 @@ def _start(params: Path, log_path: Path, env: dict[str, str]) -> subprocess.Pope
                              "-r", f"__ns:={NS}"], env=env, stdout=log_path.open("w"), stderr=subprocess.STDOUT)
 
 
-def _stop(proc: subprocess.Popen) -> None:
-    if proc.poll() is None:
-        proc.send_signal(signal.SIGTERM)
-    try:
-        proc.wait(timeout=15)
-    except subprocess.TimeoutExpired:
-        proc.kill()
-        proc.wait()
+_stop = stop_node     # the shared SIGTERM-then-kill ending of a node process (test_node.py)
 
 
 def _drive(probe: Probe, sim, pub_ref=None) -> None:
